@@ -1,0 +1,1 @@
+"""Output-stage architectures: one module each, behind one registry."""

@@ -1,0 +1,128 @@
+"""Technology parameters: per-polarity device constants, process corners, drawing rules.
+
+All fields are SI. The checks here know the field name and its allowed range; the file
+loader in `optimise` adds the file name and table path to the message.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from enum import Enum, IntEnum
+
+import numpy as np
+
+
+class ModelKind(Enum):
+    """Which drain-current equations a technology uses."""
+
+    EKV = "ekv"
+    SQUARE_LAW = "square-law"
+
+
+class Polarity(IntEnum):
+    """Sign convention: +1 for NMOS, -1 for PMOS (voltages and currents flip sign)."""
+
+    N = 1
+    P = -1
+
+
+class Corner(Enum):
+    """Process corners; the first letter is the NMOS, the second the PMOS."""
+
+    TT = "tt"
+    FF = "ff"
+    SS = "ss"
+    FS = "fs"
+    SF = "sf"
+
+
+def check_range(name: str, value: float, lo: float, hi: float, unit: str) -> None:
+    """Raise ValueError quoting the name, value, unit and allowed closed range."""
+    try:
+        ok = lo <= value <= hi
+    except TypeError:
+        ok = False
+    if not ok or (isinstance(value, float) and math.isnan(value)):
+        raise ValueError(f"{name} = {value!r} {unit} is outside the allowed range [{lo:g}, {hi:g}] {unit}")
+
+
+@dataclass(frozen=True, slots=True)
+class MosTech:
+    """Constants of one device polarity at the nominal temperature. Magnitudes, SI."""
+
+    vt0: float  # V      threshold-voltage magnitude at VSB = 0
+    kp: float  # A/V^2   transconductance parameter mu*Cox
+    n: float  # 1        subthreshold slope factor (EKV)
+    gamma: float  # V^0.5  body-effect coefficient (square law)
+    phi: float  # V      surface potential 2*phi_F (square law)
+    va_per_l: float  # V/m  Early voltage per metre of channel length (inf: no length modulation)
+    tc_vt: float  # V/K    threshold magnitude falls by this much per kelvin
+    mu_exp: float  # 1     mobility temperature exponent, KP ~ (T/Tnom)^mu_exp
+    a_vt: float  # V*m     Pelgrom threshold coefficient (pair difference)
+    a_beta: float  # m     Pelgrom current-factor coefficient (pair difference, fraction*m)
+    cox: float  # F/m^2    gate-oxide capacitance per area
+    cov: float  # F/m      gate overlap capacitance per width, each side
+    w_min: float  # m      minimum drawn width
+    l_min: float  # m      minimum drawn length
+
+    def __post_init__(self) -> None:
+        check_range("vt0", self.vt0, 0.05, 3.0, "V")
+        check_range("kp", self.kp, 1e-6, 1e-2, "A/V^2")
+        check_range("n", self.n, 1.0, 3.0, "")
+        check_range("gamma", self.gamma, 0.0, 3.0, "V^0.5")
+        check_range("phi", self.phi, 0.1, 1.5, "V")
+        check_range("va_per_l", self.va_per_l, 1e5, math.inf, "V/m")
+        check_range("tc_vt", self.tc_vt, -5e-3, 1e-2, "V/K")
+        check_range("mu_exp", self.mu_exp, -3.0, 0.0, "")
+        check_range("a_vt", self.a_vt, 0.0, 1e-7, "V*m")
+        check_range("a_beta", self.a_beta, 0.0, 1e-7, "m")
+        check_range("cox", self.cox, 1e-4, 0.1, "F/m^2")
+        check_range("cov", self.cov, 0.0, 1e-8, "F/m")
+        check_range("w_min", self.w_min, 1e-8, 1e-4, "m")
+        check_range("l_min", self.l_min, 1e-8, 1e-4, "m")
+
+
+@dataclass(frozen=True, slots=True)
+class CornerShift:
+    """A process corner as shifts of both polarities.
+
+    `dvt` adds to the threshold magnitude (positive: slower device); `kp` multiplies KP.
+    """
+
+    dvt_n: float = 0.0  # V
+    kp_n: float = 1.0  # 1
+    dvt_p: float = 0.0  # V
+    kp_p: float = 1.0  # 1
+
+    def __post_init__(self) -> None:
+        for name in ("dvt_n", "dvt_p"):
+            check_range(name, getattr(self, name), -0.5, 0.5, "V")
+        for name in ("kp_n", "kp_p"):
+            check_range(name, getattr(self, name), 0.2, 5.0, "")
+
+
+@dataclass(frozen=True, slots=True)
+class Tech:
+    """A whole technology: both polarities, model kind, drawing grid and corners."""
+
+    name: str
+    model: ModelKind
+    nmos: MosTech
+    pmos: MosTech
+    grid: float  # m  drawing grid for W and L
+    tnom: float  # K  temperature at which the device constants hold
+    corners: dict[Corner, CornerShift] = field(default_factory=lambda: {Corner.TT: CornerShift()})
+
+    def __post_init__(self) -> None:
+        check_range("grid", self.grid, 1e-10, 1e-6, "m")
+        check_range("tnom", self.tnom, 200.0, 450.0, "K")
+        if Corner.TT not in self.corners:
+            raise ValueError("corners must include tt (the typical corner)")
+
+    def mos(self, polarity: Polarity) -> MosTech:
+        """The constants of one polarity."""
+        return self.nmos if polarity == Polarity.N else self.pmos
+
+    def snap(self, x):
+        """Round lengths [m] to the drawing grid (never below one grid step)."""
+        return np.maximum(np.round(np.asarray(x, dtype=float) / self.grid), 1.0) * self.grid
