@@ -1,0 +1,487 @@
+"""Every metric of an output stage at every PVT point, for a whole population at once.
+
+The population (n designs) and the PVT grid (k points: corner x temperature x supply) are
+flattened to n*k elements and processed in chunks, so memory stays bounded whatever n is.
+Per element: the rest point (exact), Iq and its mismatch sigma (adjoint sensitivities of
+the full Kirchhoff system, Pelgrom sigmas), the output pole, the lowest supply that keeps
+every device in its region, and both driven points (drive limit, headroom at the peak
+load current, peak current, current left in the idle device).
+
+Numerical failure is reported per element (`converged` False, with a reason); the metric
+values of such elements are not to be used.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import mismatch as _mm
+from .mos import at_conditions, gate_capacitance, inversion_coefficient
+from .stages import get_stage
+from .stages.base import Device, NodalSystem, solve_bracketed, subset
+from .tech import Corner, CornerShift, Polarity, Tech, check_range
+
+PVT_METRICS = (
+    "iq_a", "headroom_high_v", "headroom_low_v", "swing_v", "iout_source_a", "iout_sink_a",
+    "ab_ratio", "iq_sigma_pct", "supply_sens_pct_per_v", "vdd_min_v", "fp2_hz",
+)
+LIMIT_NAMES = ("compliance", "control-saturation")
+
+
+@dataclass(frozen=True, slots=True)
+class Design:
+    """A population of n designs of one architecture. Arrays have shape (n,), SI units.
+
+    w, l: role -> width and length [m]; bias: bias name -> value [A or ohm];
+    tied: roles whose bulk sits on their source (own well).
+    """
+
+    architecture: str
+    w: dict
+    l: dict
+    bias: dict
+    tied: frozenset = frozenset()
+
+    def __post_init__(self) -> None:
+        stage = get_stage(self.architecture)
+        for table, names in (("devices", stage.ROLES), ("bias", tuple(stage.BIAS))):
+            have = set(self.w) if table == "devices" else set(self.bias)
+            missing = [r for r in names if r not in have]
+            unknown = sorted(have - set(names))
+            if missing:
+                raise ValueError(f"[{table}] is missing {', '.join(missing)} for {self.architecture}")
+            if unknown:
+                raise ValueError(f"[{table}] has unknown {', '.join(unknown)} for {self.architecture}; "
+                                 f"allowed: {', '.join(names)}")
+        for role in stage.ROLES:
+            if role not in self.l:
+                raise ValueError(f"[devices.{role}] has no length l")
+            for name, arr in ((f"[devices.{role}] w", self.w[role]), (f"[devices.{role}] l", self.l[role])):
+                if np.any(~(np.asarray(arr) > 0)):
+                    raise ValueError(f"{name} = {np.min(arr)!r} m must be positive")
+        for name, arr in self.bias.items():
+            if np.any(~(np.asarray(arr) > 0)):
+                raise ValueError(f"[bias] {name} = {np.min(arr)!r} {stage.BIAS[name]} must be positive")
+        bad = sorted(set(self.tied) - set(stage.ROLES))
+        if bad:
+            raise ValueError(f"bulk ties name unknown roles {', '.join(bad)}")
+
+    @property
+    def size(self) -> int:
+        return int(np.size(next(iter(self.w.values()))))
+
+
+@dataclass(frozen=True, slots=True)
+class Conditions:
+    """The PVT grid: every corner x temperature x supply, plus what the metrics need.
+
+    temps [K] and corners in the order given; vdd = (nominal, min, max) [V]; the nominal
+    temperature is the first one.
+    """
+
+    corners: tuple
+    temps: tuple
+    vdd_nom: float
+    vdd_min: float
+    vdd_max: float
+
+    def __post_init__(self) -> None:
+        if not self.vdd_min <= self.vdd_nom <= self.vdd_max:
+            raise ValueError(f"supply range is inverted or excludes the nominal: min {self.vdd_min} V, "
+                             f"nominal {self.vdd_nom} V, max {self.vdd_max} V; need min <= nominal <= max")
+        check_range("vdd_nom", self.vdd_nom, 0.3, 20.0, "V")
+        for t in self.temps:
+            check_range("temperature", t, 200.0, 450.0, "K")
+        if not self.corners or not self.temps:
+            raise ValueError("at least one corner and one temperature are needed")
+
+    @property
+    def supplies(self) -> tuple:
+        vs = [self.vdd_nom, self.vdd_min, self.vdd_max]
+        return tuple(dict.fromkeys(vs))  # nominal first, duplicates dropped
+
+    def grid(self):
+        """Flat PVT arrays (corner, temp, vdd), shape (k,), corner-major, supply fastest."""
+        corner, temp, vdd = [], [], []
+        for c in self.corners:
+            for t in self.temps:
+                for v in self.supplies:
+                    corner.append(c)
+                    temp.append(t)
+                    vdd.append(v)
+        return corner, np.array(temp), np.array(vdd)
+
+
+@dataclass(frozen=True, slots=True)
+class Targets:
+    """Load, driver and the limits a design must meet at every PVT point (SI).
+
+    Zero or infinite limits switch a check off.
+    """
+
+    i_load: float  # A     peak load current the output must deliver both ways
+    c_load: float  # F     load capacitance (output pole)
+    vcomp: float = 0.2  # V  driver compliance from either rail
+    drive: str = "both"  # which gates the driving stage moves: both, p or n
+    iq_min: float = 0.0  # A
+    iq_max: float = np.inf  # A
+    iq_sigmas: float = 0.0  # 1   apply the Iq window at this many sigma of mismatch
+    headroom_max: float = np.inf  # V  largest allowed headroom to either rail
+    ab_min: float = 0.0  # 1
+    area_max: float = np.inf  # m^2
+    fp2_min: float = 0.0  # Hz
+    layout_factor: float = 1.0  # 1  area multiplier for routing and spacing
+
+    def __post_init__(self) -> None:
+        check_range("i_load", self.i_load, 1e-9, 10.0, "A")
+        check_range("c_load", self.c_load, 1e-15, 1e-3, "F")
+        check_range("vcomp", self.vcomp, 0.0, 2.0, "V")
+        if self.drive not in ("both", "p", "n"):
+            raise ValueError(f"drive = {self.drive!r} is not one of both, p, n")
+        check_range("layout_factor", self.layout_factor, 1.0, 10.0, "")
+        if self.iq_min > self.iq_max:
+            raise ValueError(f"iq window is inverted: min {self.iq_min} A > max {self.iq_max} A")
+
+
+@dataclass
+class Result:
+    """Metrics of n designs at k PVT points.
+
+    pvt: name -> (n, k) arrays (names of PVT_METRICS plus limit_source, limit_sink, and
+    vdd_min_what, an index into `requirement_names`); summary: name -> (n,);
+    converged: (n, k) bool; violations: per design, a list of readable strings.
+    """
+
+    architecture: str
+    corners: list
+    temps: np.ndarray
+    vdd: np.ndarray
+    pvt: dict
+    summary: dict
+    converged: np.ndarray
+    requirement_names: tuple
+    violations: list = field(default_factory=list)
+    margins: dict = field(default_factory=dict)
+
+    @property
+    def feasible(self) -> np.ndarray:
+        return np.array([not v for v in self.violations])
+
+
+def _shifts(tech: Tech, corner):
+    """Corner shifts per element: dict (polarity -> (dvt, kp factor)) of arrays (len(corner),)."""
+    table = {c: tech.corners.get(c, CornerShift()) for c in set(corner)}
+    return {
+        Polarity.N: (np.array([table[c].dvt_n for c in corner]), np.array([table[c].kp_n for c in corner])),
+        Polarity.P: (np.array([table[c].dvt_p for c in corner]), np.array([table[c].kp_p for c in corner])),
+    }
+
+
+def _devices(stage, design: Design, tech: Tech, shifts, temp, idx_design, dvt=None, dbeta=None):
+    """The Device dict for flat elements: design index idx_design, per-element corner
+    shifts (see `_shifts`) and temperature [K]."""
+    devs = {}
+    for spec in stage.TOPOLOGY.devices:
+        dv, kp = shifts[spec.polarity]
+        m = at_conditions(tech.mos(spec.polarity), spec.polarity, tech.model, temp, tech.tnom, dv, kp)
+        devs[spec.role] = Device(
+            m,
+            np.asarray(design.w[spec.role], dtype=float)[idx_design],
+            np.asarray(design.l[spec.role], dtype=float)[idx_design],
+            spec.role in design.tied,
+            0.0 if dvt is None else dvt[spec.role],
+            0.0 if dbeta is None else dbeta[spec.role],
+        )
+    return devs
+
+
+def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
+    """Headroom, peak current and idle-device ratio on one side. Shapes (m,)."""
+    gn, gp, limit, ok = stage.driven(devs, bias, vdd, nodes, direction, targets.drive, targets.vcomp)
+    out = 0.5 * vdd
+    i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, out)
+    peak = (i_up - i_dn) * direction
+    i_load = targets.i_load
+
+    def fun(v, idx):
+        d = subset(devs, idx)
+        u, dn, dd = stage.output(d, gn[idx], gp[idx], vdd[idx], v)
+        return (u - dn) * direction - i_load, dd * direction
+
+    can = peak >= i_load
+    if direction > 0:
+        lo, hi = out, vdd.copy()
+    else:
+        lo, hi = np.zeros_like(vdd), out
+    v_at, ok_v = solve_bracketed(fun, lo, hi)
+    v_at = np.where(can, v_at, out)
+    headroom = np.where(direction > 0, vdd - v_at, v_at)
+    i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, v_at)
+    idle = i_dn if direction > 0 else i_up
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ab = np.where(iq > 0, idle / iq, 0.0)
+    return headroom, peak, ab, limit, ok & (ok_v | ~can), can
+
+
+def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
+    shifts_all, temp_all, vdd_all = cond_arrays
+    shifts = {p: (dv[idx_pvt], kp[idx_pvt]) for p, (dv, kp) in shifts_all.items()}
+    temp = temp_all[idx_pvt]
+    vdd = vdd_all[idx_pvt]
+    devs = _devices(stage, design, tech, shifts, temp, idx_design)
+    bias = {k: np.asarray(v, dtype=float)[idx_design] for k, v in design.bias.items()}
+    nodes, ok = stage.quiescent(devs, bias, vdd)
+    system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd)
+    x = np.stack([nodes[nname] for nname in stage.TOPOLOGY.nodes] + [np.zeros_like(vdd)])
+    r, _, _ = system.assemble(x, np.arange(len(vdd)))
+    scale = bias_scale = np.maximum(stage.bias_total(bias), 1e-15)
+    ok &= np.all(np.abs(r) <= 1e-6 * bias_scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
+    if not ok.all():  # second chance: Newton on the full nodal system
+        bad = np.flatnonzero(~ok)
+        sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad])
+        x0 = np.nan_to_num(x[:, bad], nan=0.0)
+        xb, okb = sub.solve(x0)
+        x[:, bad] = xb
+        ok[bad] = okb
+        for k_node, nname in enumerate(stage.TOPOLOGY.nodes):
+            nodes[nname] = x[k_node]
+    out = 0.5 * vdd
+    down = devs[stage.PULL_DOWN]
+    spec_down = next(s for s in stage.TOPOLOGY.devices if s.role == stage.PULL_DOWN)
+    node_v = {"vdd": vdd, "0": np.zeros_like(vdd), "out": out, **nodes}
+    iq = down.current(node_v[spec_down.g], node_v[spec_down.d], node_v[spec_down.s], node_v[spec_down.rail])
+    iq = np.maximum(iq, 0.0)
+
+    sens = system.iq_sensitivity(x, stage.PULL_DOWN)
+    var = np.zeros_like(vdd)
+    for spec in stage.TOPOLOGY.devices:
+        dev, mt = devs[spec.role], tech.mos(spec.polarity)
+        s_vt, s_beta = sens[spec.role]
+        var += (s_vt * _mm.sigma_device_vt(mt.a_vt, dev.w, dev.l)) ** 2
+        var += (s_beta * _mm.sigma_device_beta(mt.a_beta, dev.w, dev.l)) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sigma_pct = np.where(iq > 0, 100.0 * np.sqrt(var) / iq, 0.0)
+
+    gm = stage.gm_output(devs, nodes, vdd)
+    fp2 = gm / (2.0 * np.pi * targets.c_load)
+
+    reqs = stage.requirements(devs, bias, vdd, nodes, targets.vcomp)
+    req = np.stack([rq for _, rq in reqs])
+    vdd_min = np.max(req, axis=0)
+    vdd_min_what = np.argmax(req, axis=0)
+
+    hh, i_src, ab_src, lim_src, ok_src, can_src = _driven_point(stage, devs, bias, vdd, nodes, +1, targets, iq)
+    hl, i_snk, ab_snk, lim_snk, ok_snk, can_snk = _driven_point(stage, devs, bias, vdd, nodes, -1, targets, iq)
+
+    c_drive = np.zeros_like(vdd)
+    for role in (stage.PULL_DOWN, stage.PULL_UP):
+        dev = devs[role]
+        mt = tech.mos(next(s.polarity for s in stage.TOPOLOGY.devices if s.role == role))
+        c_drive += gate_capacitance(mt, dev.w, dev.l, inversion_coefficient(dev.mos, dev.w, dev.l, iq))
+
+    res = {
+        "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,
+        "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": np.minimum(ab_src, ab_snk),
+        "iq_sigma_pct": sigma_pct, "vdd_min_v": vdd_min, "fp2_hz": fp2, "c_drive_f": c_drive,
+        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what,
+        "delivers_source": can_src, "delivers_sink": can_snk,
+    }
+    return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
+
+
+def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chunk: int = 8192) -> Result:
+    """All metrics of a population at every PVT point, with summary and violations.
+
+    Parameters
+    ----------
+    design : Design
+        n designs of one architecture.
+    tech : Tech
+    cond : Conditions
+        k = corners x temperatures x supplies PVT points.
+    targets : Targets
+    chunk : int
+        Elements (design x PVT pairs) processed at a time; bounds the memory.
+
+    Returns
+    -------
+    Result
+    """
+    stage = get_stage(design.architecture)
+    n = design.size
+    corner, temp, vdd = cond.grid()
+    k = len(vdd)
+    m = n * k
+    shifts = _shifts(tech, corner)
+    flat_design = np.repeat(np.arange(n), k)
+    flat_pvt = np.tile(np.arange(k), n)
+    pvt: dict[str, np.ndarray] = {}
+    converged = np.zeros(m, dtype=bool)
+    req_names = ()
+    for start in range(0, m, chunk):
+        sl = slice(start, min(start + chunk, m))
+        res, ok, req_names = _chunk(stage, design, tech, (shifts, temp, vdd), targets, flat_design[sl], flat_pvt[sl])
+        for name, arr in res.items():
+            if name not in pvt:
+                pvt[name] = np.zeros(m, dtype=arr.dtype)
+            pvt[name][sl] = arr
+        converged[sl] = ok
+    pvt = {name: arr.reshape(n, k) for name, arr in pvt.items()}
+    converged = converged.reshape(n, k)
+    _supply_sensitivity(pvt, cond, corner, temp, vdd)
+    summary = _summary(pvt, design, stage, cond, corner, temp, vdd, targets)
+    violations, margins = _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names)
+    return Result(design.architecture, corner, temp, vdd, pvt, summary, converged, req_names, violations, margins)
+
+
+def _supply_sensitivity(pvt, cond, corner, temp, vdd):
+    """(Iq(VDD max) - Iq(VDD min)) / Iq(nominal) / (VDD max - VDD min), percent per volt,
+    per corner and temperature; stored at each of the group's PVT points."""
+    iq = pvt["iq_a"]
+    sens = np.zeros_like(iq)
+    span = cond.vdd_max - cond.vdd_min
+    ns = len(cond.supplies)
+    for g in range(len(vdd) // ns):
+        cols = np.arange(g * ns, (g + 1) * ns)
+        v = vdd[cols]
+        i_nom = iq[:, cols[np.argmin(np.abs(v - cond.vdd_nom))]]
+        i_lo = iq[:, cols[np.argmin(v)]]
+        i_hi = iq[:, cols[np.argmax(v)]]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            val = np.where((i_nom > 0) & (span > 0), 100.0 * (i_hi - i_lo) / i_nom / max(span, 1e-300), 0.0)
+        sens[:, cols] = val[:, None]
+    pvt["supply_sens_pct_per_v"] = sens
+
+
+def _nominal_column(cond, corner, temp, vdd):
+    for j in range(len(vdd)):
+        if corner[j] == Corner.TT and temp[j] == cond.temps[0] and vdd[j] == cond.vdd_nom:
+            return j
+    for j in range(len(vdd)):  # no tt in the study: the first corner stands in
+        if temp[j] == cond.temps[0] and vdd[j] == cond.vdd_nom:
+            return j
+    return 0
+
+
+def _summary(pvt, design, stage, cond, corner, temp, vdd, targets):
+    j = _nominal_column(cond, corner, temp, vdd)
+    bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
+    area = sum(np.asarray(design.w[r]) * np.asarray(design.l[r]) for r in stage.ROLES) * targets.layout_factor
+    sens = pvt["supply_sens_pct_per_v"]
+    return {
+        "iq_a": pvt["iq_a"][:, j],
+        "iq_min_a": pvt["iq_a"].min(axis=1),
+        "iq_max_a": pvt["iq_a"].max(axis=1),
+        "power_w": cond.vdd_nom * (pvt["iq_a"][:, j] + stage.bias_total(bias)),
+        "headroom_high_v": pvt["headroom_high_v"].max(axis=1),
+        "headroom_low_v": pvt["headroom_low_v"].max(axis=1),
+        "swing_v": pvt["swing_v"].min(axis=1),
+        "iout_source_a": pvt["iout_source_a"].min(axis=1),
+        "iout_sink_a": pvt["iout_sink_a"].min(axis=1),
+        "ab_ratio": pvt["ab_ratio"].min(axis=1),
+        "area_um2": area * 1e12,
+        "iq_sigma_pct": pvt["iq_sigma_pct"].max(axis=1),
+        "supply_sens_pct_per_v": sens[np.arange(len(sens)), np.argmax(np.abs(sens), axis=1)],
+        "vdd_min_v": pvt["vdd_min_v"].max(axis=1),
+        "fp2_hz": pvt["fp2_hz"].min(axis=1),
+        "c_drive_f": pvt["c_drive_f"].max(axis=1),
+    }
+
+
+def _where(corner, temp, vdd, j):
+    return f"{corner[j].value}, {temp[j] - 273.15:g} C, {vdd[j]:g} V"
+
+
+def _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names):
+    """Violations (readable, per design) and worst margins (per design, >= 0 when met).
+
+    Margins are relative to their limit, so the search can use them as constraints."""
+    n, k = pvt["iq_a"].shape
+    iq = pvt["iq_a"]
+    spread = targets.iq_sigmas * pvt["iq_sigma_pct"] / 100.0
+    inf = np.inf
+    m = {}
+    with np.errstate(divide="ignore", invalid="ignore"):
+        m["iq_low"] = (iq * (1 - spread) - targets.iq_min) / max(targets.iq_min, 1e-12) if targets.iq_min > 0 \
+            else np.full((n, k), inf)
+        m["iq_high"] = (targets.iq_max - iq * (1 + spread)) / targets.iq_max if np.isfinite(targets.iq_max) \
+            else np.full((n, k), inf)
+        hr = np.maximum(pvt["headroom_high_v"], pvt["headroom_low_v"])
+        m["headroom"] = (targets.headroom_max - hr) / targets.headroom_max if np.isfinite(targets.headroom_max) \
+            else np.full((n, k), inf)
+        m["load_current"] = (np.minimum(pvt["iout_source_a"], pvt["iout_sink_a"]) - targets.i_load) / targets.i_load
+        m["ab_ratio"] = (pvt["ab_ratio"] - targets.ab_min) / targets.ab_min if targets.ab_min > 0 \
+            else np.full((n, k), inf)
+        m["fp2"] = (pvt["fp2_hz"] - targets.fp2_min) / targets.fp2_min if targets.fp2_min > 0 \
+            else np.full((n, k), inf)
+        m["vdd_min"] = (vdd[None, :] - pvt["vdd_min_v"]) / vdd[None, :]
+    labels = {
+        "iq_low": lambda i, j: f"Iq {iq[i, j]:.4g} A{' (at -%g sigma)' % targets.iq_sigmas if targets.iq_sigmas else ''}"
+                               f" below the window minimum {targets.iq_min:.4g} A at {_where(corner, temp, vdd, j)}",
+        "iq_high": lambda i, j: f"Iq {iq[i, j]:.4g} A{' (at +%g sigma)' % targets.iq_sigmas if targets.iq_sigmas else ''}"
+                                f" above the window maximum {targets.iq_max:.4g} A at {_where(corner, temp, vdd, j)}",
+        "headroom": lambda i, j: f"headroom {hr[i, j]:.4g} V exceeds {targets.headroom_max:.4g} V at "
+                                 f"{_where(corner, temp, vdd, j)}",
+        "load_current": lambda i, j: f"peak output current {min(pvt['iout_source_a'][i, j], pvt['iout_sink_a'][i, j]):.4g}"
+                                     f" A is below the load current {targets.i_load:.4g} A at {_where(corner, temp, vdd, j)}",
+        "ab_ratio": lambda i, j: f"ab_ratio {pvt['ab_ratio'][i, j]:.4g} is below {targets.ab_min:.4g} at "
+                                 f"{_where(corner, temp, vdd, j)}",
+        "fp2": lambda i, j: f"output pole {pvt['fp2_hz'][i, j]:.4g} Hz is below {targets.fp2_min:.4g} Hz at "
+                            f"{_where(corner, temp, vdd, j)}",
+        "vdd_min": lambda i, j: f"at {_where(corner, temp, vdd, j)}: {req_names[pvt['vdd_min_what'][i, j]]} "
+                                f"by {pvt['vdd_min_v'][i, j] - vdd[j]:.3g} V (needs {pvt['vdd_min_v'][i, j]:.3g} V)",
+    }
+    violations = [[] for _ in range(n)]
+    margins = {}
+    for key, arr in m.items():
+        arr = np.where(converged, np.nan_to_num(arr, nan=-1.0), inf)
+        worst = arr.argmin(axis=1)
+        margins[key] = arr[np.arange(n), worst]
+        for i in np.flatnonzero(margins[key] < 0):
+            violations[i].append(labels[key](i, worst[i]))
+    margins["area"] = np.full(n, inf) if not np.isfinite(targets.area_max) else \
+        (targets.area_max * 1e12 - summary["area_um2"]) / (targets.area_max * 1e12)
+    for i in np.flatnonzero(margins["area"] < 0):
+        violations[i].append(f"area {summary['area_um2'][i]:.4g} um^2 exceeds {targets.area_max * 1e12:.4g} um^2")
+    for i in np.flatnonzero(~converged.all(axis=1)):
+        bad = np.flatnonzero(~converged[i])
+        violations[i].insert(0, f"operating point did not converge at {len(bad)} of {k} PVT points "
+                                f"(first: {_where(corner, temp, vdd, bad[0])})")
+    return violations, margins
+
+
+def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd: float, samples: int,
+                   rng: np.random.Generator):
+    """Iq of one design under random mismatch (Pelgrom), one exact solve per sample.
+
+    Parameters
+    ----------
+    design : Design
+        One design (arrays of shape (1,)).
+    corner, temp, vdd : the PVT point ([K], [V]).
+    samples : int
+        N.
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    iq : ndarray (N,) [A]
+    ok : ndarray of bool (N,)
+    """
+    stage = get_stage(design.architecture)
+    idx = np.zeros(samples, dtype=int)
+    dvt, dbeta = {}, {}
+    for spec in stage.TOPOLOGY.devices:
+        mt = tech.mos(spec.polarity)
+        w = float(np.asarray(design.w[spec.role]).ravel()[0])
+        l = float(np.asarray(design.l[spec.role]).ravel()[0])
+        dvt[spec.role], dbeta[spec.role] = _mm.sample(rng, mt.a_vt, mt.a_beta, w, l, samples)
+    devs = _devices(stage, design, tech, _shifts(tech, [corner] * samples), np.full(samples, temp), idx, dvt, dbeta)
+    bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
+    vdd_arr = np.full(samples, float(vdd))
+    nodes, ok = stage.quiescent(devs, bias, vdd_arr)
+    spec = next(s for s in stage.TOPOLOGY.devices if s.role == stage.PULL_DOWN)
+    node_v = {"vdd": vdd_arr, "0": np.zeros(samples), "out": 0.5 * vdd_arr, **nodes}
+    iq = devs[stage.PULL_DOWN].current(node_v[spec.g], node_v[spec.d], node_v[spec.s], node_v[spec.rail])
+    return iq, ok

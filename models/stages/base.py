@@ -1,0 +1,368 @@
+"""What every output-stage architecture shares: topology records, device evaluation with
+bulk ties and mismatch, vectorised 1-D and nodal solvers, and mismatch sensitivities.
+
+Node names: "vdd" (supply), "0" (ground), "out" (output); every other name is internal.
+All arrays are flat, shape (m,), one element per (design, PVT point) pair; the caller
+flattens and chunks.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .. import mos as _mos
+from ..tech import Polarity
+
+RAILS = ("vdd", "0")
+
+
+@dataclass(frozen=True, slots=True)
+class DeviceSpec:
+    """One transistor of a topology: role name, polarity and terminal nodes."""
+
+    role: str
+    polarity: Polarity
+    d: str
+    g: str
+    s: str
+
+    @property
+    def rail(self) -> str:
+        """Default bulk node: ground for NMOS, supply for PMOS."""
+        return "0" if self.polarity == Polarity.N else "vdd"
+
+
+@dataclass(frozen=True, slots=True)
+class SourceSpec:
+    """An ideal DC current source of value `bias` pushing current from node a to node b."""
+
+    name: str
+    bias: str
+    a: str
+    b: str
+
+
+@dataclass(frozen=True, slots=True)
+class ResistorSpec:
+    """A resistor of value `bias` (ohm) between nodes a and b."""
+
+    name: str
+    bias: str
+    a: str
+    b: str
+
+
+@dataclass(frozen=True, slots=True)
+class Topology:
+    """Netlist of a stage at rest.
+
+    `drive` is the node into which the amplifier's feedback injects current (or whose
+    voltage it sets, for a follower); at rest that current is zero and the output sits
+    at VDD/2 with no net output current.
+    """
+
+    devices: tuple[DeviceSpec, ...]
+    sources: tuple[SourceSpec, ...]
+    resistors: tuple[ResistorSpec, ...] = ()
+    drive: str = "gp"
+
+    @property
+    def roles(self) -> tuple[str, ...]:
+        return tuple(d.role for d in self.devices)
+
+    @property
+    def nodes(self) -> tuple[str, ...]:
+        """Internal nodes (unknowns of the nodal system), in first-seen order."""
+        seen: list[str] = []
+        for dev in self.devices:
+            for node in (dev.d, dev.g, dev.s):
+                if node not in RAILS and node != "out" and node not in seen:
+                    seen.append(node)
+        for el in self.sources + self.resistors:
+            for node in (el.a, el.b):
+                if node not in RAILS and node != "out" and node not in seen:
+                    seen.append(node)
+        return tuple(seen)
+
+
+@dataclass(slots=True)
+class Device:
+    """A sized device at its operating conditions, with optional mismatch deviations.
+
+    Arrays broadcast with the flat batch. `tied` means the bulk sits on the source (own
+    well), which removes the body effect.
+    """
+
+    mos: _mos.Mos
+    w: np.ndarray
+    l: np.ndarray
+    tied: bool = False
+    dvt: np.ndarray | float = 0.0
+    dbeta: np.ndarray | float = 0.0
+
+    @property
+    def p(self) -> int:
+        return self.mos.polarity
+
+    def eval(self, vg, vd, vs, vb):
+        """Frame current i and its derivatives with respect to the physical gate, drain and
+        source voltages (source derivative includes the bulk when tied). Shape (m,)."""
+        vb_eff = vs if self.tied else vb
+        i, gg, gd, gs = _mos.current_partials(self.mos, self.w, self.l, vg, vd, vs, vb_eff, self.dvt, self.dbeta)
+        p = self.p
+        if self.tied:
+            gs = -(gg + gd)
+        return i, p * gg, p * gd, p * gs
+
+    def current(self, vg, vd, vs, vb):
+        return self.eval(vg, vd, vs, vb)[0]
+
+    def diode(self, i, vs, vb):
+        """Gate = drain voltage of this device diode-connected, carrying frame current i."""
+        return _mos.diode_voltage(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, self.dvt, self.dbeta)
+
+    def gate_for(self, i, vs, vb, vds):
+        """Gate voltage for frame current i in saturation (closed form)."""
+        return _mos.gate_voltage_sat(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, vds, self.dvt, self.dbeta)
+
+    def vdsat(self, i):
+        return _mos.saturation_voltage(self.mos, self.w, self.l, i)
+
+
+def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100):
+    """Vectorised safeguarded Newton inside a bracket (Newton steps that leave the bracket
+    or shrink it too slowly are replaced by bisection).
+
+    Parameters
+    ----------
+    fun : callable
+        fun(x, idx) -> (f, df) for the elements `idx` (integer index array) at points x.
+    lo, hi : ndarray, shape (m,)
+        Bracket ends; f(lo) and f(hi) must differ in sign (or one be zero).
+    x0 : ndarray, shape (m,), optional
+        Starting point inside the bracket (default: midpoint).
+
+    Returns
+    -------
+    x : ndarray, shape (m,)
+        Root estimates.
+    ok : ndarray of bool, shape (m,)
+        True where the bracket held a sign change and the iteration met `xtol`.
+    """
+    lo = np.array(lo, dtype=float)
+    hi = np.array(hi, dtype=float)
+    m = lo.shape[0]
+    allidx = np.arange(m)
+    flo, _ = fun(lo, allidx)
+    fhi, _ = fun(hi, allidx)
+    ok = (np.sign(flo) * np.sign(fhi)) <= 0
+    # Orient so that f(lo) <= 0 <= f(hi).
+    swap = flo > 0
+    lo, hi = np.where(swap, hi, lo), np.where(swap, lo, hi)
+    x = 0.5 * (lo + hi) if x0 is None else np.clip(np.array(x0, dtype=float), np.minimum(lo, hi), np.maximum(lo, hi))
+    done = ~ok | (flo == 0) | (fhi == 0)
+    x = np.where(flo == 0, np.where(swap, hi, lo), x)
+    x = np.where(fhi == 0, np.where(swap, lo, hi), x)
+    act = np.flatnonzero(~done)
+    for _ in range(max_iter):
+        if act.size == 0:
+            break
+        xa, la, ha = x[act], lo[act], hi[act]
+        f, df = fun(xa, act)
+        neg = f < 0
+        la = np.where(neg, xa, la)
+        ha = np.where(neg, ha, xa)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xn = xa - f / df
+        bad = ~np.isfinite(xn) | ((xn - la) * (xn - ha) > 0)
+        xn = np.where(bad, 0.5 * (la + ha), xn)
+        conv = (np.abs(xn - xa) < xtol) | (f == 0) | (np.abs(ha - la) < xtol)
+        x[act], lo[act], hi[act] = xn, la, ha
+        act = act[~conv]
+    ok &= np.isin(np.arange(m), act, invert=True)
+    return x, ok
+
+
+def newton(fun, x0, step_max=0.25, xtol=1e-10, max_iter=60):
+    """Vectorised damped Newton for small square systems.
+
+    Parameters
+    ----------
+    fun : callable
+        fun(x, idx) -> (r, jac): residuals (k, n_idx) and Jacobian (n_idx, k, k) for the
+        elements `idx` at points x of shape (k, n_idx).
+    x0 : ndarray, shape (k, m)
+        Starting point.
+    step_max : float
+        Largest change of any unknown per step (volts), the damping.
+
+    Returns
+    -------
+    x : ndarray, shape (k, m)
+    ok : ndarray of bool, shape (m,)
+        Converged elements; the others are left at their last iterate.
+    """
+    x = np.array(x0, dtype=float)
+    m = x.shape[1]
+    ok = np.zeros(m, dtype=bool)
+    act = np.arange(m)
+    for _ in range(max_iter):
+        if act.size == 0:
+            break
+        xa = x[:, act]
+        r, jac = fun(xa, act)
+        with np.errstate(all="ignore"):
+            try:
+                dx = -np.linalg.solve(jac, r.T[:, :, None])[:, :, 0].T
+            except np.linalg.LinAlgError:
+                dx = np.full_like(xa, np.nan)
+        finite = np.all(np.isfinite(dx), axis=0)
+        dx = np.where(finite, dx, 0.0)
+        big = np.max(np.abs(dx), axis=0)
+        scale = np.where(big > step_max, step_max / np.maximum(big, 1e-300), 1.0)
+        x[:, act] = xa + dx * scale
+        conv = finite & (big < xtol)
+        ok[act[conv]] = True
+        act = act[finite & ~conv]
+    return x, ok
+
+
+@dataclass
+class NodalSystem:
+    """The stage's full Kirchhoff system at rest, assembled from its topology.
+
+    Unknowns: every internal node voltage and the drive current (injected into the drive
+    node); equations: KCL at every internal node and zero net current at the output.
+    Used for mismatch sensitivities (adjoint of the exact Jacobian) and as the fallback
+    solver for elements the fast path could not solve.
+    """
+
+    topo: Topology
+    devices: dict[str, Device]
+    bias: dict[str, np.ndarray]
+    vdd: np.ndarray
+    index: dict[str, int] = field(init=False)
+
+    def __post_init__(self) -> None:
+        self.index = {node: k for k, node in enumerate(self.topo.nodes)}
+        self.index["__drive__"] = len(self.topo.nodes)
+
+    @property
+    def size(self) -> int:
+        return len(self.index)
+
+    def voltages(self, x, idx):
+        v = {"vdd": self.vdd[idx], "0": np.zeros(len(idx)), "out": 0.5 * self.vdd[idx]}
+        for node, k in self.index.items():
+            if node != "__drive__":
+                v[node] = x[k]
+        return v
+
+    def assemble(self, x, idx, want_theta=False):
+        """Residuals r (k, n), Jacobian (n, k, k) and, if asked, the parameter derivatives
+        of r: dict role -> (dr/d dvt, dr/d dbeta), each (k, n)."""
+        k, n = self.size, len(idx)
+        v = self.voltages(x, idx)
+        r = np.zeros((k, n))
+        jac = np.zeros((n, k, k))
+        row_of = dict(self.index)
+        row_of["out"] = self.index["__drive__"]  # zero output current takes the drive's row
+        theta = {}
+        for spec in self.topo.devices:
+            dev = _subset(self.devices[spec.role], idx)
+            i, gg, gd, gs = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
+            current_in = dev.p * i  # physical current entering the drain terminal
+            p = dev.p
+            terms = ((spec.g, p * gg), (spec.d, p * gd), (spec.s, p * gs))
+            for node, sign in ((spec.d, -1.0), (spec.s, 1.0)):
+                row = row_of.get(node)
+                if row is None:
+                    continue
+                r[row] += sign * current_in
+                for col_node, g in terms:
+                    col = self.index.get(col_node)
+                    if col is not None and col_node != "__drive__":
+                        jac[:, row, col] += sign * g
+            if want_theta:
+                # d(current_in)/d dvt = p * (-p * gg) = -gg; d/d dbeta = current_in / (1 + dbeta)
+                d_vt = np.zeros((k, n))
+                d_beta = np.zeros((k, n))
+                for node, sign in ((spec.d, -1.0), (spec.s, 1.0)):
+                    row = row_of.get(node)
+                    if row is not None:
+                        d_vt[row] += sign * (-gg)
+                        d_beta[row] += sign * current_in / (1.0 + dev.dbeta)
+                theta[spec.role] = (d_vt, d_beta)
+        for src in self.topo.sources:
+            val = self.bias[src.bias][idx]
+            for node, sign in ((src.a, -1.0), (src.b, 1.0)):
+                row = row_of.get(node)
+                if row is not None:
+                    r[row] += sign * val
+        for res in self.topo.resistors:
+            gval = 1.0 / self.bias[res.bias][idx]
+            cur = (v[res.a] - v[res.b]) * gval
+            for node, sign in ((res.a, -1.0), (res.b, 1.0)):
+                row = row_of.get(node)
+                if row is None:
+                    continue
+                r[row] += sign * cur
+                for col_node, g in ((res.a, gval), (res.b, -gval)):
+                    col = self.index.get(col_node)
+                    if col is not None:
+                        jac[:, row, col] += sign * g
+        drive_col = self.index["__drive__"]
+        drive_row = row_of[self.topo.drive]
+        r[drive_row] += x[drive_col]
+        jac[:, drive_row, drive_col] += 1.0
+        return r, jac, theta
+
+    def solve(self, x0):
+        """Damped Newton on the full system from x0 (k, m)."""
+        return newton(lambda x, idx: self.assemble(x, idx)[:2], x0)
+
+    def iq_sensitivity(self, x, out_role):
+        """d Iq / d dvt and d Iq / d dbeta for every device, by the adjoint of the exact
+        Jacobian at the solved point x (k, m). Iq is the frame current of `out_role`.
+
+        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,).
+        """
+        m = x.shape[1]
+        idx = np.arange(m)
+        r, jac, theta = self.assemble(x, idx, want_theta=True)
+        v = self.voltages(x, idx)
+        spec = next(d for d in self.topo.devices if d.role == out_role)
+        dev = self.devices[out_role]
+        i, gg, gd, gs = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
+        grad = np.zeros((m, self.size))
+        for node, g in ((spec.g, gg), (spec.d, gd), (spec.s, gs)):
+            col = self.index.get(node)
+            if col is not None:
+                grad[:, col] += g  # frame current derivative
+        lam = np.linalg.solve(np.swapaxes(jac, 1, 2), grad[:, :, None])[:, :, 0]  # (m, k)
+        out = {}
+        for role, (d_vt, d_beta) in theta.items():
+            s_vt = -np.einsum("mk,km->m", lam, d_vt)
+            s_beta = -np.einsum("mk,km->m", lam, d_beta)
+            if role == out_role:
+                s_vt = s_vt - dev.p * gg
+                s_beta = s_beta + i / (1.0 + dev.dbeta)
+            out[role] = (s_vt, s_beta)
+        return out
+
+
+def _subset(dev: Device, idx) -> Device:
+    """The same device restricted to the batch elements idx."""
+    def pick(a):
+        a = np.asarray(a)
+        return a[idx] if a.ndim else a
+
+    m = dev.mos
+    mos_sub = _mos.Mos(m.polarity, m.kind, pick(m.vt0), pick(m.kp), m.n, m.gamma, m.phi, pick(m.ut), m.va_per_l)
+    return Device(mos_sub, pick(dev.w), pick(dev.l), dev.tied, pick(dev.dvt), pick(dev.dbeta))
+
+
+def subset(devices: dict[str, Device], idx) -> dict[str, Device]:
+    """All devices restricted to the batch elements idx."""
+    return {role: _subset(dev, idx) for role, dev in devices.items()}

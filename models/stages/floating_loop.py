@@ -1,0 +1,257 @@
+"""Common-source push-pull pair with a translinear floating class-AB control.
+
+Topology
+--------
+MN_OUT (drain out, gate gn, source ground) and MP_OUT (drain out, gate gp, source supply).
+N loop: ib_n flows from the supply into the stacked diodes MN_D2 (top, node nb2) and MN_D1
+(bottom, node nb1); nb2 drives the gate of MN_CTL, whose source is gn and drain gp. The P
+loop mirrors it: MP_D1 (from the supply, node pb1), MP_D2 (node pb2), ib_p to ground,
+MP_CTL with gate pb2, source gp, drain gn. One ib_ctl source feeds gp from the supply,
+another pulls ib_ctl out of gn; at rest ib_ctl splits between MN_CTL and MP_CTL.
+Loops: VGS(MN_D1) + VGS(MN_D2) = VGS(MN_CTL) + VGS(MN_OUT), and the P twin.
+
+Validity: every device as its model allows (EKV all regions or level-1 square law); ideal
+bias current sources; the amplifier holds the output at VDD/2 at rest.
+
+References
+----------
+B. Gilbert, "Translinear circuits: a proposed classification", Electronics Letters 11(1), 1975.
+E. Seevinck, R. J. Wiegerink, "Generalized translinear circuit principle", IEEE JSSC 26(8), 1991.
+D. M. Monticelli, "A quad CMOS single-supply op amp with rail-to-rail output swing",
+IEEE JSSC 21(6), 1986 (the class of circuit).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from ..tech import Polarity
+from .base import DeviceSpec, SourceSpec, Topology, newton, solve_bracketed, subset
+
+NAME = "floating-loop"
+ROLES = ("mn_out", "mp_out", "mn_d1", "mn_d2", "mn_ctl", "mp_d1", "mp_d2", "mp_ctl")
+BIAS = {"ib_n": "A", "ib_p": "A", "ib_ctl": "A"}
+PULL_DOWN, PULL_UP = "mn_out", "mp_out"
+
+TOPOLOGY = Topology(
+    devices=(
+        DeviceSpec("mn_out", Polarity.N, d="out", g="gn", s="0"),
+        DeviceSpec("mp_out", Polarity.P, d="out", g="gp", s="vdd"),
+        DeviceSpec("mn_d1", Polarity.N, d="nb1", g="nb1", s="0"),
+        DeviceSpec("mn_d2", Polarity.N, d="nb2", g="nb2", s="nb1"),
+        DeviceSpec("mn_ctl", Polarity.N, d="gp", g="nb2", s="gn"),
+        DeviceSpec("mp_d1", Polarity.P, d="pb1", g="pb1", s="vdd"),
+        DeviceSpec("mp_d2", Polarity.P, d="pb2", g="pb2", s="pb1"),
+        DeviceSpec("mp_ctl", Polarity.P, d="gn", g="pb2", s="gp"),
+    ),
+    sources=(
+        SourceSpec("i_n", "ib_n", "vdd", "nb2"),
+        SourceSpec("i_p", "ib_p", "pb2", "0"),
+        SourceSpec("i_ctl_top", "ib_ctl", "vdd", "gp"),
+        SourceSpec("i_ctl_bot", "ib_ctl", "gn", "0"),
+    ),
+    drive="gp",
+)
+
+
+def bias_total(bias):
+    """Current of all bias branches [A]: ib_n + ib_p + ib_ctl."""
+    return bias["ib_n"] + bias["ib_p"] + bias["ib_ctl"]
+
+
+def _stacks(devs, bias, vdd):
+    zero = np.zeros_like(vdd)
+    nb1 = devs["mn_d1"].diode(bias["ib_n"], zero, zero)
+    nb2 = devs["mn_d2"].diode(bias["ib_n"], nb1, zero)
+    pb1 = devs["mp_d1"].diode(bias["ib_p"], vdd, vdd)
+    pb2 = devs["mp_d2"].diode(bias["ib_p"], pb1, vdd)
+    return nb1, nb2, pb1, pb2
+
+
+def _ctl_sum(devs, nb2, pb2, gn, gp, vdd):
+    """i(MN_CTL) + i(MP_CTL) and its derivatives with respect to gn and gp."""
+    i_nc, _, ncd, ncs = devs["mn_ctl"].eval(nb2, gp, gn, 0.0)
+    i_pc, _, pcd, pcs = devs["mp_ctl"].eval(pb2, gn, gp, vdd)
+    return i_nc + i_pc, ncs + pcd, ncd + pcs, i_nc, i_pc
+
+
+def quiescent(devs, bias, vdd):
+    """Operating point at rest, output held at VDD/2 with zero output current.
+
+    Diode stacks are closed form; the two gate nodes follow from a damped Newton on
+    [i(MN_OUT) - i(MP_OUT), i(MN_CTL) + i(MP_CTL) - ib_ctl], started from the matched-density
+    estimate Iq = ib (W/L)_out / (W/L)_d1; a nested bracketed solve takes the stragglers.
+
+    Returns (nodes, ok): node voltages (each shape (m,)) and the convergence flags.
+    """
+    out = 0.5 * vdd
+    nb1, nb2, pb1, pb2 = _stacks(devs, bias, vdd)
+    dn, dp = devs["mn_out"], devs["mp_out"]
+    ratio_n = (dn.w / dn.l) / (devs["mn_d1"].w / devs["mn_d1"].l)
+    ratio_p = (dp.w / dp.l) / (devs["mp_d1"].w / devs["mp_d1"].l)
+    iq0 = np.sqrt(bias["ib_n"] * ratio_n * bias["ib_p"] * ratio_p)
+    gn0 = dn.gate_for(iq0, 0.0, 0.0, out)
+    gp0 = dp.gate_for(iq0, vdd, vdd, out)
+    def fun(x, idx):
+        d = subset(devs, idx)
+        gn, gp = x
+        i_n, gn_g, _, _ = d["mn_out"].eval(gn, out[idx], 0.0, 0.0)
+        i_p, gp_g, _, _ = d["mp_out"].eval(gp, out[idx], vdd[idx], vdd[idx])
+        s, s_gn, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], gn, gp, vdd[idx])
+        r = np.stack([i_n - i_p, s - bias["ib_ctl"][idx]])
+        jac = np.empty((len(idx), 2, 2))
+        jac[:, 0, 0], jac[:, 0, 1] = gn_g, -gp_g
+        jac[:, 1, 0], jac[:, 1, 1] = s_gn, s_gp
+        return r, jac
+
+    x, ok = newton(fun, np.stack([gn0, gp0]))
+    gn, gp = x
+    if not ok.all():
+        bad = np.flatnonzero(~ok)
+        gn_b, gp_b, ok_b = _quiescent_bracketed(subset(devs, bad), {k: v[bad] for k, v in bias.items()},
+                                                vdd[bad], nb2[bad], pb2[bad])
+        gn[bad], gp[bad], ok[bad] = gn_b, gp_b, ok_b
+    nodes = {"nb1": nb1, "nb2": nb2, "pb1": pb1, "pb2": pb2, "gn": gn, "gp": gp}
+    return nodes, ok
+
+
+def _quiescent_bracketed(devs, bias, vdd, nb2, pb2):
+    """Fallback: bisection-safeguarded solve in gn, with gp from i(MP_OUT) = i(MN_OUT)."""
+    out = 0.5 * vdd
+
+    def gp_of(gn, idx):
+        d = subset(devs, idx)
+        target = d["mn_out"].current(gn, out[idx], 0.0, 0.0)
+
+        def f(gp, jdx):
+            dd = subset(d, jdx)
+            i, g, _, _ = dd["mp_out"].eval(gp, out[idx][jdx], vdd[idx][jdx], vdd[idx][jdx])
+            return i - target[jdx], g
+
+        gp, _ = solve_bracketed(f, -vdd[idx], vdd[idx])
+        return gp
+
+    def fun(gn, idx):
+        d = subset(devs, idx)
+        gp = gp_of(gn, idx)
+        _, gn_g, _, _ = d["mn_out"].eval(gn, out[idx], 0.0, 0.0)
+        _, gp_g, _, _ = d["mp_out"].eval(gp, out[idx], vdd[idx], vdd[idx])
+        s, s_gn, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], gn, gp, vdd[idx])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dgp = np.where(gp_g != 0, gn_g / gp_g, 0.0)
+        return s - bias["ib_ctl"][idx], s_gn + s_gp * dgp
+
+    m = len(vdd)
+    gn, ok = solve_bracketed(fun, -0.5 * np.ones(m), vdd.copy())
+    return gn, gp_of(gn, np.arange(m)), ok
+
+
+def _other_gate(devs, bias, vdd, nb2, pb2, driven_node, v_f):
+    """Solve the undriven gate from KCL at it, i(MN_CTL) + i(MP_CTL) = ib_ctl."""
+    def fun(x, idx):
+        d = subset(devs, idx)
+        if driven_node == "gp":
+            s, s_gn, _, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], x, v_f[idx], vdd[idx])
+            return s - bias["ib_ctl"][idx], s_gn
+        s, _, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], v_f[idx], x, vdd[idx])
+        return s - bias["ib_ctl"][idx], s_gp
+
+    return solve_bracketed(fun, -0.5 * np.ones_like(vdd), vdd + 0.5)
+
+
+def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
+    """Gate voltages at the drive limit.
+
+    The driven gate moves from rest towards the rail until the driver's compliance, or
+    until the active side's control device (the one whose drain is the active output
+    gate: MN_CTL when sourcing, MP_CTL when sinking) reaches its saturation voltage,
+    whichever comes first. The other gate follows from KCL at it.
+
+    Parameters
+    ----------
+    direction : +1 to source current into the load (MP_OUT active), -1 to sink.
+    drive : "both" (the driver moves the active side's gate), "p" or "n" (one gate only).
+    vcomp : driver compliance [V]: a driven gate stays vcomp away from the rail it moves to.
+
+    Returns
+    -------
+    gn, gp : ndarray (m,)
+    limit : ndarray of int (m,), 0 compliance, 1 control device at its saturation edge
+    ok : ndarray of bool (m,)
+    """
+    if drive == "both":
+        driven_node = "gp" if direction > 0 else "gn"
+    else:
+        driven_node = "g" + drive
+    bound = vcomp * np.ones_like(vdd) if direction > 0 else vdd - vcomp
+    slope = 1.0 if driven_node == "gp" else -1.0  # rough d(margin)/d(driven gate), for Newton only
+
+    def solve_at(d, b, v, n2, p2, v_f):
+        other, ok = _other_gate(d, b, v, n2, p2, driven_node, v_f)
+        gn, gp = (other, v_f) if driven_node == "gp" else (v_f, other)
+        _, _, _, i_nc, i_pc = _ctl_sum(d, n2, p2, gn, gp, v)
+        sat = d["mn_ctl"].vdsat(i_nc) if direction > 0 else d["mp_ctl"].vdsat(i_pc)
+        return gn, gp, (gp - gn) - sat, ok
+
+    nb2, pb2 = nodes["nb2"], nodes["pb2"]
+    gn, gp, margin, ok = solve_at(devs, bias, vdd, nb2, pb2, bound)
+    limit = (margin < 0).astype(int)
+    hit = np.flatnonzero(margin < 0)
+    if hit.size:
+        sub, sb = subset(devs, hit), {k: v[hit] for k, v in bias.items()}
+        vh, n2h, p2h = vdd[hit], nb2[hit], pb2[hit]
+
+        def fmargin(v_f, idx):
+            _, _, mg, _ = solve_at(subset(sub, idx), {k: v[idx] for k, v in sb.items()}, vh[idx], n2h[idx],
+                                   p2h[idx], v_f)
+            return mg, np.full_like(v_f, slope)
+
+        v_f, ok_f = solve_bracketed(fmargin, bound[hit], nodes[driven_node][hit], xtol=1e-7)
+        g_n, g_p, _, ok_h = solve_at(sub, sb, vh, n2h, p2h, v_f)
+        gn[hit], gp[hit], ok[hit] = g_n, g_p, ok_h & ok_f
+    return gn, gp, limit, ok
+
+
+def gates(nodes):
+    """Gates of the pull-down and pull-up output devices."""
+    return nodes["gn"], nodes["gp"]
+
+
+def gm_output(devs, nodes, vdd):
+    """Transconductance that sets the output pole, gm(MN_OUT) + gm(MP_OUT) [S]."""
+    out = 0.5 * vdd
+    _, g_n, _, _ = devs["mn_out"].eval(nodes["gn"], out, 0.0, 0.0)
+    _, g_p, _, _ = devs["mp_out"].eval(nodes["gp"], out, vdd, vdd)
+    return g_n - g_p
+
+
+def output(devs, gate_n, gate_p, vdd, v):
+    """Currents of the output devices with the gates held and the output at v.
+
+    Returns (i_push, i_pull, d_net): current from MP_OUT into the output, current from the
+    output through MN_OUT, and d(i_push - i_pull)/dv. Shapes (m,).
+    """
+    i_p, _, gpd, _ = devs["mp_out"].eval(gate_p, v, vdd, vdd)
+    i_n, _, gnd, _ = devs["mn_out"].eval(gate_n, v, 0.0, 0.0)
+    return i_p, i_n, gpd - gnd
+
+
+def requirements(devs, bias, vdd, nodes, vcomp):
+    """Lowest supply each device or source needs at rest to keep its region [V].
+
+    Gate-source voltages at rest hardly depend on the supply, so each condition turns
+    into a supply requirement at the solved point. Returns a list of (what, required).
+    """
+    out = 0.5 * vdd
+    gn, gp = nodes["gn"], nodes["gp"]
+    iq = devs["mn_out"].current(gn, out, 0.0, 0.0)
+    _, _, _, i_nc, i_pc = _ctl_sum(devs, nodes["nb2"], nodes["pb2"], gn, gp, vdd)
+    vgs_n = gn
+    vsg_p = vdd - gp
+    return [
+        ("mn_out leaves saturation", 2.0 * devs["mn_out"].vdsat(iq)),
+        ("mp_out leaves saturation", 2.0 * devs["mp_out"].vdsat(iq)),
+        ("mn_ctl leaves saturation", vsg_p + vgs_n + devs["mn_ctl"].vdsat(i_nc)),
+        ("mp_ctl leaves saturation", vsg_p + vgs_n + devs["mp_ctl"].vdsat(i_pc)),
+        ("ib_n source loses compliance", nodes["nb2"] + vcomp),
+        ("ib_p source loses compliance", (vdd - nodes["pb2"]) + vcomp),
+    ]
