@@ -120,7 +120,8 @@ def format_eng(value: float, unit: str = "", digits: int = 4) -> str:
     -------
     str
         Mantissa in [1, 1000) with the SPICE scale letter (f ... t, mega as 'meg'), so
-        `parse_quantity` reads the text back. Zero, inf and nan get no scale letter.
+        `parse_quantity(text, unit)` reads the text back (name the unit: "1 F" alone is
+        one femto). Zero, inf and nan get no scale letter.
     """
     value = float(value)
     exp3 = 0

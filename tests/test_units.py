@@ -119,10 +119,11 @@ def test_format_eng_digits():
 @settings(max_examples=100, deadline=None)
 @given(
     st.floats(min_value=1e-18, max_value=1e18) | st.floats(min_value=-1e18, max_value=-1e-18) | st.just(0.0),
-    st.sampled_from(["", "A", "V", "Hz", "F"]),
+    st.sampled_from(["", "A", "V", "Hz", "F", "K", "m"]),
 )
-def test_format_eng_reads_back(value, unit):
-    assert parse_quantity(format_eng(value, unit, digits=12)) == pytest.approx(value, rel=1e-11, abs=0.0)
+def test_format_eng_reads_back_with_its_unit(value, unit):
+    # The unit must be named: "1 F" alone is one femto by the SPICE rule.
+    assert parse_quantity(format_eng(value, unit, digits=12), unit) == pytest.approx(value, rel=1e-11, abs=0.0)
 
 
 @settings(max_examples=100, deadline=None)
