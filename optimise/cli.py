@@ -1,0 +1,180 @@
+"""The `stagefront` command line.
+
+Each subcommand is a small function; user input problems raise InputError, which main()
+prints to stderr before exiting with status 2.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+
+import numpy as np
+
+from models.constants import ZERO_CELSIUS
+from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result, evaluate, monte_carlo_iq
+from models.tech import Corner
+
+from .errors import InputError
+from .study import load_design, load_study
+from .units import format_eng
+
+CAUTION = ("Model estimates for early design only: the foundry's process design kit and sign-off "
+           "simulation decide. Never tape out from these numbers.")
+
+SUMMARY_UNITS = {
+    "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",
+    "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "ab_ratio": "",
+    "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
+    "fp2_hz": "Hz", "c_drive_f": "F",
+}
+SUMMARY_MEANING = {
+    "iq_a": "quiescent current (tt, nominal supply and temperature)",
+    "iq_min_a": "lowest Iq over PVT", "iq_max_a": "highest Iq over PVT",
+    "power_w": "supply x (Iq + bias branches), nominal",
+    "headroom_high_v": "worst distance from VDD at the peak load",
+    "headroom_low_v": "worst distance from ground at the peak load",
+    "swing_v": "worst VDD minus both headrooms",
+    "iout_source_a": "lowest peak source current at mid-supply",
+    "iout_sink_a": "lowest peak sink current at mid-supply",
+    "ab_ratio": "lowest idle-device current at peak load / Iq",
+    "area_um2": "sum of W L (times the layout factor)",
+    "iq_sigma_pct": "worst 1-sigma Iq spread from mismatch",
+    "supply_sens_pct_per_v": "worst Iq change per volt of supply",
+    "vdd_min_v": "lowest supply keeping every device in its region",
+    "fp2_hz": "lowest output pole gm_out / (2 pi C_load)",
+    "c_drive_f": "gate capacitance the stage loads its driver with",
+}
+
+
+def _finite(x):
+    """JSON-safe number: finite floats as they are, anything else as null."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def result_to_dict(res: Result, i: int = 0) -> dict:
+    """The evaluate JSON object of design i (DESIGN contract keys)."""
+    pvt = []
+    for j in range(len(res.vdd)):
+        row = {"corner": res.corners[j].value, "temp_c": round(float(res.temps[j]) - ZERO_CELSIUS, 6),
+               "vdd_v": float(res.vdd[j]), "converged": bool(res.converged[i, j])}
+        for name in PVT_METRICS:
+            row[name] = _finite(res.pvt[name][i, j])
+        row["limit_source"] = LIMIT_NAMES[int(res.pvt["limit_source"][i, j])]
+        row["limit_sink"] = LIMIT_NAMES[int(res.pvt["limit_sink"][i, j])]
+        row["vdd_min_set_by"] = res.requirement_names[int(res.pvt["vdd_min_what"][i, j])]
+        pvt.append(row)
+    return {
+        "architecture": res.architecture,
+        "feasible": bool(res.feasible[i]),
+        "violations": list(res.violations[i]),
+        "summary": {name: _finite(v[i]) for name, v in res.summary.items()},
+        "pvt": pvt,
+    }
+
+
+def _print_table(out: dict, mc: dict | None) -> None:
+    print(f"architecture: {out['architecture']}    feasible: {'yes' if out['feasible'] else 'no'}")
+    print()
+    for name, value in out["summary"].items():
+        unit = SUMMARY_UNITS.get(name, "")
+        shown = "n/a" if value is None else (
+            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit))
+        print(f"  {name:24s} {shown:>14s}   {SUMMARY_MEANING.get(name, '')}")
+    print()
+    head = f"  {'corner':6s} {'temp':>6s} {'vdd':>6s} {'Iq':>10s} {'sigma':>7s} {'hr_high':>8s} {'hr_low':>8s} " \
+           f"{'ab':>6s} {'vdd_min':>8s}  limits (source/sink)"
+    print(head)
+    for row in out["pvt"]:
+        def f(key, fmt):
+            return "n/a" if row[key] is None else fmt.format(row[key])
+        print(f"  {row['corner']:6s} {row['temp_c']:6.0f} {row['vdd_v']:6.2f} "
+              f"{format_eng(row['iq_a'], 'A') if row['iq_a'] is not None else 'n/a':>10s} {f('iq_sigma_pct', '{:.2f}%'):>7s} "
+              f"{f('headroom_high_v', '{:.3f}'):>8s} {f('headroom_low_v', '{:.3f}'):>8s} {f('ab_ratio', '{:.3f}'):>6s} "
+              f"{f('vdd_min_v', '{:.3f}'):>8s}  {row['limit_source']}/{row['limit_sink']}"
+              f"{'' if row['converged'] else '  NOT CONVERGED'}")
+    print()
+    if out["violations"]:
+        print("violations:")
+        for v in out["violations"]:
+            print(f"  - {v}")
+    else:
+        print("violations: none (every target met at every PVT point)")
+    if mc:
+        print()
+        print(f"Monte Carlo ({mc['samples']} samples, {mc['corner']}, {mc['temp_c']:g} C, {mc['vdd_v']:g} V): "
+              f"Iq mean {format_eng(mc['iq_mean_a'], 'A')}, sigma {mc['iq_sigma_pct']:.3f} % "
+              f"(linear estimate {mc['linear_sigma_pct']:.3f} %), failed solves {mc['failed']}")
+    print()
+    print(CAUTION)
+
+
+def cmd_evaluate(args) -> int:
+    study = load_study(args.study)
+    design = load_design(args.design, study.tech)
+    res = evaluate(design, study.tech, study.conditions, study.targets)
+    out = result_to_dict(res)
+    mc = None
+    if args.montecarlo:
+        if args.montecarlo < 2:
+            raise InputError("--montecarlo", f"{args.montecarlo} samples is too few", ">= 2")
+        cond = study.conditions
+        corner = Corner.TT if Corner.TT in cond.corners else cond.corners[0]
+        iq, ok = monte_carlo_iq(design, study.tech, corner, cond.temps[0], cond.vdd_nom, args.montecarlo,
+                                np.random.default_rng(args.seed))
+        j = next(j for j in range(len(res.vdd)) if res.corners[j] == corner and res.vdd[j] == cond.vdd_nom
+                 and res.temps[j] == cond.temps[0])
+        good = iq[ok]
+        mc = {"samples": int(args.montecarlo), "corner": corner.value, "temp_c": cond.temps[0] - ZERO_CELSIUS,
+              "vdd_v": cond.vdd_nom, "seed": args.seed, "failed": int((~ok).sum()),
+              "iq_mean_a": float(good.mean()) if good.size else None,
+              "iq_sigma_pct": float(100 * good.std(ddof=1) / good.mean()) if good.size > 1 else None,
+              "linear_sigma_pct": float(res.pvt["iq_sigma_pct"][0, j])}
+        out["montecarlo"] = mc
+    if args.json:
+        json.dump(out, sys.stdout, indent=1)
+        print()
+    else:
+        _print_table(out, mc)
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="stagefront",
+        description="Size class-AB CMOS output stages with analytic all-region models. " + CAUTION,
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    p = sub.add_parser(
+        "evaluate", help="solve one design at every PVT point of a study and print all metrics",
+        description="Solve one design exactly (rest point, both drive limits, mismatch sigma) at every "
+                    "corner x temperature x supply of the study, and print every metric and every "
+                    "violated target. " + CAUTION)
+    p.add_argument("study", help="study file (TOML), e.g. studies/sensor-buffer.toml")
+    p.add_argument("--design", required=True, help="design file (TOML): architecture, [devices.ROLE] w/l in um, [bias]")
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
+    p.add_argument("--montecarlo", type=int, default=0, metavar="N",
+                   help="also run N Monte Carlo mismatch samples at tt, nominal supply and temperature")
+    p.add_argument("--seed", type=int, default=1, help="seed of the Monte Carlo draws (default 1)")
+    p.set_defaults(func=cmd_evaluate)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except InputError as err:
+        print(f"stagefront: error: {err}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:  # output piped into a pager or head that closed early
+        sys.stderr.close()
+        return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
