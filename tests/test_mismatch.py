@@ -1,0 +1,84 @@
+"""Pelgrom area law of models.mismatch: hand values and Monte Carlo.
+
+Reference keys as in /work/shared/CHECK-VALUES.md, section 8: [Pel89] is Pelgrom,
+Duinmaijer, Welbers, IEEE JSSC 24(5), 1989.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from models import mismatch
+
+UM = 1e-6
+A_VT = 5e-3 * UM  # V*m, 5 mV*um
+A_BETA = 0.01 * UM  # m, 1 %*um (CHECK-VALUES sec. 3 "typical Abeta 1-2 %*um", M: a plausible value only)
+N_DRAWS = 20_000
+SEED = 20240611
+
+
+@pytest.mark.parametrize(
+    "a_vt, w, l, sigma",
+    [
+        # CHECK-VALUES sec. 3 area-law examples, sigma = AVT / sqrt(W L) [Pel89] (D)
+        (5e-3 * UM, 1 * UM, 1 * UM, 5.00e-3),
+        (5e-3 * UM, 10 * UM, 1 * UM, 1.58e-3),
+        (3.5e-3 * UM, 10 * UM, 10 * UM, 0.35e-3),
+    ],
+)
+def test_sigma_pair_vt_hand_values(a_vt, w, l, sigma):
+    # Quoted to 0.01 mV: half a unit of the last digit.
+    assert mismatch.sigma_pair_vt(a_vt, w, l) == pytest.approx(sigma, abs=0.005e-3)
+
+
+def test_sigma_pair_beta_follows_the_area_law():
+    # [Pel89]: sigma(dbeta/beta) = Abeta / sqrt(W L); hand calc 1e-8 m / sqrt(1e-11 m^2) = 0.3162 %.
+    assert mismatch.sigma_pair_beta(A_BETA, 10 * UM, 1 * UM) == pytest.approx(3.1623e-3, rel=1e-4)
+
+
+@pytest.mark.parametrize("sigma", [mismatch.sigma_pair_vt, mismatch.sigma_pair_beta])
+def test_sigma_halves_when_area_quadruples(sigma):
+    # Area law: sqrt(4) = 2 in the denominator, exact up to rounding.
+    assert sigma(A_VT, 8 * UM, 2 * UM) == pytest.approx(sigma(A_VT, 2 * UM, 2 * UM) / 2.0, rel=1e-12)
+
+
+def _pair_difference(w, l, seed=SEED):
+    """Deviations of two devices of the same size drawn independently, N_DRAWS times."""
+    rng = np.random.default_rng(seed)
+    dvt, dbeta = mismatch.sample(rng, A_VT, A_BETA, np.array([w, w]), np.array([l, l]), N_DRAWS)
+    return dvt[:, 1] - dvt[:, 0], dbeta[:, 1] - dbeta[:, 0]
+
+
+@pytest.mark.parametrize("w, l", [(1 * UM, 1 * UM), (10 * UM, 1 * UM), (20 * UM, 5 * UM)])
+def test_sampled_vt_pair_difference_has_pelgrom_sigma(w, l):
+    diff_vt, _ = _pair_difference(w, l)
+    # Pelgrom's sigma describes the pair difference. With 20 000 draws the relative standard
+    # error of a standard deviation is 1/sqrt(2 N) = 0.5 %, so 3 % is a 6-sigma margin.
+    assert np.std(diff_vt) == pytest.approx(mismatch.sigma_pair_vt(A_VT, w, l), rel=0.03)
+
+
+@pytest.mark.parametrize("w, l", [(1 * UM, 1 * UM), (10 * UM, 1 * UM), (20 * UM, 5 * UM)])
+def test_sampled_beta_pair_difference_has_pelgrom_sigma(w, l):
+    _, diff_beta = _pair_difference(w, l)
+    # Same 6-sigma margin as for the threshold.
+    assert np.std(diff_beta) == pytest.approx(mismatch.sigma_pair_beta(A_BETA, w, l), rel=0.03)
+
+
+def test_sampled_sigma_halves_when_area_quadruples():
+    small, _ = _pair_difference(2 * UM, 2 * UM)
+    large, _ = _pair_difference(8 * UM, 2 * UM, seed=SEED + 1)  # independent of `small`
+    # Ratio of two independent estimates, each 0.5 % (1 sigma): 0.7 %, so 3 % is 4 sigma.
+    assert np.std(large) / np.std(small) == pytest.approx(0.5, rel=0.03)
+
+
+def test_sample_is_reproducible_with_the_same_seed():
+    a = mismatch.sample(np.random.default_rng(SEED), A_VT, A_BETA, 1 * UM, 1 * UM, 10)
+    b = mismatch.sample(np.random.default_rng(SEED), A_VT, A_BETA, 1 * UM, 1 * UM, 10)
+    np.testing.assert_array_equal(a[0], b[0])
+    np.testing.assert_array_equal(a[1], b[1])
+
+
+def test_sample_shape_is_draws_by_devices():
+    w = np.full(6, 2 * UM)
+    dvt, dbeta = mismatch.sample(np.random.default_rng(SEED), A_VT, A_BETA, w, 1 * UM, 100)
+    assert dvt.shape == (100, 6) and dbeta.shape == (100, 6)

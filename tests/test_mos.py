@@ -1,0 +1,336 @@
+"""Device equations of models.mos against published values, hand calculations and themselves.
+
+Reference keys ([AH02], [EKV95], ...) are those of /work/shared/CHECK-VALUES.md, section 8.
+Only rows with status S (seen in the source) or D (derived by arithmetic) are asserted as
+equalities; M and CP rows only bound sanity bands.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from models import mos
+from models.constants import thermal_voltage
+from models.tech import ModelKind, MosTech, Polarity
+
+EKV = ModelKind.EKV
+SQ = ModelKind.SQUARE_LAW
+T300 = 300.0  # K, the temperature of the CHECK-VALUES derivations
+
+
+def ah02_tech(polarity: Polarity, va_per_l: float | None = None) -> MosTech:
+    """Generic 0.8 um process of [AH02] Table 3.1-2 (S): VT0, K', gamma, lambda at L = 1 um, 2|phiF|.
+
+    n = 1.3 is not in that table; it is the slope factor the EKV checks below are written for.
+    tc_vt = 2.3 mV/K and mu_exp = -1.5 are [AH02] Sec. 2.5 Eqs. (9) and (8) (S).
+    The mismatch and capacitance fields are not used here.
+    """
+    if polarity == Polarity.N:
+        # [AH02] Table 3.1-2: lambda = 0.04 /V at L = 1 um -> VA/L = 1 / (0.04 * 1e-6) V/m
+        vt0, kp, gamma, phi, vapl = 0.7, 110e-6, 0.4, 0.7, 1.0 / (0.04 * 1e-6)
+    else:
+        # [AH02] Table 3.1-2: lambda = 0.05 /V at L = 1 um
+        vt0, kp, gamma, phi, vapl = 0.7, 50e-6, 0.57, 0.8, 1.0 / (0.05 * 1e-6)
+    return MosTech(
+        vt0=vt0, kp=kp, n=1.3, gamma=gamma, phi=phi,
+        va_per_l=vapl if va_per_l is None else va_per_l,
+        tc_vt=2.3e-3, mu_exp=-1.5, a_vt=5e-9, a_beta=1e-8, cox=2.3e-3, cov=2e-10,
+        w_min=1e-6, l_min=1e-6,
+    )
+
+
+def device(kind: ModelKind, polarity: Polarity = Polarity.N, temp: float = T300, va_per_l: float | None = None):
+    """A Mos of one polarity at `temp` with the tech constants holding at `temp` (no shift)."""
+    return mos.at_conditions(ah02_tech(polarity, va_per_l), polarity, kind, temp, temp)
+
+
+W, L = 5e-6, 1e-6
+
+
+# ---------------------------------------------------------------------------------------
+# EKV interpolation function
+# ---------------------------------------------------------------------------------------
+def test_ekv_f_inverse_round_trip():
+    ic = np.logspace(-3, 3, 121)
+    # Exact inverse pair; rtol 1e-9 leaves room for the log/exp rounding over six decades.
+    np.testing.assert_allclose(mos.ekv_f(mos.ekv_f_inverse(ic)), ic, rtol=1e-9)
+
+
+@pytest.mark.parametrize(
+    "ic, v",
+    [
+        # CHECK-VALUES sec. 1 numeric table, column "v classic" = 2 ln(exp(sqrt(IC)) - 1) (D)
+        (0.01, -4.5043),
+        (0.1, -1.9780),
+        (1.0, 1.0826),
+        (10.0, 6.2381),
+        (100.0, 19.9999),
+    ],
+)
+def test_ekv_f_inverse_table_values(ic, v):
+    # Table quotes 4 decimals: half a unit of the last digit.
+    assert mos.ekv_f_inverse(ic) == pytest.approx(v, abs=5e-5)
+
+
+@pytest.mark.parametrize(
+    "ic, ratio",
+    [
+        # CHECK-VALUES sec. 1, classic gm*n*UT/ID = (1 - exp(-sqrt(IC)))/sqrt(IC) [EKV95] (D)
+        (0.1, 0.8573),
+        (1.0, 0.6321),
+        (10.0, 0.3028),
+    ],
+)
+def test_gm_over_id_matches_classic_ekv(ic, ratio):
+    m = device(EKV, va_per_l=math.inf)
+    i_target = ic * mos.specific_current(m, W, L)
+    # VD = 3 V: the reverse term is below exp(-100) of the forward one (deep saturation).
+    vg = mos.gate_voltage_sat(m, W, L, i_target, vs=0.0)
+    i, gg, _, _ = mos.current_partials(m, W, L, vg, 3.0, 0.0)
+    assert i == pytest.approx(i_target, rel=1e-12)
+    normalised = gg * m.n * m.ut / i
+    # Exact derivative of the ln^2 form, so only rounding separates the two.
+    assert normalised == pytest.approx((1.0 - math.exp(-math.sqrt(ic))) / math.sqrt(ic), rel=1e-9)
+    # Table quotes 4 decimals.
+    assert normalised == pytest.approx(ratio, abs=5e-5)
+
+
+def test_weak_inversion_slope_is_n_ut_ln10_per_decade():
+    m = device(EKV, va_per_l=math.inf)
+    ispec = mos.specific_current(m, W, L)
+    vg = mos.gate_voltage_sat(m, W, L, np.array([1e-9, 1e-8]) * ispec, vs=0.0)
+    slope = vg[1] - vg[0]
+    # Hand calc: n UT ln 10 = 1.3 * 25.852 mV * 2.302585 = 77.384 mV/dec at 300 K (UT: CHECK-VALUES sec. 1, D).
+    # Tolerance: F(x) = exp(x) (1 + O(sqrt(IC))) and sqrt(IC) <= 1e-4 here.
+    assert slope == pytest.approx(77.384e-3, rel=1e-3)
+    assert slope == pytest.approx(m.n * m.ut * math.log(10.0), rel=1e-3)
+
+
+@pytest.mark.parametrize(
+    "temp, ut",
+    [
+        # CHECK-VALUES sec. 1, UT = kT/q with the exact SI 2019 k and q (D)
+        (300.0, 25.852e-3),
+        (300.15, 25.865e-3),
+        (298.15, 25.693e-3),
+    ],
+)
+def test_thermal_voltage(temp, ut):
+    # Quoted to 1 uV: half a unit of the last digit.
+    assert thermal_voltage(temp) == pytest.approx(ut, abs=0.5e-6)
+
+
+# ---------------------------------------------------------------------------------------
+# Square law against the textbook
+# ---------------------------------------------------------------------------------------
+def test_square_law_nmos_allen_holberg_example():
+    m = device(SQ, Polarity.N)
+    i = mos.current(m, 5e-6, 1e-6, vg=2.0, vd=3.0, vs=0.0, vb=0.0)
+    # Hand calc: 0.5 * 110u * 5 * (2 - 0.7)^2 * (1 + 0.04 * 3) = 520.52 uA; only rounding differs.
+    assert i == pytest.approx(520.52e-6, rel=1e-12)
+    # [AH02] Example 3.1-1 (S: 520 uA; recomputed D: 520.5 uA); half a unit of the last digit.
+    assert i == pytest.approx(520.5e-6, abs=0.05e-6)
+
+
+def test_square_law_pmos_allen_holberg_example():
+    m = device(SQ, Polarity.P)
+    # Source and bulk on a 5 V rail: |VGS| = 2 V, |VDS| = 3 V, VBS = 0.
+    i = mos.current(m, 5e-6, 1e-6, vg=3.0, vd=2.0, vs=5.0, vb=5.0)
+    # Hand calc: 0.5 * 50u * 5 * (2 - 0.7)^2 * (1 + 0.05 * 3) = 242.9375 uA.
+    assert i == pytest.approx(242.9375e-6, rel=1e-12)
+    # [AH02] Example 3.1-1 (S: 243 uA; recomputed D: 242.9 uA); half a unit of the last digit.
+    assert i == pytest.approx(242.9e-6, abs=0.05e-6)
+
+
+# ---------------------------------------------------------------------------------------
+# One code path for both polarities; partials against finite differences
+# ---------------------------------------------------------------------------------------
+# Frame voltages (gate, drain, source, bulk) of an NMOS with VT0 = 0.7 V; a PMOS gets the
+# same frame voltages below a 3 V rail.
+REGIONS = {
+    "weak": (0.50, 1.0, 0.0, 0.0),
+    "near-threshold": (0.72, 1.0, 0.0, 0.0),
+    "strong-saturation": (1.5, 2.0, 0.0, 0.0),
+    "triode": (2.0, 0.2, 0.0, 0.0),
+    "reversed-vds": (1.8, 0.0, 0.3, 0.0),
+    "reversed-saturation": (1.0, 0.0, 1.0, 0.0),
+    "lifted-source": (2.2, 2.5, 0.5, 0.0),
+    "forward-body": (1.2, 1.5, 0.0, 0.2),
+}
+RAIL = 3.0
+
+
+def physical(polarity: Polarity, frame):
+    return tuple(np.asarray(frame, dtype=float)) if polarity == Polarity.N else tuple(RAIL - np.asarray(frame))
+
+
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_pmos_mirrors_nmos(kind):
+    mt = ah02_tech(Polarity.N)
+    mn = mos.at_conditions(mt, Polarity.N, kind, T300, T300)
+    mp = mos.at_conditions(mt, Polarity.P, kind, T300, T300)  # same magnitudes, other polarity
+    frame = np.array(list(REGIONS.values())).T  # (4, n_regions)
+    out_n = mos.current_partials(mn, W, L, *frame)
+    out_p = mos.current_partials(mp, W, L, *(-frame))
+    # Frame current and the partials of the physical drain current agree; -x is exact in
+    # floating point, so only the last bit can differ.
+    for a, b in zip(out_n, out_p):
+        np.testing.assert_allclose(b, a, rtol=1e-14, atol=0.0)
+
+
+def _central(fun, v, k, h=1e-6):
+    up, dn = list(v), list(v)
+    up[k] += h
+    dn[k] -= h
+    return (fun(*up) - fun(*dn)) / (2.0 * h)
+
+
+@pytest.mark.parametrize("region", list(REGIONS))
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_partials_match_central_differences(kind, polarity, region):
+    m = device(kind, polarity)
+    v = physical(polarity, REGIONS[region])
+
+    def drain_current(vg, vd, vs, vb):  # physical current into the drain
+        return polarity * mos.current(m, W, L, vg, vd, vs, vb)
+
+    _, gg, gd, gs = mos.current_partials(m, W, L, *v)
+    analytic = np.array([gg, gd, gs, -(gg + gd + gs)], dtype=float)
+    numeric = np.array([_central(drain_current, v, k) for k in range(4)])
+    # h = 1 uV: truncation ~ (h / UT)^2 / 6 < 1e-9 relative, rounding ~ eps I / h; the
+    # absolute floor only matters for partials that are zero or nearly so.
+    scale = np.max(np.abs(analytic))
+    np.testing.assert_allclose(numeric, analytic, rtol=1e-6, atol=1e-9 * scale + 1e-30)
+
+
+@pytest.mark.parametrize("i", [1e-9, 1e-6, 1e-4])
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_diode_voltage_is_exact(kind, polarity, i):
+    m = device(kind, polarity)  # length modulation on
+    vs, vb = physical(polarity, (0.0, 0.0, 0.3, 0.0))[2:]  # source lifted 0.3 V above the bulk
+    vg = mos.diode_voltage(m, W, L, i, vs, vb)
+    assert mos.current(m, W, L, vg, vg, vs, vb) == pytest.approx(i, rel=1e-12)
+
+
+# ---------------------------------------------------------------------------------------
+# Body effect
+# ---------------------------------------------------------------------------------------
+@pytest.mark.parametrize("lift", [0.3, 1.0])
+def test_body_effect_ekv_is_n_times_the_lift(lift):
+    m = device(EKV)
+    i0 = 10e-6
+    vg0 = mos.gate_voltage_sat(m, W, L, i0, vs=0.0, vds=2.0)
+    # DESIGN.md sec. 2.1 / [EKV95]: VP = (VG - VT0)/n, so VP - VS is unchanged when
+    # VG rises by n * VS; drain lifted too so VDS (and the CLM factor) stays the same.
+    i_lifted = mos.current(m, W, L, vg0 + m.n * lift, 2.0 + lift, lift, 0.0)
+    i_ref = mos.current(m, W, L, vg0, 2.0, 0.0, 0.0)
+    assert i_ref == pytest.approx(i0, rel=1e-9)
+    assert i_lifted == pytest.approx(i_ref, rel=1e-12)
+
+
+@pytest.mark.parametrize("vsb", [0.5, 1.0])
+def test_body_effect_square_law_level1(vsb):
+    m = device(SQ)
+    vg0 = 1.5
+    # SPICE level-1 threshold (ngspice mos1load.c: von = VTO + gamma (sqrt(phi - vbs) - sqrt(phi))):
+    # the gate must rise by the lift plus gamma (sqrt(phi + VSB) - sqrt(phi)).
+    dvg = vsb + m.gamma * (math.sqrt(m.phi + vsb) - math.sqrt(m.phi))
+    i_lifted = mos.current(m, W, L, vg0 + dvg, 2.0 + vsb, vsb, 0.0)
+    i_ref = mos.current(m, W, L, vg0, 2.0, 0.0, 0.0)
+    assert i_lifted == pytest.approx(i_ref, rel=1e-12)
+
+
+def test_body_effect_square_law_hand_value():
+    m = device(SQ)
+    i_ref = mos.current(m, W, L, 1.5, 2.0, 0.0, 0.0)
+    # Hand calc with [AH02] Table 3.1-2 (gamma = 0.4 V^0.5, 2|phiF| = 0.7 V), VSB = 1 V:
+    # 0.4 * (sqrt(1.7) - sqrt(0.7)) = 0.186872 V of extra threshold.
+    vg = mos.gate_voltage_sat(m, W, L, i_ref, vs=1.0, vds=2.0)
+    assert vg - 1.5 - 1.0 == pytest.approx(0.186872, abs=5e-7)
+
+
+# ---------------------------------------------------------------------------------------
+# Temperature
+# ---------------------------------------------------------------------------------------
+def test_weak_inversion_current_rises_with_temperature():
+    mt = ah02_tech(Polarity.N)
+    temps = np.array([250.0, 300.0, 350.0, 400.0])
+    m = mos.at_conditions(mt, Polarity.N, EKV, temps, T300)
+    # VGS = 0.5 V, 0.2 V below VT0: weak inversion, where the falling threshold and the
+    # rising UT both raise the current (mobility loss is a power, not an exponential).
+    i = mos.current(m, W, L, 0.5, 1.0, 0.0)
+    assert np.all(np.diff(i) > 0.0)
+
+
+def test_threshold_falls_by_tc_vt_per_kelvin():
+    mt = ah02_tech(Polarity.N)
+    vt = mos.at_conditions(mt, Polarity.N, EKV, np.array([300.0, 350.0]), T300).vt0
+    slope = (vt[1] - vt[0]) / 50.0
+    # [AH02] Sec. 2.5 Eq. (9) (S): VT(T) = VT(T0) - alpha (T - T0), alpha about 2.3 mV/K.
+    assert slope == pytest.approx(-2.3e-3, rel=1e-9)
+    # CHECK-VALUES sec. 5 sanity band (CP, common practice): |dVT/dT| about 1-3 mV/K.
+    assert 1e-3 <= -slope <= 3e-3
+
+
+@pytest.mark.parametrize(
+    "temp, ratio",
+    [
+        # CHECK-VALUES sec. 5, mu ~ T^-1.5 ([AH02] Sec. 2.5 Eq. (8)) at T0 = 300 K (D)
+        (400.0, 0.6495),
+        (350.0, 0.7936),
+        (250.0, 1.3145),
+    ],
+)
+def test_kp_temperature_ratio(temp, ratio):
+    mt = ah02_tech(Polarity.N)
+    m = mos.at_conditions(mt, Polarity.N, SQ, temp, T300)
+    # Quoted to 4 decimals.
+    assert m.kp / mt.kp == pytest.approx(ratio, abs=5e-5)
+
+
+# ---------------------------------------------------------------------------------------
+# Saturation voltage
+# ---------------------------------------------------------------------------------------
+def test_saturation_voltage_weak_inversion_limit():
+    m = device(EKV)
+    i = 1e-8 * mos.specific_current(m, W, L)
+    vdsat = mos.saturation_voltage(m, W, L, i)
+    # [EKV95] VDSsat/UT = 2 sqrt(IC) + 4 (CHECK-VALUES sec. 1, M) -> 4 UT as IC -> 0 (D);
+    # the sqrt term is 2e-4 UT here.
+    assert vdsat == pytest.approx(4.0 * m.ut, rel=1e-3)
+    # CHECK-VALUES sec. 1 (M, [Bin08]): "4 UT about 0.10 V in WI"; a band, from memory.
+    assert 0.09 < vdsat < 0.11
+
+
+def test_saturation_voltage_square_law_is_overdrive():
+    m = device(SQ, va_per_l=math.inf)  # no length modulation: I = beta/2 (VGS - VT)^2 exactly
+    vg = 1.5
+    i = mos.current(m, W, L, vg, 2.0, 0.0)
+    # Shichman-Hodges / SPICE level 1: saturation starts at VDS = VGS - VT.
+    assert mos.saturation_voltage(m, W, L, i) == pytest.approx(vg - 0.7, rel=1e-12)
+
+
+# ---------------------------------------------------------------------------------------
+# Shapes
+# ---------------------------------------------------------------------------------------
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_batch_of_devices_keeps_its_shape(kind):
+    m = device(kind)
+    vg = np.linspace(0.4, 2.0, 1000)
+    out = mos.current_partials(m, W, L, vg, 1.0, 0.0)
+    assert [np.shape(x) for x in out] == [(1000,)] * 4
+
+
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_population_by_conditions_broadcasts(kind):
+    mt = ah02_tech(Polarity.N)
+    temps = np.linspace(250.0, 400.0, 10)[:, None]  # (10, 1) PVT axis
+    m = mos.at_conditions(mt, Polarity.N, kind, temps, T300)
+    w = np.geomspace(1e-6, 1e-4, 7)  # (7,) designs
+    out = mos.current_partials(m, w, L, 1.2, 1.0, 0.0)
+    assert [np.shape(x) for x in out] == [(10, 7)] * 4
+    assert np.shape(mos.diode_voltage(m, w, L, 1e-6, 0.0)) == (10, 7)

@@ -1,0 +1,142 @@
+"""The square law of models.mos against ngspice running SPICE level 1 with the same constants.
+
+Every bias point is its own device with its own four voltage sources, so one ngspice
+process per polarity evaluates them all at one operating point; no node is solved for,
+and the comparison sees the device equations only. Process constants: [AH02] Table 3.1-2
+(CHECK-VALUES.md sec. 4, S). Simulator settings follow DESIGN.md sec. 7.
+
+What ngspice adds that models.mos does not: default bulk junctions (IS = 1e-14 A) with
+GMIN = 1e-12 S across them, so a few pA flow through a reverse-biased drain junction.
+The smallest channel current below is about 50 nA, so that is under 1e-4 of it.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from models import mos
+from models.constants import ZERO_CELSIUS
+from models.tech import ModelKind, MosTech, Polarity
+from optimise import ngspice
+
+pytestmark = pytest.mark.ngspice
+
+OPTIONS = ".options reltol=1e-7 abstol=1e-15 vntol=1e-9"
+TNOM = 27.0 + ZERO_CELSIUS  # K, tnom = 27 degC in the cards, .temp 27 in the decks
+RAIL = 5.0  # V, bulk of the PMOS devices
+
+
+def ah02_tech(polarity: Polarity, va_per_l: float) -> MosTech:
+    """[AH02] Table 3.1-2 (S) constants; lambda via va_per_l (inf: no length modulation)."""
+    if polarity == Polarity.N:
+        vt0, kp, gamma, phi = 0.7, 110e-6, 0.4, 0.7
+    else:
+        vt0, kp, gamma, phi = 0.7, 50e-6, 0.57, 0.8
+    return MosTech(
+        vt0=vt0, kp=kp, n=1.3, gamma=gamma, phi=phi, va_per_l=va_per_l,
+        tc_vt=2.3e-3, mu_exp=-1.5, a_vt=5e-9, a_beta=1e-8, cox=2.3e-3, cov=2e-10,
+        w_min=1e-6, l_min=1e-6,
+    )
+
+
+# [AH02] Table 3.1-2: lambda = 0.04 /V (N) and 0.05 /V (P) at L = 1 um -> VA/L in V/m
+LAMBDA_ON = {Polarity.N: 1.0 / (0.04 * 1e-6), Polarity.P: 1.0 / (0.05 * 1e-6)}
+
+# (w [m], l [m], VGS, VDS, VSB, length modulation on) as magnitudes in the device frame.
+POINTS = [
+    # gate drive just above threshold (VT0 = 0.7 V), saturation and deep triode
+    (5e-6, 1e-6, 0.72, 1.0, 0.0, True),
+    (5e-6, 1e-6, 0.75, 0.02, 0.0, True),
+    # saturation
+    (5e-6, 1e-6, 1.0, 2.0, 0.0, True),
+    (5e-6, 1e-6, 1.5, 3.0, 0.0, True),
+    (10e-6, 2e-6, 2.0, 1.5, 0.0, True),
+    (2e-6, 0.5e-6, 3.0, 3.5, 0.0, True),
+    (5e-6, 1e-6, 2.0, 3.0, 0.0, False),
+    # triode
+    (5e-6, 1e-6, 2.0, 0.1, 0.0, True),
+    (5e-6, 1e-6, 2.0, 1.0, 0.0, True),
+    (20e-6, 1e-6, 3.0, 2.0, 0.0, True),
+    (5e-6, 1e-6, 1.5, 0.5, 0.0, False),
+    # body bias: threshold raised by gamma (sqrt(phi + VSB) - sqrt(phi))
+    (5e-6, 1e-6, 0.85, 1.0, 0.5, True),
+    (5e-6, 1e-6, 1.5, 2.0, 0.5, True),
+    (5e-6, 1e-6, 1.5, 0.2, 0.5, True),
+    (5e-6, 1e-6, 1.2, 1.5, 1.0, True),
+    (5e-6, 1e-6, 2.0, 2.5, 1.0, True),
+    (5e-6, 1e-6, 2.0, 0.3, 1.0, False),
+    # reversed VDS (drain and source swap roles); source lifted so no junction is forward biased
+    (5e-6, 1e-6, 1.5, -0.5, 0.5, True),
+    (5e-6, 1e-6, 2.0, -0.2, 1.0, True),
+    (5e-6, 1e-6, 0.0, -1.0, 1.0, True),  # saturated with the roles swapped: VGD = 1 V, VDB = 0
+    # source junction forward biased by 0.2 V (its current flows at the source, not the drain)
+    (5e-6, 1e-6, 1.2, 1.5, -0.2, True),
+]
+CUT_OFF = [(5e-6, 1e-6, 0.6, 2.0, 0.0, True), (5e-6, 1e-6, 0.8, 2.0, 1.0, True)]
+
+
+def physical(polarity: Polarity, vgs, vds, vsb):
+    """(vg, vd, vs, vb) node voltages for frame magnitudes; PMOS bulk at RAIL."""
+    vb = 0.0 if polarity == Polarity.N else RAIL
+    vs = vb + polarity * vsb
+    return vs + polarity * vgs, vs + polarity * vds, vs, vb
+
+
+def deck(polarity: Polarity, points, temp_c: float = 27.0, card_temp: float | None = None) -> str:
+    lines = [f"level-1 single devices, polarity {int(polarity):+d}", OPTIONS, f".temp {temp_c!r}"]
+    for k, (w, l, vgs, vds, vsb, clm) in enumerate(points):
+        mt = ah02_tech(polarity, LAMBDA_ON[polarity] if clm else math.inf)
+        lines.append(ngspice.level1_model_card(f"mk{k}", mt, polarity, l, temp=card_temp, tnom=TNOM))
+        vg, vd, vs, vb = physical(polarity, vgs, vds, vsb)
+        lines += [
+            f"vg{k} g{k} 0 {vg!r}", f"vd{k} d{k} 0 {vd!r}", f"vs{k} s{k} 0 {vs!r}", f"vb{k} b{k} 0 {vb!r}",
+            f"m{k} d{k} g{k} s{k} b{k} mk{k} w={w!r} l={l!r}",
+        ]
+    lines += [".op", ".end"]
+    return "\n".join(lines)
+
+
+def simulated(polarity: Polarity, points, **kw) -> np.ndarray:
+    """Frame drain currents from ngspice: SPICE reports a source's current flowing from its
+    + node through it, so the current into a drain is -i(vd)."""
+    res = ngspice.run(deck(polarity, points, **kw))
+    return np.array([polarity * -res[f"i(vd{k})"][0] for k in range(len(points))])
+
+
+def modelled(polarity: Polarity, points, temp: float = TNOM) -> np.ndarray:
+    out = []
+    for w, l, vgs, vds, vsb, clm in points:
+        mt = ah02_tech(polarity, LAMBDA_ON[polarity] if clm else math.inf)
+        m = mos.at_conditions(mt, polarity, ModelKind.SQUARE_LAW, temp, TNOM)
+        out.append(mos.current(m, w, l, *physical(polarity, vgs, vds, vsb)))
+    return np.array(out, dtype=float)
+
+
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+def test_square_law_matches_ngspice_level1(polarity):
+    spice = simulated(polarity, POINTS)
+    model = modelled(polarity, POINTS)
+    assert np.all(model != 0.0)  # every point conducts (reversed points negatively)
+    # DESIGN.md sec. 6: the same equations, so 0.1 % bounds the simulator's own tolerances and
+    # the junction leakage (see module notes); the observed difference is far below it.
+    np.testing.assert_allclose(model, spice, rtol=1e-3)
+
+
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+def test_cut_off_has_no_channel_current(polarity):
+    spice = simulated(polarity, CUT_OFF)
+    assert np.all(modelled(polarity, CUT_OFF) == 0.0)
+    # Only the drain junction conducts in ngspice: IS + GMIN * |VDB| < 1e-11 A at |VDB| <= 3 V.
+    assert np.all(np.abs(spice) < 1e-11)
+
+
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+def test_model_card_at_temperature_matches_ngspice(polarity):
+    # A card written for 80 degC holds the constants of at_conditions at 80 degC with TNOM = 80,
+    # so ngspice (.temp 80) applies none of its own temperature laws.
+    temp = 80.0 + ZERO_CELSIUS
+    points = POINTS[2:6] + POINTS[12:14]
+    spice = simulated(polarity, points, temp_c=80.0, card_temp=temp)
+    np.testing.assert_allclose(modelled(polarity, points, temp=temp), spice, rtol=1e-3)
