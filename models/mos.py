@@ -305,7 +305,10 @@ def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6)
     for _ in range(iterations):
         i_now, gg, gd, _ = current_partials(m, w, l, vg, vg, vs, vb, dvt, dbeta)
         # Along vd = vg the physical drain current p*i changes by gg + gd per volt.
-        vg = vg - p * (i_now - i) / (gg + gd)
+        step = p * (i_now - i) / (gg + gd)
+        vg = vg - step
+        if np.all(np.abs(step) < 1e-13):
+            break
     return vg
 
 

@@ -354,6 +354,9 @@ class NodalSystem:
 
 def _subset(dev: Device, idx) -> Device:
     """The same device restricted to the batch elements idx."""
+    if isinstance(idx, np.ndarray) and idx.size == np.size(dev.w) and idx.size and idx[-1] == idx.size - 1 \
+            and idx[0] == 0:
+        return dev  # idx is the whole batch (active sets are sorted, so first/last fix it)
     def pick(a):
         a = np.asarray(a)
         return a[idx] if a.ndim else a

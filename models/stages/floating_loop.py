@@ -145,17 +145,28 @@ def _quiescent_bracketed(devs, bias, vdd, nb2, pb2):
     return gn, gp_of(gn, np.arange(m)), ok
 
 
-def _other_gate(devs, bias, vdd, nb2, pb2, driven_node, v_f):
-    """Solve the undriven gate from KCL at it, i(MN_CTL) + i(MP_CTL) = ib_ctl."""
+def _other_gate(devs, bias, vdd, nb2, pb2, driven_node, v_f, x0):
+    """Solve the undriven gate from KCL at it, i(MN_CTL) + i(MP_CTL) = ib_ctl.
+
+    Returns (other, d other / d v_f, ok), each shape (m,); x0 is the starting guess.
+    """
+    def parts(d, n2, p2, v, vf, x):
+        if driven_node == "gp":
+            s, s_x, s_f, _, _ = _ctl_sum(d, n2, p2, x, vf, v)
+        else:
+            s, s_f, s_x, _, _ = _ctl_sum(d, n2, p2, vf, x, v)
+        return s, s_x, s_f
+
     def fun(x, idx):
         d = subset(devs, idx)
-        if driven_node == "gp":
-            s, s_gn, _, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], x, v_f[idx], vdd[idx])
-            return s - bias["ib_ctl"][idx], s_gn
-        s, _, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], v_f[idx], x, vdd[idx])
-        return s - bias["ib_ctl"][idx], s_gp
+        s, s_x, _ = parts(d, nb2[idx], pb2[idx], vdd[idx], v_f[idx], x)
+        return s - bias["ib_ctl"][idx], s_x
 
-    return solve_bracketed(fun, -0.5 * np.ones_like(vdd), vdd + 0.5)
+    other, ok = solve_bracketed(fun, -0.5 * np.ones_like(vdd), vdd + 0.5, x0=x0)
+    _, s_x, s_f = parts(devs, nb2, pb2, vdd, v_f, other)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = np.where(s_x != 0, -s_f / s_x, 0.0)
+    return other, slope, ok
 
 
 def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
@@ -182,32 +193,50 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
         driven_node = "gp" if direction > 0 else "gn"
     else:
         driven_node = "g" + drive
+    other_node = "gn" if driven_node == "gp" else "gp"
     bound = vcomp * np.ones_like(vdd) if direction > 0 else vdd - vcomp
-    slope = 1.0 if driven_node == "gp" else -1.0  # rough d(margin)/d(driven gate), for Newton only
-
-    def solve_at(d, b, v, n2, p2, v_f):
-        other, ok = _other_gate(d, b, v, n2, p2, driven_node, v_f)
-        gn, gp = (other, v_f) if driven_node == "gp" else (v_f, other)
-        _, _, _, i_nc, i_pc = _ctl_sum(d, n2, p2, gn, gp, v)
-        sat = d["mn_ctl"].vdsat(i_nc) if direction > 0 else d["mp_ctl"].vdsat(i_pc)
-        return gn, gp, (gp - gn) - sat, ok
-
     nb2, pb2 = nodes["nb2"], nodes["pb2"]
-    gn, gp, margin, ok = solve_at(devs, bias, vdd, nb2, pb2, bound)
-    limit = (margin < 0).astype(int)
-    hit = np.flatnonzero(margin < 0)
-    if hit.size:
-        sub, sb = subset(devs, hit), {k: v[hit] for k, v in bias.items()}
-        vh, n2h, p2h = vdd[hit], nb2[hit], pb2[hit]
+    role = "mn_ctl" if direction > 0 else "mp_ctl"
 
-        def fmargin(v_f, idx):
-            _, _, mg, _ = solve_at(subset(sub, idx), {k: v[idx] for k, v in sb.items()}, vh[idx], n2h[idx],
-                                   p2h[idx], v_f)
-            return mg, np.full_like(v_f, slope)
+    # 1. The saturation edge of the active control device, both gates at once: KCL at the
+    #    gates, i(MN_CTL) + i(MP_CTL) = ib_ctl, and (gp - gn) = VDSsat. The Jacobian leaves
+    #    out the slow change of VDSsat with current, which the iteration absorbs.
+    def fun(x, idx):
+        d = subset(devs, idx)
+        g_n, g_p = x
+        s, s_gn, s_gp, i_nc, i_pc = _ctl_sum(d, nb2[idx], pb2[idx], g_n, g_p, vdd[idx])
+        sat = d[role].vdsat(i_nc if direction > 0 else i_pc)
+        r = np.stack([s - bias["ib_ctl"][idx], (g_p - g_n) - sat])
+        jac = np.empty((len(idx), 2, 2))
+        jac[:, 0, 0], jac[:, 0, 1] = s_gn, s_gp
+        jac[:, 1, 0], jac[:, 1, 1] = -1.0, 1.0
+        return r, jac
 
-        v_f, ok_f = solve_bracketed(fmargin, bound[hit], nodes[driven_node][hit], xtol=1e-7)
-        g_n, g_p, _, ok_h = solve_at(sub, sb, vh, n2h, p2h, v_f)
-        gn[hit], gp[hit], ok[hit] = g_n, g_p, ok_h & ok_f
+    sat0 = devs[role].vdsat(bias["ib_ctl"])
+    if direction > 0:
+        x0 = np.stack([nodes["gn"], nodes["gn"] + sat0])
+    else:
+        x0 = np.stack([nodes["gp"] - sat0, nodes["gp"]])
+    x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-10, max_iter=80)
+    gn, gp = x[0].copy(), x[1].copy()
+    v_edge = gp if driven_node == "gp" else gn
+    # The edge comes first when the driven gate meets it before its compliance bound.
+    edge_first = ok_edge & ((v_edge >= bound) if direction > 0 else (v_edge <= bound))
+    limit = edge_first.astype(int)
+    ok = edge_first.copy()
+
+    # 2. Elsewhere the driver's compliance stops the gate first: the other gate from KCL.
+    comp = np.flatnonzero(~edge_first)
+    if comp.size:
+        sub, sb = subset(devs, comp), {k: v[comp] for k, v in bias.items()}
+        other, _, ok_c = _other_gate(sub, sb, vdd[comp], nb2[comp], pb2[comp], driven_node, bound[comp],
+                                     nodes[other_node][comp])
+        g_n, g_p = (other, bound[comp]) if driven_node == "gp" else (bound[comp], other)
+        _, _, _, i_nc, i_pc = _ctl_sum(sub, nb2[comp], pb2[comp], g_n, g_p, vdd[comp])
+        margin = (g_p - g_n) - sub[role].vdsat(i_nc if direction > 0 else i_pc)
+        gn[comp], gp[comp] = g_n, g_p
+        # A negative margin here means the edge exists but its solve failed: report it.
+        ok[comp] = ok_c & (margin >= -1e-9)
     return gn, gp, limit, ok
 
 

@@ -1,0 +1,69 @@
+"""Full design evaluations per second and peak memory of models.evaluate (run by hand).
+
+A full evaluation is one design at every PVT point of the grid: rest point, Iq sigma by
+the adjoint sensitivities, both driven points (drive limit, headroom, peak current, idle
+current), supply requirements and the output pole. Default grid: 5 corners x 1 temperature
+x 3 supplies = 15 PVT points, on the invented demo350 process. Population sizes are random
+around the demo designs (log-uniform factors), so the solver sees varied operating points.
+
+    python3 benchmarks/bench_stages.py [--designs 10000] [--arch floating-loop] [--chunk 8192]
+"""
+from __future__ import annotations
+
+import argparse
+import resource
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+from models.constants import ZERO_CELSIUS
+from models.evaluate import Conditions, Design, evaluate
+from models.tech import Corner
+from optimise.study import load_design, load_study
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def population(base: Design, n: int, rng: np.random.Generator) -> Design:
+    """n designs spread log-uniformly over a factor of 2 around `base`."""
+    def spread(a):
+        return np.repeat(a, n) * np.exp(rng.uniform(-0.7, 0.7, n))
+    return Design(base.architecture, {k: spread(v) for k, v in base.w.items()},
+                  {k: np.maximum(spread(v), 0.35e-6) for k, v in base.l.items()},
+                  {k: spread(v) for k, v in base.bias.items()}, base.tied)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--designs", type=int, default=10000)
+    ap.add_argument("--arch", default="all")
+    ap.add_argument("--chunk", type=int, default=8192)
+    ap.add_argument("--repeat", type=int, default=3)
+    args = ap.parse_args()
+    study = load_study(ROOT / "studies" / "sensor-buffer.toml")
+    cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 3.3, 2.7, 3.6)
+    archs = study.architectures if args.arch == "all" else (args.arch,)
+    print(f"grid: {len(cond.corners)} corners x {len(cond.temps)} temperature x {len(cond.supplies)} supplies "
+          f"= {len(cond.grid()[2])} PVT points; {args.designs} designs; chunk {args.chunk}")
+    for arch in archs:
+        base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", study.tech)
+        pop = population(base, args.designs, np.random.default_rng(0))
+        evaluate(population(base, 64, np.random.default_rng(1)), study.tech, cond, study.targets)  # warm-up
+        best = np.inf
+        for _ in range(args.repeat):
+            t0 = time.perf_counter()
+            res = evaluate(pop, study.tech, cond, study.targets, chunk=args.chunk)
+            best = min(best, time.perf_counter() - t0)
+        tracemalloc.start()
+        evaluate(pop, study.tech, cond, study.targets, chunk=args.chunk)
+        _, peak = tracemalloc.get_traced_memory()
+        tracemalloc.stop()
+        print(f"{arch:14s} {args.designs / best:10.0f} designs/s  ({best:.3f} s best of {args.repeat}; "
+              f"{res.converged.mean() * 100:.2f} % of points converged; peak numpy memory {peak / 2**20:.0f} MiB)")
+    print(f"process max RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MiB")
+
+
+if __name__ == "__main__":
+    main()
