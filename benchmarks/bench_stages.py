@@ -39,7 +39,7 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--designs", type=int, default=10000)
     ap.add_argument("--arch", default="all")
-    ap.add_argument("--chunk", type=int, default=8192)
+    ap.add_argument("--chunk", type=int, default=16384)
     ap.add_argument("--repeat", type=int, default=3)
     args = ap.parse_args()
     study = load_study(ROOT / "studies" / "sensor-buffer.toml")

@@ -210,11 +210,18 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
         return (u - dn) * direction - i_load, dd * direction
 
     can = peak >= i_load
+    rail = vdd if direction > 0 else np.zeros_like(vdd)
+    # Start from the rail side: the active device's triode conductance at the rail gives
+    # the output voltage drop for the load current.
+    r_up, r_dn, d_rail = stage.output(devs, gn, gp, vdd, rail)
+    f_rail = (r_up - r_dn) * direction - i_load
+    x0 = rail - direction * np.clip((i_load + (r_dn if direction > 0 else r_up)) / np.maximum(np.abs(d_rail), 1e-30),
+                                    0.0, 0.5 * vdd)
+    f_mid = peak - i_load
     if direction > 0:
-        lo, hi = out, vdd.copy()
+        v_at, ok_v = solve_bracketed(fun, out, vdd.copy(), x0=x0, flo=f_mid, fhi=f_rail)
     else:
-        lo, hi = np.zeros_like(vdd), out
-    v_at, ok_v = solve_bracketed(fun, lo, hi)
+        v_at, ok_v = solve_bracketed(fun, np.zeros_like(vdd), out, x0=x0, flo=f_rail, fhi=f_mid)
     v_at = np.where(can, v_at, out)
     headroom = np.where(direction > 0, vdd - v_at, v_at)
     i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, v_at)
@@ -234,18 +241,19 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     nodes, ok = stage.quiescent(devs, bias, vdd)
     system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd)
     x = np.stack([nodes[nname] for nname in stage.TOPOLOGY.nodes] + [np.zeros_like(vdd)])
-    r, _, _ = system.assemble(x, np.arange(len(vdd)))
-    scale = bias_scale = np.maximum(stage.bias_total(bias), 1e-15)
-    ok &= np.all(np.abs(r) <= 1e-6 * bias_scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
+    sens, r = system.iq_sensitivity(x, stage.PULL_DOWN)
+    scale = np.maximum(stage.bias_total(bias), 1e-15)
+    ok &= np.all(np.abs(r) <= 1e-6 * scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
     if not ok.all():  # second chance: Newton on the full nodal system
         bad = np.flatnonzero(~ok)
         sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad])
-        x0 = np.nan_to_num(x[:, bad], nan=0.0)
-        xb, okb = sub.solve(x0)
+        xb, ok[bad] = sub.solve(np.nan_to_num(x[:, bad], nan=0.0))
         x[:, bad] = xb
-        ok[bad] = okb
         for k_node, nname in enumerate(stage.TOPOLOGY.nodes):
             nodes[nname] = x[k_node]
+        sens_b, _ = sub.iq_sensitivity(xb, stage.PULL_DOWN)
+        for role, (s_vt, s_beta) in sens_b.items():
+            sens[role][0][bad], sens[role][1][bad] = s_vt, s_beta
     out = 0.5 * vdd
     down = devs[stage.PULL_DOWN]
     spec_down = next(s for s in stage.TOPOLOGY.devices if s.role == stage.PULL_DOWN)
@@ -253,7 +261,6 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     iq = down.current(node_v[spec_down.g], node_v[spec_down.d], node_v[spec_down.s], node_v[spec_down.rail])
     iq = np.maximum(iq, 0.0)
 
-    sens = system.iq_sensitivity(x, stage.PULL_DOWN)
     var = np.zeros_like(vdd)
     for spec in stage.TOPOLOGY.devices:
         dev, mt = devs[spec.role], tech.mos(spec.polarity)
@@ -290,7 +297,7 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
 
 
-def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chunk: int = 8192) -> Result:
+def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chunk: int = 16384) -> Result:
     """All metrics of a population at every PVT point, with summary and violations.
 
     Parameters

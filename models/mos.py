@@ -155,20 +155,25 @@ def _frame(m: Mos, vg, vd, vs, vb):
     return p * (np.asarray(vg) - vb), p * (np.asarray(vd) - vb), p * (np.asarray(vs) - vb)
 
 
+def _softplus_sigmoid(h):
+    """ln(1 + e^h) and 1/(1 + e^-h) from one exponential, stable for any h."""
+    a = np.exp(-np.abs(h))
+    return np.maximum(h, 0.0) + np.log1p(a), np.where(h >= 0.0, 1.0, a) / (1.0 + a)
+
+
 def _ekv(m, w, l, vgb, vdb, vsb, dvt, dbeta):
     ut, n = m.ut, m.n
     ispec = specific_current(m, w, l, dbeta)
     vp = (vgb - m.vt0 - dvt) / n
-    xf = (vp - vsb) / ut
-    xr = (vp - vdb) / ut
-    lf = np.logaddexp(0.0, 0.5 * xf)
-    lr = np.logaddexp(0.0, 0.5 * xr)
+    half_ut = 0.5 / ut
+    lf, sf = _softplus_sigmoid((vp - vsb) * half_ut)
+    lr, sr = _softplus_sigmoid((vp - vdb) * half_ut)
     vds = vdb - vsb
     va = early_voltage(m, l)
     c = 1.0 + np.abs(vds) / va
     i0 = ispec * (lf * lf - lr * lr)
-    dff = lf * expit(0.5 * xf)
-    dfr = lr * expit(0.5 * xr)
+    dff = lf * sf
+    dfr = lr * sr
     s = np.sign(vds) / va
     gg = ispec * c * (dff - dfr) / (n * ut)
     gd = ispec * c * dfr / ut + i0 * s
@@ -293,6 +298,32 @@ def gate_voltage_sat(m: Mos, w, l, i, vs, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0):
     return vb + p * vgb
 
 
+def source_voltage_sat(m: Mos, w, l, i, vg, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0, tied=False):
+    """Source voltage at which the device carries `i` in saturation with its gate at vg.
+
+    The inverse of `gate_voltage_sat` for the source (a source follower, or a control
+    device whose source is the unknown). `tied` puts the bulk on the source. Closed form:
+    EKV as in `gate_voltage_sat`; square law by solving the body-effect quadratic in
+    sqrt(phi + VSB). Arguments as in `gate_voltage_sat`; returns the physical voltage.
+    """
+    p = m.polarity
+    c = 1.0 + np.abs(vds) / early_voltage(m, l)
+    if m.kind is ModelKind.EKV:
+        drop = m.ut * ekv_f_inverse(i / (specific_current(m, w, l, dbeta) * c))  # VP - VS
+        if tied:
+            return np.asarray(vg) - p * (m.vt0 + dvt + m.n * drop)
+        vsb = (p * (np.asarray(vg) - vb) - m.vt0 - dvt) / m.n - drop
+        return vb + p * vsb
+    beta = m.kp * (1.0 + dbeta) * np.asarray(w) / np.asarray(l)
+    vov = np.sqrt(2.0 * i / (beta * c))
+    if tied:
+        return np.asarray(vg) - p * (m.vt0 + dvt + vov)
+    sphi = np.sqrt(m.phi)
+    const = p * (np.asarray(vg) - vb) + m.phi - m.vt0 - dvt + m.gamma * sphi - vov
+    u = 0.5 * (-m.gamma + np.sqrt(m.gamma**2 + 4.0 * np.maximum(const, 0.0)))
+    return vb + p * (u * u - m.phi)
+
+
 def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6):
     """Gate (= drain) voltage of a diode-connected device carrying `i`, full model.
 
@@ -302,12 +333,13 @@ def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6)
     """
     p = m.polarity
     vg = gate_voltage_sat(m, w, l, i, vs, vb, 0.0, dvt, dbeta)
+    vg = gate_voltage_sat(m, w, l, i, vs, vb, np.asarray(vg) - vs, dvt, dbeta)  # with VDS = VGS in the CLM factor
     for _ in range(iterations):
         i_now, gg, gd, _ = current_partials(m, w, l, vg, vg, vs, vb, dvt, dbeta)
         # Along vd = vg the physical drain current p*i changes by gg + gd per volt.
         step = p * (i_now - i) / (gg + gd)
         vg = vg - step
-        if np.all(np.abs(step) < 1e-13):
+        if np.all(np.abs(step) < 1e-8):  # Newton is quadratic here: the next error is far below 1e-12 V
             break
     return vg
 

@@ -126,11 +126,15 @@ class Device:
         """Gate voltage for frame current i in saturation (closed form)."""
         return _mos.gate_voltage_sat(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, vds, self.dvt, self.dbeta)
 
+    def source_for(self, i, vg, vb, vds):
+        """Source voltage for frame current i in saturation with the gate at vg."""
+        return _mos.source_voltage_sat(self.mos, self.w, self.l, i, vg, vb, vds, self.dvt, self.dbeta, self.tied)
+
     def vdsat(self, i):
         return _mos.saturation_voltage(self.mos, self.w, self.l, i)
 
 
-def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100):
+def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fhi=None):
     """Vectorised safeguarded Newton inside a bracket (Newton steps that leave the bracket
     or shrink it too slowly are replaced by bisection).
 
@@ -142,6 +146,8 @@ def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100):
         Bracket ends; f(lo) and f(hi) must differ in sign (or one be zero).
     x0 : ndarray, shape (m,), optional
         Starting point inside the bracket (default: midpoint).
+    flo, fhi : ndarray, shape (m,), optional
+        f at the bracket ends, when the caller has them already.
 
     Returns
     -------
@@ -154,8 +160,8 @@ def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100):
     hi = np.array(hi, dtype=float)
     m = lo.shape[0]
     allidx = np.arange(m)
-    flo, _ = fun(lo, allidx)
-    fhi, _ = fun(hi, allidx)
+    flo = fun(lo, allidx)[0] if flo is None else np.asarray(flo, dtype=float)
+    fhi = fun(hi, allidx)[0] if fhi is None else np.asarray(fhi, dtype=float)
     ok = (np.sign(flo) * np.sign(fhi)) <= 0
     # Orient so that f(lo) <= 0 <= f(hi).
     swap = flo > 0
@@ -213,10 +219,15 @@ def newton(fun, x0, step_max=0.25, xtol=1e-10, max_iter=60):
         xa = x[:, act]
         r, jac = fun(xa, act)
         with np.errstate(all="ignore"):
-            try:
-                dx = -np.linalg.solve(jac, r.T[:, :, None])[:, :, 0].T
-            except np.linalg.LinAlgError:
-                dx = np.full_like(xa, np.nan)
+            if x.shape[0] == 2:  # Cramer's rule: far cheaper than a batched LAPACK call
+                det = jac[:, 0, 0] * jac[:, 1, 1] - jac[:, 0, 1] * jac[:, 1, 0]
+                dx = -np.stack([(jac[:, 1, 1] * r[0] - jac[:, 0, 1] * r[1]) / det,
+                                (jac[:, 0, 0] * r[1] - jac[:, 1, 0] * r[0]) / det])
+            else:
+                try:
+                    dx = -np.linalg.solve(jac, r.T[:, :, None])[:, :, 0].T
+                except np.linalg.LinAlgError:
+                    dx = np.full_like(xa, np.nan)
         finite = np.all(np.isfinite(dx), axis=0)
         dx = np.where(finite, dx, 0.0)
         big = np.max(np.abs(dx), axis=0)
@@ -326,7 +337,8 @@ class NodalSystem:
         """d Iq / d dvt and d Iq / d dbeta for every device, by the adjoint of the exact
         Jacobian at the solved point x (k, m). Iq is the frame current of `out_role`.
 
-        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,).
+        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,), and the
+        residuals (k, m) at x, so the caller can check the point it passed.
         """
         m = x.shape[1]
         idx = np.arange(m)
@@ -349,7 +361,7 @@ class NodalSystem:
                 s_vt = s_vt - dev.p * gg
                 s_beta = s_beta + i / (1.0 + dev.dbeta)
             out[role] = (s_vt, s_beta)
-        return out
+        return out, r
 
 
 def _subset(dev: Device, idx) -> Device:

@@ -67,10 +67,13 @@ def _stacks(devs, bias, vdd):
     return nb1, nb2, pb1, pb2
 
 
-def _ctl_sum(devs, nb2, pb2, gn, gp, vdd):
-    """i(MN_CTL) + i(MP_CTL) and its derivatives with respect to gn and gp."""
+def _ctl_sum(devs, nb2, pb2, gn, gp, vdd, partials=False):
+    """i(MN_CTL) + i(MP_CTL), its derivatives with respect to gn and gp, and the two
+    currents; with `partials`, also each device's (d/dgn, d/dgp)."""
     i_nc, _, ncd, ncs = devs["mn_ctl"].eval(nb2, gp, gn, 0.0)
     i_pc, _, pcd, pcs = devs["mp_ctl"].eval(pb2, gn, gp, vdd)
+    if partials:
+        return i_nc + i_pc, ncs + pcd, ncd + pcs, i_nc, i_pc, (ncs, ncd), (pcd, pcs)
     return i_nc + i_pc, ncs + pcd, ncd + pcs, i_nc, i_pc
 
 
@@ -199,24 +202,29 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
     role = "mn_ctl" if direction > 0 else "mp_ctl"
 
     # 1. The saturation edge of the active control device, both gates at once: KCL at the
-    #    gates, i(MN_CTL) + i(MP_CTL) = ib_ctl, and (gp - gn) = VDSsat. The Jacobian leaves
-    #    out the slow change of VDSsat with current, which the iteration absorbs.
+    #    gates, i(MN_CTL) + i(MP_CTL) = ib_ctl, and (gp - gn) = VDSsat(i of that device).
     def fun(x, idx):
         d = subset(devs, idx)
         g_n, g_p = x
-        s, s_gn, s_gp, i_nc, i_pc = _ctl_sum(d, nb2[idx], pb2[idx], g_n, g_p, vdd[idx])
-        sat = d[role].vdsat(i_nc if direction > 0 else i_pc)
+        s, s_gn, s_gp, i_nc, i_pc, pn, pp = _ctl_sum(d, nb2[idx], pb2[idx], g_n, g_p, vdd[idx], partials=True)
+        i_a, (da_gn, da_gp) = (i_nc, pn) if direction > 0 else (i_pc, pp)
+        sat = d[role].vdsat(i_a)
+        dsat = (d[role].vdsat(i_a * (1.0 + 1e-6)) - sat) / (i_a * 1e-6)  # d VDSsat / d i
         r = np.stack([s - bias["ib_ctl"][idx], (g_p - g_n) - sat])
         jac = np.empty((len(idx), 2, 2))
         jac[:, 0, 0], jac[:, 0, 1] = s_gn, s_gp
-        jac[:, 1, 0], jac[:, 1, 1] = -1.0, 1.0
+        jac[:, 1, 0], jac[:, 1, 1] = -1.0 - dsat * da_gn, 1.0 - dsat * da_gp
         return r, jac
 
-    sat0 = devs[role].vdsat(bias["ib_ctl"])
+    # Start where the active control device carries all of ib_ctl at its saturation edge.
+    ib_ctl = bias["ib_ctl"]
+    sat0 = devs[role].vdsat(ib_ctl)
     if direction > 0:
-        x0 = np.stack([nodes["gn"], nodes["gn"] + sat0])
+        gn0 = devs["mn_ctl"].source_for(ib_ctl, nb2, 0.0, sat0)
+        x0 = np.stack([gn0, gn0 + sat0])
     else:
-        x0 = np.stack([nodes["gp"] - sat0, nodes["gp"]])
+        gp0 = devs["mp_ctl"].source_for(ib_ctl, pb2, vdd, sat0)
+        x0 = np.stack([gp0 - sat0, gp0])
     x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-10, max_iter=80)
     gn, gp = x[0].copy(), x[1].copy()
     v_edge = gp if driven_node == "gp" else gn
