@@ -209,7 +209,8 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
         s, s_gn, s_gp, i_nc, i_pc, pn, pp = _ctl_sum(d, nb2[idx], pb2[idx], g_n, g_p, vdd[idx], partials=True)
         i_a, (da_gn, da_gp) = (i_nc, pn) if direction > 0 else (i_pc, pp)
         sat = d[role].vdsat(i_a)
-        dsat = (d[role].vdsat(i_a * (1.0 + 1e-6)) - sat) / (i_a * 1e-6)  # d VDSsat / d i
+        i_pos = np.maximum(np.abs(i_a), 1e-18)
+        dsat = (d[role].vdsat(i_pos * (1.0 + 1e-6)) - d[role].vdsat(i_pos)) / (i_pos * 1e-6)  # d VDSsat / d i
         r = np.stack([s - bias["ib_ctl"][idx], (g_p - g_n) - sat])
         jac = np.empty((len(idx), 2, 2))
         jac[:, 0, 0], jac[:, 0, 1] = s_gn, s_gp
@@ -229,7 +230,9 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
     gn, gp = x[0].copy(), x[1].copy()
     v_edge = gp if driven_node == "gp" else gn
     # The edge comes first when the driven gate meets it before its compliance bound.
-    edge_first = ok_edge & ((v_edge >= bound) if direction > 0 else (v_edge <= bound))
+    rest = nodes[driven_node]
+    edge_first = ok_edge & ((v_edge >= bound) & (v_edge <= rest + 1e-9) if direction > 0
+                            else (v_edge <= bound) & (v_edge >= rest - 1e-9))
     limit = edge_first.astype(int)
     ok = edge_first.copy()
 
@@ -242,10 +245,44 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
         g_n, g_p = (other, bound[comp]) if driven_node == "gp" else (bound[comp], other)
         _, _, _, i_nc, i_pc = _ctl_sum(sub, nb2[comp], pb2[comp], g_n, g_p, vdd[comp])
         margin = (g_p - g_n) - sub[role].vdsat(i_nc if direction > 0 else i_pc)
-        gn[comp], gp[comp] = g_n, g_p
-        # A negative margin here means the edge exists but its solve failed: report it.
-        ok[comp] = ok_c & (margin >= -1e-9)
+        gn[comp], gp[comp], ok[comp] = g_n, g_p, ok_c
+        # 3. A negative margin at the compliance bound means the edge comes first but its
+        #    Newton solve failed: bracket the edge between rest and the bound instead.
+        late = comp[margin < 0]
+        if late.size:
+            g_n, g_p, ok_l = _edge_bracketed(subset(devs, late), {k: v[late] for k, v in bias.items()}, vdd[late],
+                                             nb2[late], pb2[late], driven_node, direction,
+                                             bound[late], nodes[driven_node][late], nodes[other_node][late])
+            gn[late], gp[late], ok[late], limit[late] = g_n, g_p, ok_l, 1
     return gn, gp, limit, ok
+
+
+def _edge_bracketed(devs, bias, vdd, nb2, pb2, driven_node, direction, bound, rest, warm):
+    """Fallback: bisection-safeguarded search of the driven gate between its compliance
+    bound and its rest value for the saturation edge of the active control device, with
+    the other gate solved from KCL at each trial."""
+    role = "mn_ctl" if direction > 0 else "mp_ctl"
+    slope = 1.0 if driven_node == "gp" else -1.0  # rough d(margin)/d(driven gate), for Newton only
+    warm = warm.copy()
+
+    def at(d, b, v, n2, p2, v_f, x0):
+        other, _, ok = _other_gate(d, b, v, n2, p2, driven_node, v_f, x0)
+        g_n, g_p = (other, v_f) if driven_node == "gp" else (v_f, other)
+        _, _, _, i_nc, i_pc = _ctl_sum(d, n2, p2, g_n, g_p, v)
+        return g_n, g_p, (g_p - g_n) - d[role].vdsat(i_nc if direction > 0 else i_pc), ok
+
+    def fmargin(v_f, idx):
+        g_n, g_p, mg, _ = at(subset(devs, idx), {k: v[idx] for k, v in bias.items()}, vdd[idx], nb2[idx],
+                             pb2[idx], v_f, warm[idx])
+        warm[idx] = g_n if driven_node == "gp" else g_p
+        return mg, np.full_like(v_f, slope)
+
+    _, _, m_rest, _ = at(devs, bias, vdd, nb2, pb2, rest, warm)
+    v_f, ok_f = solve_bracketed(fmargin, bound, rest, xtol=1e-9)
+    # Already out of saturation at rest: the drive limit is the rest point itself.
+    v_f = np.where(m_rest <= 0, rest, v_f)
+    g_n, g_p, _, ok_h = at(devs, bias, vdd, nb2, pb2, v_f, warm)
+    return g_n, g_p, (ok_f | (m_rest <= 0)) & ok_h
 
 
 def gates(nodes):
