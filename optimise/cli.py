@@ -141,6 +141,13 @@ def cmd_evaluate(args) -> int:
     return 0
 
 
+def cmd_optimise(args) -> int:
+    from .runner import optimise_study
+
+    return optimise_study(args.study, args.out, args.seed, args.population, args.generations, args.resume,
+                          args.overwrite)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="stagefront",
@@ -160,6 +167,19 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also run N Monte Carlo mismatch samples at tt, nominal supply and temperature")
     p.add_argument("--seed", type=int, default=1, help="seed of the Monte Carlo draws (default 1)")
     p.set_defaults(func=cmd_evaluate)
+
+    p = sub.add_parser(
+        "optimise", help="search sizes and bias of every architecture of a study (NSGA-II) and write a run folder",
+        description="Search every architecture of the study with NSGA-II on the same objectives and "
+                    "constraints; write front.csv, run.json and plots into the run folder. " + CAUTION)
+    p.add_argument("study", help="study file (TOML) with [objectives], [bounds.ARCH], [ties.ARCH], [search]")
+    p.add_argument("--out", help="run folder (default runs/STUDY-NAME); never overwritten unless --overwrite")
+    p.add_argument("--seed", type=int, help="random seed (default: the study's)")
+    p.add_argument("--population", type=int, help="population size (default: the study's [search])")
+    p.add_argument("--generations", type=int, help="generations (default: the study's [search])")
+    p.add_argument("--resume", action="store_true", help="continue a stopped run from its checkpoints")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing run folder")
+    p.set_defaults(func=cmd_optimise)
     return parser
 
 

@@ -1,0 +1,28 @@
+"""Atomic file writes: write beside the target, then rename over it, so a reader (or a
+crash) never sees half a file and nothing already written is lost."""
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+
+def write_bytes(path, data: bytes) -> None:
+    """Write `data` to `path` atomically (same-folder temporary file, then os.replace)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def write_text(path, text: str) -> None:
+    """Write text (UTF-8) to `path` atomically."""
+    write_bytes(path, text.encode("utf-8"))
