@@ -96,10 +96,16 @@ def non_dominated(F: np.ndarray) -> np.ndarray:
     return keep
 
 
+def _feasible(pop) -> np.ndarray:
+    """Feasibility mask of a population: every inequality constraint <= 0."""
+    G = pop.get("G")
+    return np.all(G <= 0.0, axis=1) if G is not None and G.size else np.ones(len(pop), dtype=bool)
+
+
 def update_archive(archive, pop):
     """Merge a population's feasible designs into the archive of every feasible
     non-dominated design seen so far (exact duplicates dropped). Returns (X, F, G)."""
-    feas = pop.get("feasible").ravel()
+    feas = _feasible(pop)
     X = np.concatenate([archive[0], pop.get("X")[feas]])
     F = np.concatenate([archive[1], pop.get("F")[feas]])
     G = np.concatenate([archive[2], pop.get("G")[feas]])
@@ -129,46 +135,59 @@ class Progress:
         self.stream.flush()
 
 
-def run_architecture(study: Study, settings: SearchSettings, arch: str, seed: int, checkpoint: Path,
-                     resume: bool, progress: Progress, population: int, generations: int) -> ArchRun:
-    """Search one architecture; checkpoint to `checkpoint`; KeyboardInterrupt propagates
-    after the current state has been checkpointed (the caller writes the partial front)."""
-    ideal, ref = normaliser(study, settings)
+def run_search(problem, seed: int, population: int, generations: int, checkpoint: Path, resume: bool,
+               progress: Progress, label: str, box, checkpoint_every: int) -> dict:
+    """NSGA-II on any pymoo problem, with an archive, hypervolume per generation and
+    checkpoints. Returns the search state (algorithm, archive, hv, feasible, wall, finished).
+
+    The state is snapshotted after every completed generation; the snapshot (never a
+    half-done generation) goes to `checkpoint` every `checkpoint_every` generations and
+    when the loop ends for any reason, KeyboardInterrupt included (which propagates).
+    """
+    ideal, ref = box
     state = None
     if resume and checkpoint.exists():
         with checkpoint.open("rb") as fh:
             state = pickle.load(fh)
     if state is None:
-        problem = StageProblem(study, settings.spaces[arch], settings.objectives)
         algorithm = NSGA2(pop_size=population, eliminate_duplicates=True)
         algorithm.setup(problem, termination=("n_gen", generations), seed=seed, verbose=False)
         empty = (np.empty((0, problem.n_var)), np.empty((0, problem.n_obj)), np.empty((0, problem.n_ieq_constr)))
         state = {"algorithm": algorithm, "archive": empty, "hv": [], "feasible": [], "wall": 0.0,
                  "finished": False}
-    algorithm = state["algorithm"]
-
-    def save():
-        write_bytes(checkpoint, pickle.dumps(state))
-
+    snapshot = pickle.dumps(state)
     t0 = time.perf_counter() - state["wall"]
     try:
-        while not state["finished"] and algorithm.has_next():
+        while not state["finished"]:
+            algorithm = state["algorithm"]
+            if not algorithm.has_next():
+                state["finished"] = True
+                snapshot = pickle.dumps(state)
+                break
             algorithm.next()
             state["archive"] = update_archive(state["archive"], algorithm.pop)
-            feas = int(algorithm.pop.get("feasible").sum())
+            feas = int(_feasible(algorithm.pop).sum())
             state["hv"].append(hypervolume(state["archive"][1], ideal, ref))
             state["feasible"].append(feas)
             state["wall"] = time.perf_counter() - t0
+            snapshot = pickle.dumps(state)
             gen = len(state["hv"])
-            progress.update(arch, gen, generations, algorithm.evaluator.n_eval, feas, state["hv"][-1])
-            if gen % settings.checkpoint_every == 0:
-                save()
-        state["finished"] = True
+            progress.update(label, gen, generations, algorithm.evaluator.n_eval, feas, state["hv"][-1])
+            if gen % checkpoint_every == 0:
+                write_bytes(checkpoint, snapshot)
     finally:
-        state["wall"] = time.perf_counter() - t0
-        save()
+        write_bytes(checkpoint, snapshot)
     if progress.tty:
         progress.stream.write("\n")
+    return pickle.loads(snapshot)
+
+
+def run_architecture(study: Study, settings: SearchSettings, arch: str, seed: int, checkpoint: Path,
+                     resume: bool, progress: Progress, population: int, generations: int) -> ArchRun:
+    """Search one architecture of a study (see `run_search`)."""
+    problem = StageProblem(study, settings.spaces[arch], settings.objectives)
+    state = run_search(problem, seed, population, generations, checkpoint, resume, progress, arch,
+                       normaliser(study, settings), settings.checkpoint_every)
     return collect(arch, state)
 
 
