@@ -183,6 +183,7 @@ def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fh
             xn = xa - f / df
         bad = ~np.isfinite(xn) | ((xn - la) * (xn - ha) > 0)
         xn = np.where(bad, 0.5 * (la + ha), xn)
+        xn = np.where(f == 0, xa, xn)  # an exact root stays where it is (flat stretches included)
         conv = (np.abs(xn - xa) < xtol) | (f == 0) | (np.abs(ha - la) < xtol)
         x[act], lo[act], hi[act] = xn, la, ha
         act = act[~conv]
@@ -352,7 +353,18 @@ class NodalSystem:
             col = self.index.get(node)
             if col is not None:
                 grad[:, col] += g  # frame current derivative
-        lam = np.linalg.solve(np.swapaxes(jac, 1, 2), grad[:, :, None])[:, :, 0]  # (m, k)
+        jt = np.swapaxes(jac, 1, 2)
+        singular = np.zeros(m, dtype=bool)
+        try:
+            lam = np.linalg.solve(jt, grad[:, :, None])[:, :, 0]  # (m, k)
+        except np.linalg.LinAlgError:
+            # A stage cut off entirely (every device off, Iq = 0) has a singular Jacobian
+            # and no sensitivity; swap in the identity there so the rest of the batch solves.
+            sign, _ = np.linalg.slogdet(jt)
+            singular = sign == 0
+            jt = np.where(singular[:, None, None], np.eye(self.size), jt)
+            grad = np.where(singular[:, None], 0.0, grad)
+            lam = np.linalg.solve(jt, grad[:, :, None])[:, :, 0]
         out = {}
         for role, (d_vt, d_beta) in theta.items():
             s_vt = -np.einsum("mk,km->m", lam, d_vt)
@@ -360,7 +372,7 @@ class NodalSystem:
             if role == out_role:
                 s_vt = s_vt - dev.p * gg
                 s_beta = s_beta + i / (1.0 + dev.dbeta)
-            out[role] = (s_vt, s_beta)
+            out[role] = (np.where(singular, 0.0, s_vt), np.where(singular, 0.0, s_beta))
         return out, r
 
 
