@@ -148,6 +148,18 @@ def cmd_optimise(args) -> int:
                           args.overwrite)
 
 
+def cmd_compare(args) -> int:
+    from .compare import compare_runs
+
+    return compare_runs(args.runs, args.out, args.overwrite)
+
+
+def cmd_pick(args) -> int:
+    from .pick import pick_designs
+
+    return pick_designs(args.run, args.where, args.by, args.count, args.format)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="stagefront",
@@ -180,6 +192,31 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--resume", action="store_true", help="continue a stopped run from its checkpoints")
     p.add_argument("--overwrite", action="store_true", help="replace an existing run folder")
     p.set_defaults(func=cmd_optimise)
+
+    p = sub.add_parser(
+        "compare", help="put the fronts of several run folders on the same axes: who dominates where",
+        description="Load run folders made with the same objectives; for every pair of (run, architecture) "
+                    "groups report the share of one group's designs that a design of the other dominates, "
+                    "and the best value each group reaches per objective. " + CAUTION)
+    p.add_argument("runs", nargs="+", metavar="RUN", help="run folders (each with front.csv and run.json)")
+    p.add_argument("--out", help="folder for compare.csv, compare.md and compare.png")
+    p.add_argument("--overwrite", action="store_true", help="write into an --out folder that is not empty")
+    p.set_defaults(func=cmd_compare)
+
+    p = sub.add_parser(
+        "pick", help="filter a run's front by budgets and rank it (knee or one objective) for hand-off",
+        description="Keep the front designs that meet every --where budget, rank them by the knee of the "
+                    "front or by one objective, and print sizes (um), bias currents (uA), r_bias (kohm), "
+                    "objectives and constraint margins (%). Exit status 1 when no design is left. " + CAUTION)
+    p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
+    p.add_argument("--where", action="append", default=[], metavar="BUDGET",
+                   help="NAME OP VALUE, e.g. \"power_w<=200u\"; OP one of <= >= < > ==; NAME a front.csv "
+                        "column; repeat for several budgets (all must hold)")
+    p.add_argument("--by", default="knee", metavar="knee|OBJECTIVE",
+                   help="rank by the knee (default) or by one of the run's objectives, best first")
+    p.add_argument("--count", type=int, default=10, metavar="N", help="designs to show (default 10)")
+    p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown table (default) or CSV")
+    p.set_defaults(func=cmd_pick)
     return parser
 
 

@@ -1,0 +1,473 @@
+"""`stagefront compare`: the fronts of several run folders on the same axes.
+
+Every front.csv row is labelled by its run folder's name and its architecture; the rows of
+one label form a *group*. For each pair of groups (A, B) the comparison reports the share
+of A's designs that some design of B dominates and the other way round, and for each
+objective the best value each group reaches. With ``--out`` it writes compare.csv (the
+pairwise table), compare.md (all tables) and compare.png (pairwise objective scatter).
+
+Dominance is Pareto dominance in the run's objectives as the search minimised them
+(maximised ones negated, supply sensitivity in magnitude, as in `optimise.problem`):
+b dominates a when b is no worse in every objective and better in at least one.
+
+References
+----------
+E. Zitzler, L. Thiele, "Multiobjective evolutionary algorithms: a comparative case study
+and the strength Pareto approach", IEEE Trans. Evol. Comput. 3(4):257-271, 1999 (the set
+coverage C(A, B); ours counts strict dominance, so a design equal to one of the other group
+is not counted as dominated).
+E. Zitzler, L. Thiele, M. Laumanns, C. M. Fonseca, V. Grunert da Fonseca, "Performance
+assessment of multiobjective optimizers: an analysis and review", IEEE Trans. Evol.
+Comput. 7(2):117-132, 2003 (set relations: A dominates B when every design of B is
+dominated by at least one design of A).
+"""
+from __future__ import annotations
+
+import io
+import json
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .atomic import write_bytes, write_text
+from .errors import InputError
+from .space import OBJECTIVES
+from .units import format_eng
+
+CAUTION = "Model estimates for early design only: the foundry's kit and sign-off simulation decide."
+FILES = ("compare.csv", "compare.md", "compare.png")
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    """One run folder as read back: its label, objectives (name -> "min"|"max", run.json
+    order), front.csv table (raw SI floats under the contract names) and run.json record."""
+
+    path: Path
+    label: str
+    objectives: dict
+    table: pd.DataFrame
+    record: dict
+
+
+@dataclass(frozen=True)
+class Group:
+    """The front.csv rows of one (run, architecture): `F` (n, n_obj) as minimised."""
+
+    label: str
+    run: str
+    architecture: str
+    table: pd.DataFrame
+    F: np.ndarray
+
+
+def load_run(path) -> RunFolder:
+    """Read a run folder (front.csv and run.json) and check what compare and pick rely on.
+
+    Parameters
+    ----------
+    path : str or Path
+        The run folder written by `stagefront optimise`.
+
+    Returns
+    -------
+    RunFolder
+        Labelled by the folder name (callers may relabel to keep labels unique).
+
+    Raises
+    ------
+    InputError
+        A missing folder or file, unreadable JSON, objectives that are not a name -> sense
+        table, or a front.csv without a column for one of the objectives.
+    """
+    path = Path(path)
+    if not path.is_dir():
+        raise InputError(str(path), "is not a run folder", "a folder written by `stagefront optimise`",
+                         "check the path")
+    for name in ("front.csv", "run.json"):
+        if not (path / name).is_file():
+            raise InputError(str(path), f"has no {name}", "a folder written by `stagefront optimise`",
+                             "an interrupted run writes both; a folder with only checkpoint/ needs --resume")
+    try:
+        record = json.loads((path / "run.json").read_text())
+    except (OSError, ValueError) as err:
+        raise InputError(str(path / "run.json"), f"cannot be read: {err}") from None
+    objectives = record.get("objectives") if isinstance(record, dict) else None
+    if (not isinstance(objectives, dict) or not objectives
+            or any(n not in OBJECTIVES or s not in ("min", "max") for n, s in objectives.items())):
+        raise InputError(str(path / "run.json"), f"'objectives' = {objectives!r} is not usable",
+                         f"a table of objective -> \"min\"|\"max\" with names from {', '.join(OBJECTIVES)}")
+    try:
+        table = pd.read_csv(path / "front.csv")
+    except (OSError, ValueError) as err:
+        raise InputError(str(path / "front.csv"), f"cannot be read: {err}") from None
+    need = ["id", "architecture"] + (list(objectives) if len(table) else [])
+    missing = [c for c in need if c not in table.columns]
+    if missing:
+        raise InputError(str(path / "front.csv"), f"has no column {', '.join(missing)}",
+                         "the columns `stagefront optimise` writes", "re-run the search with this version")
+    return RunFolder(path, path.resolve().name or str(path), dict(objectives), table, record)
+
+
+def minimised(table: pd.DataFrame, objectives: dict) -> np.ndarray:
+    """Objective values as the search minimised them, shape (n, n_obj).
+
+    Mirrors `optimise.problem.objective_values` on front.csv columns: a maximised objective
+    is negated and supply_sens_pct_per_v is taken in magnitude.
+    """
+    cols = []
+    for name, sense in objectives.items():
+        v = table[name].to_numpy(dtype=float)
+        if name == "supply_sens_pct_per_v":
+            v = np.abs(v)
+        cols.append(-v if sense == "max" else v)
+    return np.stack(cols, axis=1) if cols else np.empty((len(table), 0))
+
+
+def dominated_by(FA: np.ndarray, FB: np.ndarray) -> np.ndarray:
+    """Mask (n_a,): which rows of FA (n_a, m) some row of FB (n_b, m) dominates (minimisation)."""
+    if len(FA) == 0 or len(FB) == 0:
+        return np.zeros(len(FA), dtype=bool)
+    le = np.all(FB[None, :, :] <= FA[:, None, :], axis=2)
+    lt = np.any(FB[None, :, :] < FA[:, None, :], axis=2)
+    return np.any(le & lt, axis=1)
+
+
+def show_objective(name: str, value: float) -> str:
+    """An objective value for the screen: engineering notation for SI units, else a plain number."""
+    if not np.isfinite(value):
+        return "n/a"
+    unit = OBJECTIVES.get(name, ("", ""))[0]
+    if unit in ("W", "V", "A", "Hz", "F"):
+        return format_eng(value, unit)
+    return f"{value:.4g} {unit}".rstrip()
+
+
+def markdown_table(header, rows) -> str:
+    """A GitHub-flavoured Markdown table; numbers right-aligned, text left-aligned."""
+    def num(cell):
+        try:
+            float(str(cell).split()[0].rstrip("%"))
+            return True
+        except (ValueError, IndexError):
+            return False
+
+    rows = [[str(c) for c in r] for r in rows]
+    header = [str(h) for h in header]
+    right = [bool(rows) and all(num(r[k]) or r[k] in ("", "-", "n/a") for r in rows) for k in range(len(header))]
+    width = [max([len(header[k])] + [len(r[k]) for r in rows]) for k in range(len(header))]
+
+    def line(cells):
+        return "| " + " | ".join(c.rjust(w) if rt else c.ljust(w) for c, w, rt in zip(cells, width, right)) + " |"
+
+    rule = "|" + "|".join(("-" * (w + 1) + ":") if rt else ("-" * (w + 2)) for w, rt in zip(width, right)) + "|"
+    return "\n".join([line(header), rule] + [line(r) for r in rows])
+
+
+def _unique_labels(paths: list[Path]) -> list[str]:
+    """Folder names, lengthened with parent folders only where two runs share a name."""
+    parts = [p.resolve().parts for p in paths]
+    depth = [1] * len(paths)
+    while True:
+        labels = ["/".join(pp[-d:]) for pp, d in zip(parts, depth)]
+        clash = {lab for lab in labels if labels.count(lab) > 1}
+        if not clash:
+            return labels
+        for k, lab in enumerate(labels):
+            if lab in clash and depth[k] < len(parts[k]):
+                depth[k] += 1
+
+
+def load_runs(paths) -> list[RunFolder]:
+    """Read the run folders, label them uniquely and check that their objectives match."""
+    paths = [Path(p) for p in paths]
+    seen = {}
+    for p in paths:
+        key = p.resolve()
+        if key in seen:
+            raise InputError(str(p), f"is given twice (also as {seen[key]})", "each run folder once")
+        seen[key] = str(p)
+    runs = [load_run(p) for p in paths]
+    runs = [RunFolder(r.path, lab, r.objectives, r.table, r.record)
+            for r, lab in zip(runs, _unique_labels(paths))]
+    first = runs[0]
+    for r in runs[1:]:
+        if r.objectives != first.objectives:
+            show = lambda o: ", ".join(f"{n} ({s})" for n, s in o.items())  # noqa: E731
+            raise InputError(str(r.path), f"objectives [{show(r.objectives)}] differ from those of {first.path} "
+                                          f"[{show(first.objectives)}]",
+                             "runs searched on the same objectives with the same senses",
+                             "compare runs of studies with the same [objectives] table")
+    return runs
+
+
+def groups_of(runs: list[RunFolder]) -> tuple[list[Group], list[str]]:
+    """Non-empty (run, architecture) groups in run order, and notes on the empty ones."""
+    groups, notes = [], []
+    objectives = runs[0].objectives
+    for r in runs:
+        archs = list(dict.fromkeys(list(r.record.get("architectures", {})) + list(r.table["architecture"])))
+        for arch in archs:
+            sub = r.table[r.table["architecture"] == arch].reset_index(drop=True)
+            label = f"{r.label}/{arch}"
+            if len(sub) == 0:
+                blocked = (r.record.get("architectures", {}).get(arch) or {}).get("blocked") or {}
+                why = f" ('{blocked['blocking_constraint']}' blocks the closest design)" \
+                    if "blocking_constraint" in blocked else ""
+                notes.append(f"{label}: no feasible design{why}")
+                continue
+            groups.append(Group(label, r.label, arch, sub, minimised(sub, objectives)))
+    return groups, notes
+
+
+def _verdict(share_ab: float, share_ba: float) -> str:
+    """Relation of groups a and b from the share of a dominated by b and of b dominated by a."""
+    if share_ab == 1.0 and share_ba == 0.0:
+        return "b dominates"
+    if share_ba == 1.0 and share_ab == 0.0:
+        return "a dominates"
+    if share_ab == share_ba:
+        return "mutually non-dominated" if share_ab == 0.0 else "even"
+    return "b ahead" if share_ab > share_ba else "a ahead"
+
+
+def pairwise(groups: list[Group]) -> pd.DataFrame:
+    """One row per unordered pair of groups: sizes, both dominated shares (0..1) and the verdict.
+
+    The verdict is "a dominates" / "b dominates" when every design of the other group is
+    dominated and none of its own is, "a ahead" / "b ahead" when only the shares say so,
+    "even" for equal non-zero shares and "mutually non-dominated" when neither group
+    dominates any design of the other.
+    """
+    rows = []
+    for i, a in enumerate(groups):
+        for b in groups[i + 1:]:
+            s_ab = float(dominated_by(a.F, b.F).mean())
+            s_ba = float(dominated_by(b.F, a.F).mean())
+            rows.append({"group_a": a.label, "group_b": b.label, "run_a": a.run, "architecture_a": a.architecture,
+                         "run_b": b.run, "architecture_b": b.architecture, "designs_a": len(a.F),
+                         "designs_b": len(b.F), "share_a_dominated_by_b": s_ab, "share_b_dominated_by_a": s_ba,
+                         "verdict": _verdict(s_ab, s_ba)})
+    cols = ["group_a", "group_b", "run_a", "architecture_a", "run_b", "architecture_b", "designs_a", "designs_b",
+            "share_a_dominated_by_b", "share_b_dominated_by_a", "verdict"]
+    return pd.DataFrame(rows, columns=cols)
+
+
+def best_values(groups: list[Group], objectives: dict) -> pd.DataFrame:
+    """Per group (index) and objective (columns): the front.csv value of the group's best
+    design in that objective's sense (raw SI floats, signed as in front.csv)."""
+    out = {}
+    for g in groups:
+        F = minimised(g.table, objectives)
+        out[g.label] = {n: float(g.table[n].iloc[int(np.argmin(F[:, k]))]) for k, n in enumerate(objectives)}
+    return pd.DataFrame.from_dict(out, orient="index", columns=list(objectives))
+
+
+def union_front_counts(groups: list[Group]) -> list[int]:
+    """Per group, how many of its designs no design of any group dominates."""
+    F_all = np.concatenate([g.F for g in groups]) if groups else np.empty((0, 0))
+    return [int((~dominated_by(g.F, F_all)).sum()) for g in groups]
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Everything compare reports: runs, groups, their notes and the three tables."""
+
+    runs: list
+    groups: list
+    notes: list
+    pairs: pd.DataFrame
+    best: pd.DataFrame
+    on_union: list
+
+    @property
+    def objectives(self) -> dict:
+        return self.runs[0].objectives
+
+
+def compare(paths) -> Comparison:
+    """Load the run folders and build the comparison (no output)."""
+    runs = load_runs(paths)
+    groups, notes = groups_of(runs)
+    if len({r.record.get("study_toml") for r in runs}) > 1:
+        notes.append("the runs come from different study files: check that their targets and conditions "
+                     "match before reading one front as better")
+    return Comparison(runs, groups, notes, pairwise(groups), best_values(groups, runs[0].objectives),
+                      union_front_counts(groups))
+
+
+def _pct(x: float) -> str:
+    """A share as a percentage that never rounds a non-zero share to 0 % or a partial one to 100 %."""
+    if 0.0 < x < 0.005:
+        return "<1 %"
+    if 0.995 <= x < 1.0:
+        return ">99 %"
+    return f"{100 * x:.0f} %"
+
+
+def _share(x: float, n: int) -> str:
+    return f"{round(x * n)}/{n} ({_pct(x)})"
+
+
+def _sections(c: Comparison):
+    """(title, header, rows) of the tables shown on screen and in compare.md."""
+    obj = c.objectives
+    sense = ", ".join(f"{n} ({s})" for n, s in obj.items())
+    groups_rows = [[f"[{k + 1}]", g.label, len(g.F), f"{n} ({_pct(n / len(g.F))})"]
+                   for k, (g, n) in enumerate(zip(c.groups, c.on_union))]
+    share = {(p.group_a, p.group_b): p.share_a_dominated_by_b for p in c.pairs.itertuples()}
+    share.update({(p.group_b, p.group_a): p.share_b_dominated_by_a for p in c.pairs.itertuples()})
+    matrix = [[f"[{k + 1}] {a.label}"] + ["-" if a is b else _share(share[(a.label, b.label)], len(a.F)) for b in c.groups]
+              for k, a in enumerate(c.groups)]
+    best = [[g.label] + [show_objective(n, c.best.loc[g.label, n]) for n in obj] for g in c.groups]
+    verdicts = []
+    for p in c.pairs.itertuples():
+        who, _, rest = p.verdict.partition(" ")
+        v = f"{ {'a': p.group_a, 'b': p.group_b}[who]} {rest}" if who in ("a", "b") else p.verdict
+        verdicts.append([p.group_a, p.group_b, _share(p.share_a_dominated_by_b, p.designs_a),
+                         _share(p.share_b_dominated_by_a, p.designs_b), v])
+    return [
+        (f"Groups (objectives: {sense})", ["#", "run/architecture", "designs", "on the union front"], groups_rows),
+        ("Share of the row group's designs dominated by some design of the column group",
+         ["dominated group"] + [f"by [{k + 1}]" for k in range(len(c.groups))], matrix),
+        ("Best value each group reaches", ["run/architecture"] + list(obj), best),
+        ("Pairs", ["a", "b", "a dominated by b", "b dominated by a", "verdict"], verdicts),
+    ]
+
+
+def _text_table(header, rows) -> str:
+    rows = [[str(x) for x in r] for r in rows]
+    width = [max([len(str(h))] + [len(r[k]) for r in rows]) for k, h in enumerate(header)]
+    lines = ["  " + "  ".join(str(h).ljust(w) if k == 0 else str(h).rjust(w)
+                              for k, (h, w) in enumerate(zip(header, width)))]
+    lines += ["  " + "  ".join(x.ljust(w) if k == 0 else x.rjust(w) for k, (x, w) in enumerate(zip(r, width)))
+              for r in rows]
+    return "\n".join(lines)
+
+
+def render_text(c: Comparison) -> str:
+    """The comparison as plain text for the terminal."""
+    out = [f"compare: {len(c.runs)} run(s): " + ", ".join(f"{r.label} ({r.path})" for r in c.runs), ""]
+    if not c.groups:
+        out.append("no run has a feasible design: nothing to compare")
+    for title, header, rows in (_sections(c) if c.groups else []):
+        if rows:
+            out += [title + ":", _text_table(header, rows), ""]
+    out += [f"note: {n}" for n in c.notes]
+    out.append(CAUTION)
+    return "\n".join(out) + "\n"
+
+
+def render_markdown(c: Comparison, plot: str | None = "compare.png") -> str:
+    """The comparison as a Markdown document (compare.md)."""
+    out = ["# Front comparison", "", "| run | folder | study | seed | population | generations |",
+           "|---|---|---|--:|--:|--:|"]
+    for r in c.runs:
+        rec = r.record
+        out.append(f"| {r.label} | {r.path} | {rec.get('study', '')} | {rec.get('seed', '')} | "
+                   f"{rec.get('population', '')} | {rec.get('generations', '')} |")
+    out.append("")
+    out.append("Dominance is Pareto dominance in the objectives as searched (maximised ones negated, supply "
+               "sensitivity in magnitude); a design equal to another is not dominated by it.")
+    out.append("")
+    for title, header, rows in (_sections(c) if c.groups else []):
+        if rows:
+            out += [f"## {title}", "", markdown_table(header, rows), ""]
+    if c.notes:
+        out += ["## Notes", ""] + [f"- {n}" for n in c.notes] + [""]
+    if plot and c.groups:
+        out += [f"![pairwise objectives of every group]({plot})", ""]
+    out.append(CAUTION)
+    return "\n".join(out) + "\n"
+
+
+def comparison_figure(c: Comparison):
+    """Pairwise objective scatter of every group: colour per run, marker per architecture.
+
+    Reuses `optimise.plots.objective_matrix` (which styles by an "architecture" column) on
+    a copy labelled by group, then restyles each group's points and redraws the legend.
+    """
+    from matplotlib.markers import MarkerStyle
+
+    from . import plots
+
+    frames = [g.table.assign(architecture=g.label) for g in c.groups]
+    table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
+        columns=["architecture"] + list(c.objectives))
+    fig = plots.objective_matrix(table, c.objectives, title="Fronts compared (colour: run, marker: architecture)")
+    palette = [f"C{k}" for k in range(10)]
+    run_colour = {r.label: palette[k % len(palette)] for k, r in enumerate(c.runs)}
+    style = {}
+    for g in c.groups:
+        marker = plots.STYLE.get(g.architecture, ("x", "black"))[0]
+        m = MarkerStyle(marker)
+        style[g.label] = (m.get_path().transformed(m.get_transform()), run_colour[g.run])
+    handles = {}
+    for ax in fig.axes:
+        for coll in ax.collections:
+            lab = coll.get_label()
+            if lab in style:
+                path, colour = style[lab]
+                coll.set_paths([path])
+                coll.set_facecolor(colour)
+                coll.set_edgecolor(colour)
+                handles.setdefault(lab, coll)
+    for legend in list(fig.legends):
+        legend.remove()
+    if handles:
+        fig.legend(list(handles.values()), list(handles), loc="upper right", title="run/architecture",
+                   fontsize=7)
+    return fig
+
+
+def compare_runs(paths, out=None, overwrite: bool = False, stream=None) -> int:
+    """`stagefront compare`: print the comparison; with `out`, write compare.csv/.md/.png.
+
+    Parameters
+    ----------
+    paths : list of str or Path
+        Run folders; their objectives (names and senses) must match.
+    out : str or Path, optional
+        Folder to write into. A folder that exists and is not empty is refused unless
+        `overwrite`; only the three compare files are replaced, each atomically.
+    overwrite : bool
+        Allow writing into a non-empty `out`.
+    stream : file-like, optional
+        Where the text goes (default stdout).
+
+    Returns
+    -------
+    int
+        0.
+    """
+    stream = stream or sys.stdout
+    out_dir = Path(out) if out else None
+    if out_dir is not None:
+        if out_dir.exists() and not out_dir.is_dir():
+            raise InputError(f"--out {out_dir}", "exists and is not a folder", "a new or empty folder")
+        if any(out_dir.resolve() == Path(p).resolve() for p in paths):
+            raise InputError(f"--out {out_dir}", "is one of the run folders being compared",
+                             "a separate folder", "write the comparison beside the runs, e.g. runs/compare")
+        if out_dir.exists() and any(out_dir.iterdir()) and not overwrite:
+            raise InputError(f"--out {out_dir}", "folder exists and is not empty",
+                             "a new or empty folder", "choose another --out, or add --overwrite to replace "
+                             + ", ".join(FILES) + " in it")
+    c = compare(paths)
+    stream.write(render_text(c))
+    if out_dir is not None:
+        buf = io.StringIO()
+        c.pairs.to_csv(buf, index=False, float_format="%.17g")
+        write_text(out_dir / "compare.csv", buf.getvalue())
+        write_text(out_dir / "compare.md", render_markdown(c))
+        fig = comparison_figure(c)
+        import matplotlib.pyplot as plt  # after plots chose the Agg backend
+
+        png = io.BytesIO()
+        fig.savefig(png, format="png", dpi=110)
+        plt.close(fig)
+        write_bytes(out_dir / "compare.png", png.getvalue())
+        stream.write(f"written: {', '.join(str(out_dir / f) for f in FILES)}\n")
+    return 0
