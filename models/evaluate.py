@@ -355,8 +355,12 @@ def _supply_sensitivity(pvt, cond, corner, temp, vdd):
         i_nom = iq[:, cols[np.argmin(np.abs(v - cond.vdd_nom))]]
         i_lo = iq[:, cols[np.argmin(v)]]
         i_hi = iq[:, cols[np.argmax(v)]]
+        # When Iq is zero at the nominal supply (a stage that cuts off there), the largest
+        # Iq of the group stands in for it, so a stage that only conducts at some supplies
+        # never looks supply-stable.
+        ref = np.where(i_nom > 0, i_nom, np.maximum(i_lo, i_hi))
         with np.errstate(divide="ignore", invalid="ignore"):
-            val = np.where((i_nom > 0) & (span > 0), 100.0 * (i_hi - i_lo) / i_nom / max(span, 1e-300), 0.0)
+            val = np.where((ref > 0) & (span > 0), 100.0 * (i_hi - i_lo) / ref / max(span, 1e-300), 0.0)
         sens[:, cols] = val[:, None]
     pvt["supply_sens_pct_per_v"] = sens
 

@@ -334,12 +334,17 @@ def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6)
     p = m.polarity
     vg = gate_voltage_sat(m, w, l, i, vs, vb, 0.0, dvt, dbeta)
     vg = gate_voltage_sat(m, w, l, i, vs, vb, np.asarray(vg) - vs, dvt, dbeta)  # with VDS = VGS in the CLM factor
+    done = np.zeros(np.shape(vg), dtype=bool)
     for _ in range(iterations):
         i_now, gg, gd, _ = current_partials(m, w, l, vg, vg, vs, vb, dvt, dbeta)
         # Along vd = vg the physical drain current p*i changes by gg + gd per volt.
         step = p * (i_now - i) / (gg + gd)
-        vg = vg - step
-        if np.all(np.abs(step) < 1e-8):  # Newton is quadratic here: the next error is far below 1e-12 V
+        # Each element stops on its own (so a result never depends on its batch
+        # neighbours); Newton is quadratic here, so after a step below 1e-8 V the error
+        # is far below 1e-12 V.
+        vg = np.where(done, vg, vg - step)
+        done = done | (np.abs(step) < 1e-8)
+        if done.all():
             break
     return vg
 
