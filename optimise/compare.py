@@ -341,11 +341,12 @@ def _sections(c: Comparison):
 def _text_table(header, rows) -> str:
     rows = [[str(x) for x in r] for r in rows]
     width = [max([len(str(h))] + [len(r[k]) for r in rows]) for k, h in enumerate(header)]
-    lines = ["  " + "  ".join(str(h).ljust(w) if k == 0 else str(h).rjust(w)
-                              for k, (h, w) in enumerate(zip(header, width)))]
-    lines += ["  " + "  ".join(x.ljust(w) if k == 0 else x.rjust(w) for k, (x, w) in enumerate(zip(r, width)))
+    right = [all(x[:1].isdigit() or x[:1] in "-<>+." for x in (r[k] for r in rows)) for k in range(len(header))]
+    lines = ["  " + "  ".join(str(h).rjust(w) if rt else str(h).ljust(w)
+                              for h, w, rt in zip(header, width, right))]
+    lines += ["  " + "  ".join(x.rjust(w) if rt else x.ljust(w) for x, w, rt in zip(r, width, right))
               for r in rows]
-    return "\n".join(lines)
+    return "\n".join(line.rstrip() for line in lines)
 
 
 def render_text(c: Comparison) -> str:
