@@ -220,7 +220,8 @@ def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corn
 
 
 def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mapping[str, str],
-                     grid: float | None = None) -> str:
+                     grid: float | None = None, name: str | None = None,
+                     extra_ports: tuple[str, ...] = ()) -> str:
     """The ``.subckt`` of design i, written from the architecture's topology.
 
     Parameters
@@ -238,11 +239,18 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
         written as designed.
     grid : float or None
         Drawing grid [m] for the mapping case; ignored with a Tech.
+    name : str or None
+        Name of the ``.subckt``; None is `subcircuit_name` (give each design its own name
+        when one deck holds several).
+    extra_ports : tuple of str
+        Internal topology nodes to bring out as ports after the usual ones (a test bench
+        that forces a follower's gates needs them); nodes already ports are skipped.
 
     Returns
     -------
     str
-        ``.subckt <name> vdd gnd out <drive ports>`` ... ``.ends``, without model cards.
+        ``.subckt <name> vdd gnd out <drive ports> [extra ports]`` ... ``.ends``, without
+        model cards.
     """
     mod = _stage(stage, design)
     if isinstance(tech_or_models, Tech):
@@ -256,10 +264,12 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
                              f"{', '.join(mod.ROLES)}")
         snap = None if grid is None else (lambda x: np.maximum(np.round(x / grid), 1.0) * grid)
     wl = sizes(mod, design, i, snap)
-    name = subcircuit_name(mod)
+    name = subcircuit_name(mod) if name is None else name
+    ports = subcircuit_ports(mod)
+    ports += tuple(p for p in dict.fromkeys(extra_ports) if p not in ports)
     lines = [
         f"* {mod.NAME}: output stage from stagefront (model estimate for early design, not sign-off)",
-        f".subckt {name} {' '.join(subcircuit_ports(mod))}",
+        f".subckt {name} {' '.join(ports)}",
     ]
     for spec in mod.TOPOLOGY.devices:
         w, l = wl[spec.role]
