@@ -114,8 +114,10 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
                 df[f"margin_{name}"] = res.margins[name]
         df["_F"] = list(objective_values(res, settings.objectives))
         frames.append(df)
-    if not frames:
-        return pd.DataFrame(columns=["id", "architecture", "overall_front"]), results
+    if not frames:  # nothing feasible: keep the full header so the file still documents its columns
+        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) + list(METRICS)
+        cols += [f"margin_{n}" for n in cnames if n != "converged"]
+        return pd.DataFrame(columns=cols), results
     table = pd.concat(frames, ignore_index=True)
     F_all = np.stack(table.pop("_F").to_list())
     table.insert(2, "overall_front", non_dominated(F_all))
@@ -132,9 +134,9 @@ def _take(design: Design, idx) -> Design:
 
 
 def write_front(path: Path, table: pd.DataFrame) -> None:
-    """front.csv, atomically, floats with full precision."""
+    """front.csv, atomically; floats in their shortest exact (round-trip) form."""
     buf = io.StringIO()
-    table.to_csv(buf, index=False, float_format="%.17g")
+    table.to_csv(buf, index=False)
     write_text(path, buf.getvalue())
 
 
@@ -157,21 +159,23 @@ def versions() -> dict:
 
 
 def run_record(study: Study, settings, runs: list[ArchRun], seed: int, population: int, generations: int,
-               status: str, blocked: dict, wall: float) -> dict:
+               status: str, blocked: dict, wall: float, front_sizes: dict) -> dict:
     """The run.json object."""
     from .search import normaliser
 
     ideal, ref = normaliser(study, settings)
     return {
-        "study": str(study.path),
+        "study": str(Path(study.path).resolve()),
         "study_toml": Path(study.path).read_text(),
-        "technology": str(study.tech_path),
+        "technology": str(Path(study.tech_path).resolve()),
         "technology_toml": Path(study.tech_path).read_text(),
         "seed": seed,
         "population": population,
         "generations": generations,
         "objectives": settings.objectives,
+        "objective_notes": "supply_sens_pct_per_v is minimised in magnitude; front.csv keeps its sign",
         "constraints": list(constraint_names(study)),
+        "constraint_notes": "every front.csv row converged at every PVT point, so 'converged' has no margin column",
         "hypervolume_box": {"ideal": ideal.tolist(), "reference": ref.tolist(),
                             "note": "objectives as minimised (maximised ones negated), normalised to this box"},
         "status": status,
@@ -182,7 +186,7 @@ def run_record(study: Study, settings, runs: list[ArchRun], seed: int, populatio
             r.architecture: {"evaluations": r.evaluations, "generations": r.generations,
                              "wall_time_s": r.wall_time_s, "finished": r.finished,
                              "hypervolume": r.hypervolume, "feasible_per_generation": r.feasible_per_generation,
-                             "front_size": int(np.sum(r.feasible)) if r.feasible is not None else 0,
+                             "front_size": int(front_sizes.get(r.architecture, 0)),
                              "blocked": blocked.get(r.architecture)}
             for r in runs
         },

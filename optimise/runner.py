@@ -4,6 +4,9 @@ The folder holds front.csv, run.json, three plots and checkpoint/ (one pickled s
 per architecture). An existing folder is never overwritten unless asked (--overwrite);
 --resume continues a stopped run from its checkpoints with the settings it was started with.
 Ctrl-C stops the search, writes the front found so far and says so.
+
+Checkpoints are Python pickles: resume only run folders you made yourself, since
+unpickling a file from elsewhere can run code.
 """
 from __future__ import annotations
 
@@ -108,8 +111,9 @@ def optimise_study(study_path, out=None, seed=None, population=None, generations
         if not r.feasible.any():
             blocked[r.architecture] = closest_design_report(study, settings, r)
     write_front(out / "front.csv", table)
+    sizes = table["architecture"].value_counts().to_dict() if len(table) else {}
     record = run_record(study, settings, runs, meta["seed"], meta["population"], meta["generations"], status,
-                        blocked, wall)
+                        blocked, wall, sizes)
     write_json(out / "run.json", record)
     _plots(out, table, settings.objectives, {r.architecture: r.hypervolume for r in runs})
 
