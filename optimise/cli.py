@@ -160,6 +160,12 @@ def cmd_pick(args) -> int:
     return pick_designs(args.run, args.where, args.by, args.count, args.format)
 
 
+def cmd_report(args) -> int:
+    from .report import write_report
+
+    return write_report(args.run, args.out, args.count)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="stagefront",
@@ -217,6 +223,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--count", type=int, default=10, metavar="N", help="designs to show (default 10)")
     p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown table (default) or CSV")
     p.set_defaults(func=cmd_pick)
+
+    p = sub.add_parser(
+        "report", help="write a self-contained HTML report of a run folder (and a Markdown twin) for a lead",
+        description="One HTML page (figures embedded, no network needed) and a Markdown twin with the study, "
+                    "every architecture's front, the picked designs (knee first), the knee at every PVT point, "
+                    "its mismatch spread, Iq against supply, the simulator verification when verify.csv "
+                    "exists, and the assumptions. " + CAUTION)
+    p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
+    p.add_argument("--out", metavar="FILE", help="HTML file (default RUN/report.html); the Markdown twin and "
+                                                 "its PNG figures go beside it (report.md, report-*.png)")
+    p.add_argument("--count", type=int, default=8, metavar="N", help="picked designs to show (default 8)")
+    p.set_defaults(func=cmd_report)
     return parser
 
 
