@@ -166,6 +166,89 @@ def cmd_report(args) -> int:
     return write_report(args.run, args.out, args.count)
 
 
+# --- SPICE hand-off: netlist, verify, calibrate -----------------------------------------
+def _ngspice_guard(run):
+    """Run a hand-off command; ngspice failures print its message and give exit status 1."""
+    from .ngspice import NgspiceError
+
+    try:
+        return run()
+    except NgspiceError as err:
+        print(f"stagefront: ngspice: {err}", file=sys.stderr)
+        return 1
+
+
+def cmd_netlist(args) -> int:
+    from .handoff import write_netlist
+
+    return _ngspice_guard(lambda: write_netlist(args.run, args.row, args.models, args.nmos, args.pmos, args.out,
+                                                args.corner))
+
+
+def cmd_verify(args) -> int:
+    from .verify import verify_run
+
+    return _ngspice_guard(lambda: verify_run(args.run, args.rows, args.all, args.models, args.nmos, args.pmos))
+
+
+def cmd_calibrate(args) -> int:
+    from .calibrate import calibrate_command
+
+    return _ngspice_guard(lambda: calibrate_command(args))
+
+
+def add_handoff_commands(sub) -> None:
+    """Subparsers of the SPICE hand-off: netlist, verify, calibrate."""
+    models = argparse.ArgumentParser(add_help=False)
+    models.add_argument("--nmos", default="nch", metavar="NAME", help="NMOS model name in the card (default nch)")
+    models.add_argument("--pmos", default="pch", metavar="NAME", help="PMOS model name in the card (default pch)")
+    p = sub.add_parser(
+        "netlist", parents=[models], help="write one front.csv row as a SPICE netlist with its test bench",
+        description="One subcircuit from the architecture's topology (devices named by role, W/L on the "
+                    "drawing grid) and a test bench: the rest point (.op, output held at VDD/2 by feedback), "
+                    "a load-current sweep at mid-supply and the two drive-limit sweeps (driven gate at the "
+                    "model's limit, output swept). " + CAUTION)
+    p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
+    p.add_argument("--row", required=True, metavar="ID", help="front.csv row id, e.g. fl-003")
+    p.add_argument("--models", metavar="FILE", help="your model card (.lib with corner sections, or a plain card); "
+                                                      "default: level-1 cards from the study's technology")
+    p.add_argument("--corner", default="tt", help="process corner of the test bench (default tt)")
+    p.add_argument("--out", metavar="FILE", help="write here (atomically) instead of to stdout")
+    p.set_defaults(func=cmd_netlist)
+
+    p = sub.add_parser(
+        "verify", parents=[models], help="simulate chosen designs in ngspice and compare with the model",
+        description="Run ngspice on each chosen design at the study's PVT points the model file supports; "
+                    "compare Iq, headrooms and peak currents with the model; write RUN/verify.csv and print "
+                    "the median and worst error per metric. Exit status 1 when nothing could be verified. "
+                    + CAUTION)
+    p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
+    p.add_argument("--rows", metavar="IDS", help="row ids, comma separated (default: the overall front)")
+    p.add_argument("--all", action="store_true", help="every row of front.csv")
+    p.add_argument("--models", metavar="FILE", help="your model card; default: level-1 cards from the technology")
+    p.set_defaults(func=cmd_verify)
+
+    p = sub.add_parser(
+        "calibrate", parents=[models], help="fit a technology file to a SPICE model card (ngspice DC sweeps)",
+        description="Sweep single NMOS and PMOS devices of the card in ngspice (Id-VGS from weak to strong "
+                    "inversion at several L and VSB, Id-VDS for the Early voltage, two more temperatures, every "
+                    "corner section), fit the technology parameters by least squares, print the fit error per "
+                    "region and write a technology TOML. " + CAUTION)
+    p.add_argument("--models", required=True, metavar="FILE", help="the model card (.lib with sections, or plain)")
+    p.add_argument("--out", required=True, metavar="TECH.toml", help="technology file to write")
+    p.add_argument("--kind", choices=("ekv", "square-law"), default="ekv", help="model kind to fit (default ekv)")
+    p.add_argument("--corner", default="tt", help="section fitted as the typical process (default tt)")
+    p.add_argument("--lmin", metavar="VALUE", help="shortest length fitted and written as l_min, e.g. 0.18u "
+                                                   "(default: l_min of --base)")
+    p.add_argument("--lengths", metavar="L,...", help="lengths swept (default: lmin x 1, 2, 4, 8)")
+    p.add_argument("--vdd", default="1.8", metavar="VALUE", help="largest voltage swept (default 1.8)")
+    p.add_argument("--base", metavar="TECH.toml", help="technology to keep mismatch, capacitance, minimum "
+                                                       "sizes, grid and (without corner sections) corners from")
+    p.add_argument("--name", help="technology name (default: the --out file's stem)")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --out file")
+    p.set_defaults(func=cmd_calibrate)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="stagefront",
@@ -235,6 +318,7 @@ def build_parser() -> argparse.ArgumentParser:
                                                  "its PNG figures go beside it (report.md, report-*.png)")
     p.add_argument("--count", type=int, default=8, metavar="N", help="picked designs to show (default 8)")
     p.set_defaults(func=cmd_report)
+    add_handoff_commands(sub)
     return parser
 
 
