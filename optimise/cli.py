@@ -160,6 +160,12 @@ def cmd_pick(args) -> int:
     return pick_designs(args.run, args.where, args.by, args.count, args.format)
 
 
+def cmd_sweep(args) -> int:
+    from .sweep import run_sweep
+
+    return run_sweep(args.grid, args.out, args.scheduler, args.workers, args.overwrite, args.montecarlo)
+
+
 def cmd_report(args) -> int:
     from .report import write_report
 
@@ -306,6 +312,22 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--count", type=int, default=10, metavar="N", help="designs to show (default 10)")
     p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown table (default) or CSV")
     p.set_defaults(func=cmd_pick)
+
+    p = sub.add_parser(
+        "sweep", help="run every cell of a grid file (a base study and axes to vary) on a Dask cluster",
+        description="Expand a grid file into one study per cell, run each as a Dask task (local worker "
+                    "processes, or the cluster at --scheduler), reuse cells already finished, and write "
+                    "summary.csv, summary.md and fronts.png across the cells. Exit status 1 when a cell "
+                    "failed. " + CAUTION)
+    p.add_argument("grid", help="grid file (TOML): base = STUDY, [axes], optional [search]")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler to use, e.g. tcp://10.0.0.5:8786 "
+                                                           "(default: start a local cluster)")
+    p.add_argument("--workers", type=int, metavar="N", help="worker processes of the local cluster (default 2)")
+    p.add_argument("--out", help="sweep folder (default runs/GRID-NAME); finished cells in it are reused")
+    p.add_argument("--overwrite", action="store_true", help="clear the sweep folder and run every cell again")
+    p.add_argument("--montecarlo", type=int, default=0, metavar="N",
+                   help="also run N Monte Carlo mismatch draws of each cell's knee design on the cluster")
+    p.set_defaults(func=cmd_sweep)
 
     p = sub.add_parser(
         "report", help="write a self-contained HTML report of a run folder (and a Markdown twin) for a lead",
