@@ -107,6 +107,14 @@ class Bullets:
 
 
 @dataclass
+class Details:
+    """A block shown folded in the HTML page (a long table), plainly in Markdown."""
+
+    summary: str
+    table: Table
+
+
+@dataclass
 class Legend:
     """The margin colour legend."""
 
@@ -269,6 +277,7 @@ def gather(run, count: int = 8) -> ReportData:
 # ---------------------------------------------------------------- verification file
 _VERIFY_NAMES = {
     "id": ("id", "design", "design_id", "row"),
+    "architecture": ("architecture", "arch"),
     "corner": ("corner", "process_corner"),
     "temp_c": ("temp_c", "temp", "temperature", "temperature_c", "t_c"),
     "vdd_v": ("vdd_v", "vdd", "supply", "supply_v"),
@@ -277,6 +286,8 @@ _VERIFY_NAMES = {
     "simulator": ("simulator", "sim", "simulated", "simulator_value", "spice", "ngspice"),
     "error": ("error", "err", "rel_error", "relative_error", "error_rel", "error_abs", "abs_error", "deviation",
               "difference", "diff"),
+    "error_unit": ("error_unit", "unit", "error_kind", "kind"),
+    "note": ("note", "notes", "message", "comment"),
 }
 
 
@@ -290,7 +301,7 @@ def read_verification(run_path: Path) -> tuple:
     if not path.is_file():
         return None, "Verification has not been run: this run folder has no verify.csv (`stagefront verify RUN`)."
     try:
-        table = pd.read_csv(path)
+        table = pd.read_csv(path, keep_default_na=False, na_values=[""])
     except (OSError, ValueError) as err:
         return None, f"verify.csv is present but cannot be read ({err}); it is left out."
     rename, taken = {}, set()
@@ -303,25 +314,40 @@ def read_verification(run_path: Path) -> tuple:
                 break
     table = table.rename(columns=rename)
     order = [c for c in _VERIFY_NAMES if c in table.columns] + [c for c in table.columns if c not in _VERIFY_NAMES]
-    return table[order], f"From {path.name}: {len(table)} comparisons."
+    table = table[order]
+    done = int(pd.to_numeric(table["error"], errors="coerce").notna().sum()) if "error" in table else len(table)
+    return table, (f"From {path.name}: {len(table)} comparisons, {done} with a simulator result"
+                   + (f", {len(table) - done} without (see the note column)." if done < len(table) else "."))
 
 
-def _is_volts(metric) -> bool:
+def _volts(row: dict) -> bool:
+    """True when the row's error is an absolute voltage (headrooms), False when relative."""
+    unit = str(row.get("error_unit", "")).strip().lower()
+    if unit in ("v", "volt", "volts", "abs", "absolute"):
+        return True
+    if unit in ("rel", "relative", "1", "fraction"):
+        return False
+    metric = row.get("metric")
     return isinstance(metric, str) and (metric.endswith("_v") or "headroom" in metric)
 
 
-def _verify_cell(col: str, value, metric) -> Cell:
+def _show_error(v: float, volts: bool) -> str:
+    return f"{v * 1e3:+.3g} mV" if volts else f"{100 * v:+.3g} %"
+
+
+def _verify_cell(col: str, row: dict) -> Cell:
+    value, metric = row[col], row.get("metric")
     if isinstance(value, (int, float, np.number)) and not isinstance(value, bool):
         v = float(value)
         if not np.isfinite(v):
-            return Cell("n/a", None)
+            return Cell("", None)
         if col == "error":
-            return Cell(f"{v * 1e3:.3g} mV" if _is_volts(metric) else f"{100 * v:.3g} %", abs(v))
+            return Cell(_show_error(v, _volts(row)), abs(v))
         if col in ("model", "simulator") and isinstance(metric, str):
             unit = {"_a": "A", "_v": "V", "_w": "W", "_hz": "Hz", "_f": "F"}.get(metric[metric.rfind("_"):], "")
             return Cell(format_eng(v, unit) if unit else _g(v, 6), v)
         return Cell(_g(v, 6), v)
-    return Cell("" if value is None or (isinstance(value, float) and np.isnan(value)) else str(value))
+    return Cell("" if value is None else str(value))
 
 
 # ---------------------------------------------------------------- figures
@@ -486,21 +512,32 @@ def _fronts(data: ReportData) -> list:
     return out
 
 
+def _role_groups(rows: pd.DataFrame, roles: list) -> list:
+    """Roles grouped where every shown row gives them the same W, L and bulk (tied devices)."""
+    def sizes(r):
+        return tuple(tuple(rows[f"{r}_{x}"].tolist()) if f"{r}_{x}" in rows else () for x in ("w_um", "l_um", "bulk"))
+
+    groups: dict = {}
+    for r in roles:
+        groups.setdefault(sizes(r), []).append(r)
+    return list(groups.values())
+
+
 def _picked(data: ReportData) -> list:
     p = data.picks
     archs = list(dict.fromkeys(p["architecture"]))
-    roles = list(dict.fromkeys(r for a in archs for r in get_stage(a).ROLES))
+    roles = _role_groups(p, list(dict.fromkeys(r for a in archs for r in get_stage(a).ROLES)))
     bias = list(dict.fromkeys((f"{b}_{UNIT_SUFFIX[u]}", b, u) for a in archs for b, u in get_stage(a).BIAS.items()))
     margins = [c for c in p.columns if c.startswith("margin_")]
     header = [("rank", "#"), ("pick", "picked as"), ("id", "id"), ("architecture", "architecture")]
-    header += [(f"{r}_w_um", f"{r} W/L [um]") for r in roles]
+    header += [(f"{group[0]}_w_um", f"{' = '.join(group)} W/L [um]") for group in roles]
     header += [(col, f"{b} [{'uA' if u == 'A' else 'kohm'}]") for col, b, u in bias]
     header += [("iq_a", "Iq [uA]")] + [(n, f"{OBJ_SHOW[n][0]} [{OBJ_SHOW[n][1]}]") for n in data.objectives]
     header += [("knee_distance", "knee distance")] + [(c, f"{c[len('margin_'):]} margin [%]") for c in margins]
     rows = []
     for k, row in enumerate(p.to_dict("records"), start=1):
         cells = [Cell(str(k), k), Cell(row["pick"]), Cell(row["id"]), Cell(row["architecture"])]
-        for r in roles:
+        for r, *_ in roles:
             w, l = float(row.get(f"{r}_w_um", np.nan)), float(row.get(f"{r}_l_um", np.nan))
             own = " (own well)" if row.get(f"{r}_bulk") == "source" else ""
             cells.append(Cell(f"{_g(w)} / {_g(l)}{own}", w) if np.isfinite(w) else Cell("", None))
@@ -514,7 +551,8 @@ def _picked(data: ReportData) -> list:
         rows.append(cells)
     return [f"{len(p)} of {len(data.table)} front designs: the knee first (the design nearest the ideal point of the "
             f"box the front spans, every objective scaled to the front's own range), then the best design per "
-            f"objective, then the next designs by knee distance. Sizes W / L in um; bias currents in uA, resistors "
+            f"objective, then the next designs by knee distance. Sizes W / L in um (devices of equal size in every row "
+            f"share a column); bias currents in uA, resistors "
             f"in kohm; margins are each constraint's worst relative margin over PVT. Click a column header to sort.",
             Table("picked", header, rows), Legend()]
 
@@ -585,15 +623,32 @@ def _verify(data: ReportData) -> list:
     table, note = data.verify
     if table is None:
         return [note]
-    header = [(c, {"temp_c": "temp [C]", "vdd_v": "vdd [V]"}.get(c, c)) for c in table.columns]
-    rows = [[_verify_cell(c, row[c], row.get("metric")) for c in table.columns] for row in table.to_dict("records")]
-    out = [note + " Errors: relative in percent, absolute in millivolts for voltages (headrooms)."]
+    records = table.to_dict("records")
+    out = [note + " Errors are simulator minus model: relative for currents (%), in millivolts for voltages "
+                  "(headrooms)."]
     if {"metric", "error"} <= set(table.columns) and len(table):
-        err = pd.to_numeric(table["error"], errors="coerce").abs()
-        worst = err.groupby(table["metric"]).max()
-        out.append(Bullets([f"worst {m}: " + (f"{e * 1e3:.3g} mV" if _is_volts(m) else f"{100 * e:.3g} %")
-                            for m, e in worst.items() if np.isfinite(e)]))
-    out.append(Table("verification", header, rows))
+        rows = []
+        for metric in dict.fromkeys(table["metric"]):
+            rs = [r for r in records if r["metric"] == metric and isinstance(r["error"], (int, float))
+                  and np.isfinite(r["error"])]
+            if not rs:
+                rows.append([Cell(str(metric)), Cell("0", 0), Cell("", None), Cell("", None), Cell("")])
+                continue
+            err = np.array([float(r["error"]) for r in rs])
+            w = rs[int(np.argmax(np.abs(err)))]
+            at = " ".join(str(w[c]) for c in ("id", "corner") if c in w)
+            at += "".join(f" {_g(w[c])} {u}" for c, u in (("temp_c", "C"), ("vdd_v", "V")) if c in w)
+            rows.append([Cell(str(metric)), Cell(str(len(rs)), len(rs)),
+                         Cell(_show_error(float(np.median(np.abs(err))), _volts(w)).lstrip("+"),
+                              float(np.median(np.abs(err)))),
+                         Cell(_show_error(float(w["error"]), _volts(w)), abs(float(w["error"]))), Cell(at)])
+        out.append(Table("verification-summary", [("metric", "metric"), ("points", "points"),
+                                                  ("median", "median |error|"), ("worst", "worst error"),
+                                                  ("at", "worst at")], rows))
+    shown = [c for c in table.columns if c != "error_unit"]
+    header = [(c, {"temp_c": "temp [C]", "vdd_v": "vdd [V]"}.get(c, c)) for c in shown]
+    out.append(Details(f"All {len(records)} comparisons",
+                       Table("verification", header, [[_verify_cell(c, r) for c in shown] for r in records])))
     return out
 
 
@@ -670,6 +725,7 @@ td.tight,.sw.tight{background:%(tight)s}td.close,.sw.close{background:%(close)s}
 td.ample,.sw.ample{background:%(ample)s}td.off,.sw.off{background:%(off)s}
 .legend{font-size:.85em}.sw{display:inline-block;width:1.1em;height:.9em;border:1px solid #999;
 vertical-align:middle;margin:0 4px 0 12px}
+details summary{cursor:pointer;color:#2f5d7c;margin:6px 0}
 figure{margin:10px 0}figure img{max-width:100%%;border:1px solid #dde}#fig-fronts img{max-width:980px}figcaption{font-size:.85em;color:#444}
 """ % TONES
 
@@ -736,6 +792,27 @@ def _sort_text(v) -> str:
     return repr(v) if np.isfinite(v) else ("" if np.isnan(v) else "Infinity" if v > 0 else "-Infinity")
 
 
+def _html_table(b: Table) -> str:
+    e = html.escape
+    text_cols = [_is_text_column(b.rows, k) for k in range(len(b.header))]
+    text_attr = ' class="text"'
+    head = "".join(f'<th data-key="{e(k)}"{text_attr if text_cols[i] else ""}>{e(lab)}</th>'
+                   for i, (k, lab) in enumerate(b.header))
+    body = []
+    for i, row in enumerate(b.rows):
+        rc = b.row_class[i] if i < len(b.row_class) else ""
+        tds = []
+        for k, c in enumerate(row):
+            classes = " ".join(x for x in ("text" if text_cols[k] else "", c.tone) if x)
+            attr = (f' class="{classes}"' if classes else "") + (
+                "" if c.sort is None else f' data-sort="{e(_sort_text(c.sort))}"')
+            tds.append(f"<td{attr}>{e(c.text)}</td>")
+        body.append((f'<tr class="{rc}">' if rc else "<tr>") + "".join(tds) + "</tr>")
+    cls = ' class="sortable"' if b.sortable else ""
+    return (f'<div class="scroll"><table id="{b.key}"{cls}><thead><tr>{head}</tr></thead>'
+            f"<tbody>{''.join(body)}</tbody></table></div>")
+
+
 def render_html(title: str, secs: list) -> str:
     """The self-contained page: inline CSS and JS, figures as data URIs, no external resource."""
     e = html.escape
@@ -757,22 +834,9 @@ def render_html(title: str, secs: list) -> str:
                 out.append(f'<figure id="fig-{b.key}"><img alt="{e(b.caption)}" src="data:image/png;base64,{src}">'
                            f"<figcaption>{e(b.caption)}</figcaption></figure>")
             elif isinstance(b, Table):
-                text_cols = [_is_text_column(b.rows, k) for k in range(len(b.header))]
-                cls = ' class="sortable"' if b.sortable else ""
-                head = "".join(f'<th data-key="{e(k)}"{" class=text" if text_cols[i] else ""}>{e(lab)}</th>'
-                               for i, (k, lab) in enumerate(b.header))
-                body = []
-                for i, row in enumerate(b.rows):
-                    rc = b.row_class[i] if i < len(b.row_class) and b.row_class[i] else ""
-                    tds = []
-                    for k, c in enumerate(row):
-                        classes = " ".join(x for x in ("text" if text_cols[k] else "", c.tone) if x)
-                        attr = (f' class="{classes}"' if classes else "") + (
-                            "" if c.sort is None else f' data-sort="{e(_sort_text(c.sort))}"')
-                        tds.append(f"<td{attr}>{e(c.text)}</td>")
-                    body.append((f'<tr class="{rc}">' if rc else "<tr>") + "".join(tds) + "</tr>")
-                out.append(f'<div class="scroll"><table id="{b.key}"{cls}><thead><tr>{head}</tr></thead>'
-                           f"<tbody>{''.join(body)}</tbody></table></div>")
+                out.append(_html_table(b))
+            elif isinstance(b, Details):
+                out.append(f"<details><summary>{e(b.summary)}</summary>{_html_table(b.table)}</details>")
         out.append("</section>")
     out.append(f'<p class="caution">{e(CAUTION)}</p>')
     out.append(f"<script>{_JS}</script></body></html>")
@@ -795,9 +859,12 @@ def render_markdown(title: str, secs: list, figure_files: dict) -> str:
                 out += [_legend_text(True), ""]
             elif isinstance(b, Figure):
                 out += [f"![{b.caption}]({figure_files[b.key]})", "", f"*{b.caption}*", ""]
-            elif isinstance(b, Table):
-                rows = [[esc(c.text + mark.get(c.tone, "")) for c in r] for r in b.rows]
-                out += [markdown_table([esc(lab) for _, lab in b.header], rows), ""]
+            elif isinstance(b, (Table, Details)):
+                t = b if isinstance(b, Table) else b.table
+                if isinstance(b, Details):
+                    out += [f"{b.summary}:", ""]
+                rows = [[esc(c.text + mark.get(c.tone, "")) for c in r] for r in t.rows]
+                out += [markdown_table([esc(lab) for _, lab in t.header], rows), ""]
     out += [f"> **{CAUTION}**", ""]
     return "\n".join(out)
 
