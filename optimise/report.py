@@ -171,16 +171,22 @@ def study_of_run(run_path: Path, record: dict) -> Study:
                              err.hint) from None
 
 
-def population(rows: pd.DataFrame) -> Design:
-    """One Design of all rows (one architecture) of a front table."""
-    try:
-        parts = [design_from_row(r) for _, r in rows.iterrows()]
-    except KeyError as err:
-        raise InputError("front.csv", f"has no column {err.args[0]!r} for a design of "
-                                      f"{rows['architecture'].iloc[0]}", hint="re-run the search") from None
-    first = parts[0]
-    cat = lambda attr: {k: np.concatenate([getattr(p, attr)[k] for p in parts]) for k in getattr(first, attr)}  # noqa: E731
-    return Design(first.architecture, cat("w"), cat("l"), cat("bias"), first.tied)
+def populations(rows: pd.DataFrame) -> list[tuple[list, Design]]:
+    """Front rows as populations: (row ids, Design) per architecture and set of bulk ties."""
+    groups: dict = {}
+    for _, row in rows.iterrows():
+        try:
+            d = design_from_row(row)
+        except KeyError as err:
+            raise InputError("front.csv", f"has no column {err.args[0]!r} for the {row['architecture']} design "
+                                          f"{row['id']}", hint="re-run the search with this version") from None
+        groups.setdefault((d.architecture, d.tied), []).append((row["id"], d))
+    out = []
+    for (arch, tied), members in groups.items():
+        ds = [d for _, d in members]
+        cat = lambda attr: {k: np.concatenate([getattr(d, attr)[k] for d in ds]) for k in getattr(ds[0], attr)}  # noqa: E731
+        out.append(([i for i, _ in members], Design(arch, cat("w"), cat("l"), cat("bias"), tied)))
+    return out
 
 
 def typical(cond: Conditions) -> Corner:
@@ -254,7 +260,7 @@ def gather(run, count: int = 8) -> ReportData:
     if not len(picks):
         return data
     cond, tech, targets = study.conditions, study.tech, study.targets
-    knee_design = population(picks.iloc[:1])
+    [(_, knee_design)] = populations(picks.iloc[:1])
     data.knee = evaluate(knee_design, tech, cond, targets)
     corner, temp, vnom = typical(cond), cond.temps[0], cond.vdd_nom
     iq, ok = monte_carlo_iq(knee_design, tech, corner, temp, vnom, MC_SAMPLES,
@@ -265,11 +271,10 @@ def gather(run, count: int = 8) -> ReportData:
                "iq_nom": float(data.knee.pvt["iq_a"][0, j]),
                "sigma_lin_pct": float(data.knee.pvt["iq_sigma_pct"][0, j])}
     supplies = np.unique(np.r_[np.linspace(cond.vdd_min, cond.vdd_max, SWEEP_POINTS), vnom])
-    for arch, rows in picks.groupby("architecture", sort=False):
-        design = population(rows)
+    for ids, design in populations(picks):
         iq_v = np.stack([evaluate(design, tech, Conditions((corner,), (temp,), v, v, v), targets).pvt["iq_a"][:, 0]
                          for v in supplies], axis=1)
-        for k, rid in enumerate(rows["id"]):
+        for k, rid in enumerate(ids):
             data.sweep[rid] = (supplies, iq_v[k])
     return data
 
@@ -455,7 +460,7 @@ def _job(data: ReportData) -> list:
         ("study", f"{s.name} ({rec.get('study', '')})"),
         ("run folder", str(data.path)),
         ("process", f"{s.tech.name} ({rec.get('technology', '')})"),
-        ("device model", s.tech.model.value),
+        ("device model", "EKV, all regions" if s.tech.model.value == "ekv" else "square law (SPICE level 1)"),
         ("supply", f"{c.vdd_nom:g} V nominal, {c.vdd_min:g} V to {c.vdd_max:g} V"),
         ("corners", ", ".join(k.value for k in c.corners)),
         ("temperatures", ", ".join(f"{x - ZERO_CELSIUS:g} C" for x in c.temps) + " (first is nominal)"),
@@ -686,8 +691,9 @@ def _assumptions(data: ReportData) -> list:
 def sections(data: ReportData) -> list:
     """(key, title, blocks) for every section of SECTIONS."""
     n = len(data.table)
-    glance = [f"{n} Pareto designs in front.csv: " + (", ".join(
-        f"{a} {c}" for a, c in data.table["architecture"].value_counts(sort=False).items()) if n else "none") + "."]
+    glance = [f"{n} Pareto designs in front.csv: " + ", ".join(
+        f"{a} {c}" for a, c in data.table["architecture"].value_counts(sort=False).items()) + "."
+              if n else "No Pareto design in front.csv."]
     none = [a for a, info in data.record.get("architectures", {}).items()
             if not (len(data.table) and (data.table["architecture"] == a).any())]
     if none:

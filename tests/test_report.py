@@ -217,6 +217,18 @@ def test_bad_run_folders_are_refused(tmp_path, report, capsys):
     assert main(["report", str(report[0]), "--count", "0"]) == 2
 
 
+def test_a_run_without_feasible_designs_still_reports(report, tmp_path):
+    run = tmp_path / "empty"
+    run.mkdir()
+    shutil.copy(report[0] / "run.json", run / "run.json")
+    (run / "front.csv").write_text((report[0] / "front.csv").read_text().splitlines()[0] + "\n")
+    write_report(run, stream=open("/dev/null", "w"))
+    page, md = (run / "report.html").read_text(), (run / "report.md").read_text()
+    for _, title in SECTIONS:
+        assert f"## {title}\n" in md
+    assert "No Pareto design in front.csv." in md and "<img" not in page and CAUTION in md
+
+
 def test_sort_keys_are_numbers_where_the_column_is_numeric(report):
     # The page's sorting script reads data-sort; numeric columns must carry plain numbers.
     picked = tables_of(report[1])["picked"]
