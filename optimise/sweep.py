@@ -54,17 +54,17 @@ def run_cell(study_path: str, out: str) -> dict:
     """The task of one cell: `optimise_study` into `out` (replacing it), quietly.
 
     Runs on a Dask worker. Raises when the study is invalid or the search does not finish.
-    Returns the run's wall time in seconds and its printed summary.
+    Returns the task's wall time in seconds (what optimise prints is dropped: the sweep
+    reads the run folder).
     """
     from .runner import optimise_study
 
     t0 = time.perf_counter()
-    text = io.StringIO()
     with contextlib.redirect_stderr(io.StringIO()):  # per-generation progress lines
-        status = optimise_study(study_path, out, overwrite=True, stream=text)
+        status = optimise_study(study_path, out, overwrite=True, stream=io.StringIO())
     if status != 0:
         raise RuntimeError(f"the search stopped with status {status} before it finished")
-    return {"wall_time_s": time.perf_counter() - t0, "log": text.getvalue()}
+    return {"wall_time_s": time.perf_counter() - t0}
 
 
 def montecarlo_task(study, row: dict, samples: int, seed: int) -> dict:
@@ -112,8 +112,12 @@ def montecarlo_task(study, row: dict, samples: int, seed: int) -> dict:
 
 
 def _reason(future) -> str:
-    err = future.exception()
-    return f"{type(err).__name__}: {err}"
+    """One line: the exception a failed task raised (or why it has none, e.g. cancelled)."""
+    try:
+        err = future.exception()
+    except Exception as why:  # a cancelled or lost task has no exception to fetch
+        return f"task {future.status}: {type(why).__name__}: {why}"
+    return " ".join(f"{type(err).__name__}: {err}".split())
 
 
 def montecarlo_on_cluster(client, jobs: dict, samples: int, seed: int = 1) -> dict:
@@ -294,8 +298,8 @@ def run_sweep(grid_path, out=None, scheduler: str | None = None, workers: int | 
     import distributed
 
     record.update({"status": "interrupted" if interrupted else "done", "wall_time_s": time.perf_counter() - t0,
-              "versions": {**versions(), "dask": dask.__version__, "distributed": distributed.__version__},
-              "cells": [{"name": c.name, "values": c.values, **states[c.name]} for c in grid.cells]})
+                   "versions": {**versions(), "dask": dask.__version__, "distributed": distributed.__version__},
+                   "cells": [{"name": c.name, "values": c.values, **states[c.name]} for c in grid.cells]})
     write_text(out / "sweep.json", json.dumps(record, indent=1, default=str) + "\n")
 
     failed = [r for r in rows if r["status"] == "failed"]
@@ -330,9 +334,9 @@ def _run_cells(client, grid: Grid, out: Path, todo, states, done: int, total: in
                 states[cell.name] = {"status": "finished", "wall_time_s": res["wall_time_s"]}
                 p(f"[{done}/{total}] {cell.name}: finished in {res['wall_time_s']:.1f} s")
             else:
-                reason = " ".join(_reason(fut).split())
+                reason = _reason(fut)
                 states[cell.name] = {"status": "failed", "reason": reason}
-                tb = "".join(traceback.format_tb(fut.traceback())) if fut.traceback() else ""
+                tb = "".join(traceback.format_tb(fut.traceback())) if fut.status == "error" else ""
                 write_text(out / "cells" / cell.name / "error.txt", f"{tb}{reason}\n")
                 p(f"[{done}/{total}] {cell.name}: FAILED (after one retry): {reason}")
     except KeyboardInterrupt:
