@@ -54,7 +54,7 @@ from models.stages import STAGES
 from .errors import InputError
 from .study import (CONDITION_KEYS, DRIVER_KEYS, LOAD_KEYS, SUPPLY_KEYS, TARGET_UNITS, load_study,
                     read_toml)
-from .techfile import _check_keys, _closest, _number, _show, _sub_table
+from .tables import check_keys, closest, number, show, sub_table
 
 GRID_KEYS = ("base", "name", "description", "axes", "search")
 SEARCH_OVERRIDES = {"population": 4, "generations": 1, "checkpoint_every": 1}  # key -> smallest allowed
@@ -165,10 +165,10 @@ def load_grid(path) -> Grid:
     path = Path(path)
     where = str(path)
     data = read_toml(path)
-    _check_keys(where, "", data, GRID_KEYS, ("base", "axes"))
+    check_keys(where, "", data, GRID_KEYS, ("base", "axes"))
     base_ref = data["base"]
     if not isinstance(base_ref, str) or not base_ref:
-        raise InputError(where, f"base = {_show(base_ref)} is not a file path",
+        raise InputError(where, f"base = {show(base_ref)} is not a file path",
                          "a path to a study TOML file, relative to the grid file")
     base = path.parent / base_ref
     if not base.is_file():
@@ -180,16 +180,16 @@ def load_grid(path) -> Grid:
     objectives = load_search(study).objectives
     name = data.get("name", path.stem)
     if not isinstance(name, str) or not name:
-        raise InputError(where, f"name = {_show(name)} is not a non-empty string")
+        raise InputError(where, f"name = {show(name)} is not a non-empty string")
 
-    search = _sub_table(where, "", "search", data.get("search", {}))
-    _check_keys(where, "search", search, tuple(SEARCH_OVERRIDES))
+    search = sub_table(where, "", "search", data.get("search", {}))
+    check_keys(where, "search", search, tuple(SEARCH_OVERRIDES))
     for key, value in search.items():
         if not isinstance(value, int) or isinstance(value, bool) or value < SEARCH_OVERRIDES[key]:
-            raise InputError(where, f"[search] {key} = {_show(value)} is not allowed",
+            raise InputError(where, f"[search] {key} = {show(value)} is not allowed",
                              f"an integer >= {SEARCH_OVERRIDES[key]}")
 
-    axes = _flatten(_sub_table(where, "", "axes", data["axes"]))
+    axes = _flatten(sub_table(where, "", "axes", data["axes"]))
     if not axes:
         raise InputError(where, "[axes] is empty", "one or more axes, e.g. architecture = [\"floating-loop\"]")
     for key, values in axes.items():
@@ -203,33 +203,33 @@ def _check_axis(where, key, values, study, folder: Path) -> None:
     if key not in STUDY_AXES and not (key.split(".")[0] in ("bounds", "ties") and _has_path(raw, key.split("."))):
         raise InputError(where, f"[axes] unknown key {key!r}",
                          ", ".join(STUDY_AXES) + ", or a bounds./ties. path present in the base study",
-                         _closest(key, STUDY_AXES) or "quote dotted keys: \"supply.nominal\" = [3.0, 3.3]")
+                         closest(key, STUDY_AXES) or "quote dotted keys: \"supply.nominal\" = [3.0, 3.3]")
     if not isinstance(values, list) or not values:
-        raise InputError(where, f"[axes] {key} = {_show(values)} is not a non-empty array",
+        raise InputError(where, f"[axes] {key} = {show(values)} is not a non-empty array",
                          "an array of the values to try, e.g. [3.0, 3.3]")
     shown = [json.dumps(v, sort_keys=True, default=str) for v in values]
     for k, s in enumerate(shown):
         if s in shown[:k]:
-            raise InputError(where, f"[axes] {key} repeats the value {_show(values[k])}", "each value once")
+            raise InputError(where, f"[axes] {key} repeats the value {show(values[k])}", "each value once")
     for v in values:
         if key == "architecture":
             if not isinstance(v, str) or v not in STAGES:
-                raise InputError(where, f"[axes] architecture: {_show(v)} is not known", ", ".join(STAGES),
-                                 _closest(v, STAGES) if isinstance(v, str) else "")
+                raise InputError(where, f"[axes] architecture: {show(v)} is not known", ", ".join(STAGES),
+                                 closest(v, STAGES) if isinstance(v, str) else "")
             if v not in raw.get("bounds", {}):
                 raise InputError(where, f"[axes] architecture: {v!r} has no [bounds.{v}] table in the base "
                                         f"study {study.path}", f"architectures with bounds there: "
                                  f"{', '.join(raw.get('bounds', {})) or 'none'}", f"add [bounds.{v}] to the base study")
         elif key == "technology":
             if not isinstance(v, str) or not (folder / v).is_file():
-                raise InputError(where, f"[axes] technology: {_show(v)} is not a technology file "
+                raise InputError(where, f"[axes] technology: {show(v)} is not a technology file "
                                         f"(looked for {folder / str(v)})",
                                  "paths relative to the grid file", "check the path")
         elif key == "seed":
             if not isinstance(v, int) or isinstance(v, bool) or v < 0:
-                raise InputError(where, f"[axes] seed: {_show(v)} is not allowed", "non-negative integers")
+                raise InputError(where, f"[axes] seed: {show(v)} is not allowed", "non-negative integers")
         elif key.startswith("supply."):
-            _number(where, "axes", key, v, "V")
+            number(where, "axes", key, v, "V")
 
 
 def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Path) -> tuple[Cell, ...]:
@@ -262,7 +262,7 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
             else:
                 _set_path(data, k.split("."), copy.deepcopy(v))
         if "supply.nominal" in values:
-            vnom = _number(where, "axes", "supply.nominal", values["supply.nominal"], "V")
+            vnom = number(where, "axes", "supply.nominal", values["supply.nominal"], "V")
             for end, base_v in (("min", cond.vdd_min), ("max", cond.vdd_max)):
                 if f"supply.{end}" not in values and end in study.raw.get("supply", {}):
                     data["supply"][end] = float(f"{vnom * base_v / cond.vdd_nom:.6g}")

@@ -31,7 +31,7 @@ from models.stages import get_stage
 
 from .errors import InputError
 from .study import Study
-from .techfile import _check_keys, _closest, _number, _show, _sub_table
+from .tables import check_keys, closest, number, show, sub_table
 
 # Objective name -> (unit, default sense). swing_v is maximised; supply sensitivity is
 # minimised in magnitude.
@@ -132,13 +132,13 @@ class SearchSettings:
 
 def _pair(where, table, key, value, unit, scale=1.0):
     if not isinstance(value, list) or len(value) != 2:
-        raise InputError(where, f"[{table}] {key} = {_show(value)} is not a [lower, upper] pair",
+        raise InputError(where, f"[{table}] {key} = {show(value)} is not a [lower, upper] pair",
                          f"two numbers in {unit}, e.g. [1, 100]")
-    lo, hi = (_size(where, table, key, x) if scale != 1.0 else _number(where, table, key, x, unit) for x in value)
+    lo, hi = (_size(where, table, key, x) if scale != 1.0 else number(where, table, key, x, unit) for x in value)
     if not (lo > 0 and hi > 0):
-        raise InputError(where, f"[{table}] {key} = {_show(value)} must be positive", f"0 < lower <= upper ({unit})")
+        raise InputError(where, f"[{table}] {key} = {show(value)} must be positive", f"0 < lower <= upper ({unit})")
     if lo > hi:
-        raise InputError(where, f"[{table}] {key} = {_show(value)}: lower bound above upper bound",
+        raise InputError(where, f"[{table}] {key} = {show(value)}: lower bound above upper bound",
                          "lower <= upper", "the two ends look swapped")
     return lo, hi
 
@@ -146,45 +146,45 @@ def _pair(where, table, key, value, unit, scale=1.0):
 def _size(where, table, key, value) -> float:
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return float(value) * 1e-6
-    return _number(where, table, key, value, "m")
+    return number(where, table, key, value, "m")
 
 
 def load_search(study: Study) -> SearchSettings:
     """Read and check the search tables of a study (objectives, bounds, ties, search)."""
     where, data, tech = str(study.path), study.raw, study.tech
-    obj_t = _sub_table(where, "", "objectives", data.get("objectives", {"power_w": "min", "swing_v": "max"}))
-    _check_keys(where, "objectives", obj_t, tuple(OBJECTIVES))
+    obj_t = sub_table(where, "", "objectives", data.get("objectives", {"power_w": "min", "swing_v": "max"}))
+    check_keys(where, "objectives", obj_t, tuple(OBJECTIVES))
     if not obj_t:
         raise InputError(where, "[objectives] is empty", ", ".join(OBJECTIVES), "name at least one objective")
     objectives = {}
     for name, sense in obj_t.items():
         if sense not in ("min", "max"):
-            raise InputError(where, f"[objectives] {name} = {_show(sense)} is not a sense", "\"min\" or \"max\"")
+            raise InputError(where, f"[objectives] {name} = {show(sense)} is not a sense", "\"min\" or \"max\"")
         objectives[name] = sense
 
-    bounds_t = _sub_table(where, "", "bounds", data.get("bounds", {}))
-    ties_t = _sub_table(where, "", "ties", data.get("ties", {}))
+    bounds_t = sub_table(where, "", "bounds", data.get("bounds", {}))
+    ties_t = sub_table(where, "", "ties", data.get("ties", {}))
     for table, t in (("bounds", bounds_t), ("ties", ties_t)):
         for arch in t:
             if arch not in study.architectures:
                 raise InputError(where, f"[{table}.{arch}] names an architecture the study does not search",
-                                 ", ".join(study.architectures), _closest(arch, study.architectures))
+                                 ", ".join(study.architectures), closest(arch, study.architectures))
     spaces = {}
     for arch in study.architectures:
-        spaces[arch] = _space(where, arch, _sub_table(where, "bounds", arch, bounds_t.get(arch, {})),
-                              _sub_table(where, "ties", arch, ties_t.get(arch, {})), tech)
+        spaces[arch] = _space(where, arch, sub_table(where, "bounds", arch, bounds_t.get(arch, {})),
+                              sub_table(where, "ties", arch, ties_t.get(arch, {})), tech)
 
-    search_t = _sub_table(where, "", "search", data.get("search", {}))
-    _check_keys(where, "search", search_t, SEARCH_KEYS)
+    search_t = sub_table(where, "", "search", data.get("search", {}))
+    check_keys(where, "search", search_t, SEARCH_KEYS)
     ints = {}
     for key, default, lo in (("population", 40, 4), ("generations", 30, 1), ("checkpoint_every", 5, 1)):
         val = search_t.get(key, default)
         if not isinstance(val, int) or isinstance(val, bool) or val < lo:
-            raise InputError(where, f"[search] {key} = {_show(val)} is not allowed", f"an integer >= {lo}")
+            raise InputError(where, f"[search] {key} = {show(val)} is not allowed", f"an integer >= {lo}")
         ints[key] = val
-    ref_t = _sub_table(where, "search", "reference", search_t.get("reference", {}))
-    _check_keys(where, "search.reference", ref_t, tuple(objectives))
-    reference = {k: _number(where, "search.reference", k, v, "") for k, v in ref_t.items()}
+    ref_t = sub_table(where, "search", "reference", search_t.get("reference", {}))
+    check_keys(where, "search.reference", ref_t, tuple(objectives))
+    reference = {k: number(where, "search.reference", k, v, "") for k, v in ref_t.items()}
     for k, v in reference.items():
         if not v > 0:
             raise InputError(where, f"[search.reference] {k} = {v:g} must be positive", "> 0")
@@ -195,17 +195,17 @@ def load_search(study: Study) -> SearchSettings:
 def _space(where, arch, bounds, ties, tech) -> Space:
     stage = get_stage(arch)
     table = f"bounds.{arch}"
-    _check_keys(where, table, bounds, stage.ROLES + tuple(stage.BIAS))
+    check_keys(where, table, bounds, stage.ROLES + tuple(stage.BIAS))
     # Ties: role -> role, resolved to a root; no cycles, roles must exist and share polarity.
     pol = {s.role: s.polarity for s in stage.TOPOLOGY.devices}
     resolved = {}
     for role, src in ties.items():
         if role not in stage.ROLES:
             raise InputError(where, f"[ties.{arch}] {role} is not a role of {arch}", ", ".join(stage.ROLES),
-                             _closest(role, stage.ROLES))
+                             closest(role, stage.ROLES))
         if not isinstance(src, str) or src not in stage.ROLES:
-            raise InputError(where, f"[ties.{arch}] {role} = {_show(src)} ties to a missing role",
-                             ", ".join(r for r in stage.ROLES if r != role), _closest(str(src), stage.ROLES))
+            raise InputError(where, f"[ties.{arch}] {role} = {show(src)} ties to a missing role",
+                             ", ".join(r for r in stage.ROLES if r != role), closest(str(src), stage.ROLES))
         if pol[src] != pol[role]:
             raise InputError(where, f"[ties.{arch}] {role} = {src!r} ties devices of opposite polarity",
                              "a role of the same polarity")
@@ -226,8 +226,8 @@ def _space(where, arch, bounds, ties, tech) -> Space:
                                  "bounds on the untied role only")
             continue
         spec = bounds.get(role, {})
-        spec = _sub_table(where, table, role, spec)
-        _check_keys(where, f"{table}.{role}", spec, ("w", "l", "bulk"))
+        spec = sub_table(where, table, role, spec)
+        check_keys(where, f"{table}.{role}", spec, ("w", "l", "bulk"))
         mt = tech.mos(pol[role])
         w = _pair(where, f"{table}.{role}", "w", spec["w"], "um", 1e-6) if "w" in spec else (mt.w_min, 1000 * mt.w_min)
         l = _pair(where, f"{table}.{role}", "l", spec["l"], "um", 1e-6) if "l" in spec else (mt.l_min, 8 * mt.l_min)
@@ -238,7 +238,7 @@ def _space(where, arch, bounds, ties, tech) -> Space:
         variables += [Variable(f"{role}.w", "w", role, *w), Variable(f"{role}.l", "l", role, *l)]
         bulk_v = spec.get("bulk", "rail")
         if bulk_v not in ("rail", "source"):
-            raise InputError(where, f"[{table}.{role}] bulk = {_show(bulk_v)} is not allowed", "\"rail\" or \"source\"")
+            raise InputError(where, f"[{table}.{role}] bulk = {show(bulk_v)} is not allowed", "\"rail\" or \"source\"")
         if bulk_v == "source":
             bulk.add(role)
     for role, src in resolved.items():

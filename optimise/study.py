@@ -18,7 +18,8 @@ from models.stages import STAGES, get_stage
 from models.tech import Corner, Tech
 
 from .errors import InputError
-from .techfile import _build, _check_keys, _closest, _number, _show, _sub_table, load_tech
+from .tables import build, check_keys, closest, number, show, sub_table
+from .techfile import load_tech
 
 STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
               "driver", "targets", "objectives", "bounds", "ties", "search")
@@ -64,7 +65,7 @@ def read_toml(path) -> dict:
 def _list(where, table, key, value, kind=str):
     if not isinstance(value, list) or not value or not all(isinstance(v, kind) and not isinstance(v, bool)
                                                           for v in value):
-        raise InputError(where, f"[{table}] {key} = {_show(value)} is not a non-empty array of "
+        raise InputError(where, f"[{table}] {key} = {show(value)} is not a non-empty array of "
                                 f"{'strings' if kind is str else 'numbers'}")
     return value
 
@@ -74,26 +75,26 @@ def load_study(path) -> Study:
     path = Path(path)
     where = str(path)
     data = read_toml(path)
-    _check_keys(where, "", data, STUDY_KEYS, ("technology", "supply", "load"))
+    check_keys(where, "", data, STUDY_KEYS, ("technology", "supply", "load"))
 
     tech_ref = data["technology"]
     if not isinstance(tech_ref, str):
-        raise InputError(where, f"technology = {_show(tech_ref)} is not a file path",
+        raise InputError(where, f"technology = {show(tech_ref)} is not a file path",
                          "a path to a technology TOML file, relative to the study file")
     tech_path = (path.parent / tech_ref) if not Path(tech_ref).is_absolute() else Path(tech_ref)
     tech = load_tech(tech_path)
 
-    supply = _sub_table(where, "", "supply", data["supply"])
-    _check_keys(where, "supply", supply, SUPPLY_KEYS, ("nominal",))
-    vnom = _number(where, "supply", "nominal", supply["nominal"], "V")
-    vmin = _number(where, "supply", "min", supply.get("min", vnom), "V")
-    vmax = _number(where, "supply", "max", supply.get("max", vnom), "V")
+    supply = sub_table(where, "", "supply", data["supply"])
+    check_keys(where, "supply", supply, SUPPLY_KEYS, ("nominal",))
+    vnom = number(where, "supply", "nominal", supply["nominal"], "V")
+    vmin = number(where, "supply", "min", supply.get("min", vnom), "V")
+    vmax = number(where, "supply", "max", supply.get("max", vnom), "V")
     if not vmin <= vnom <= vmax:
         raise InputError(where, f"[supply] min = {vmin:g} V, nominal = {vnom:g} V, max = {vmax:g} V is not in order",
                          "min <= nominal <= max", "the supply range looks inverted")
 
-    cond_table = _sub_table(where, "", "conditions", data.get("conditions", {}))
-    _check_keys(where, "conditions", cond_table, CONDITION_KEYS)
+    cond_table = sub_table(where, "", "conditions", data.get("conditions", {}))
+    check_keys(where, "conditions", cond_table, CONDITION_KEYS)
     temps_c = _list(where, "conditions", "temperatures_c", cond_table.get("temperatures_c", [27]), (int, float))
     corner_names = _list(where, "conditions", "corners", cond_table.get("corners", ["tt"]))
     corners = []
@@ -101,7 +102,7 @@ def load_study(path) -> Study:
         allowed = [c.value for c in Corner]
         if name not in allowed:
             raise InputError(where, f"[conditions] corners: {name!r} is not a corner", ", ".join(allowed),
-                             _closest(name, allowed))
+                             closest(name, allowed))
         if Corner(name) not in tech.corners:
             raise InputError(where, f"[conditions] corners: {name!r} is not defined by the technology {tech_path}",
                              ", ".join(c.value for c in tech.corners))
@@ -111,49 +112,49 @@ def load_study(path) -> Study:
     except ValueError as err:
         raise InputError(where, f"[supply]/[conditions] {err}") from None
 
-    load = _sub_table(where, "", "load", data["load"])
-    _check_keys(where, "load", load, LOAD_KEYS, LOAD_KEYS)
-    driver = _sub_table(where, "", "driver", data.get("driver", {}))
-    _check_keys(where, "driver", driver, DRIVER_KEYS)
-    targets_t = _sub_table(where, "", "targets", data.get("targets", {}))
-    _check_keys(where, "targets", targets_t, tuple(TARGET_UNITS))
-    kw = {k: _number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
+    load = sub_table(where, "", "load", data["load"])
+    check_keys(where, "load", load, LOAD_KEYS, LOAD_KEYS)
+    driver = sub_table(where, "", "driver", data.get("driver", {}))
+    check_keys(where, "driver", driver, DRIVER_KEYS)
+    targets_t = sub_table(where, "", "targets", data.get("targets", {}))
+    check_keys(where, "targets", targets_t, tuple(TARGET_UNITS))
+    kw = {k: number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
     if "area_max_um2" in kw:
         kw["area_max"] = kw.pop("area_max_um2") * 1e-12
     drive = driver.get("drive", "both")
     if drive not in ("both", "p", "n"):
-        raise InputError(where, f"[driver] drive = {_show(drive)} is not allowed", "both, p, n",
+        raise InputError(where, f"[driver] drive = {show(drive)} is not allowed", "both, p, n",
                          "both: the driver moves the active gate; p or n: one gate only")
     kw.update(
-        i_load=_number(where, "load", "current", load["current"], "A"),
-        c_load=_number(where, "load", "capacitance", load["capacitance"], "F"),
-        vcomp=_number(where, "driver", "compliance", driver.get("compliance", 0.2), "V"),
+        i_load=number(where, "load", "current", load["current"], "A"),
+        c_load=number(where, "load", "capacitance", load["capacitance"], "F"),
+        vcomp=number(where, "driver", "compliance", driver.get("compliance", 0.2), "V"),
         drive=drive,
     )
-    targets = _build(where, "targets", Targets, kw)
+    targets = build(where, "targets", Targets, kw)
 
     archs = _list(where, "", "architectures", data.get("architectures", list(STAGES)))
     for a in archs:
         if a not in STAGES:
-            raise InputError(where, f"architectures: {a!r} is not known", ", ".join(STAGES), _closest(a, STAGES))
+            raise InputError(where, f"architectures: {a!r} is not known", ", ".join(STAGES), closest(a, STAGES))
     seed = data.get("seed", 1)
     if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
-        raise InputError(where, f"seed = {_show(seed)} is not allowed", "a non-negative integer")
+        raise InputError(where, f"seed = {show(seed)} is not allowed", "a non-negative integer")
     return Study(path, str(data.get("name", path.stem)), tech, tech_path, conditions, targets, tuple(archs), seed, data)
 
 
 def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
     """Check one design's tables (sizes in micrometres) and build a one-element Design."""
     if not isinstance(arch, str) or arch not in STAGES:
-        raise InputError(where, f"architecture = {_show(arch)} is not known", ", ".join(STAGES),
-                         _closest(arch, STAGES) if isinstance(arch, str) else "")
+        raise InputError(where, f"architecture = {show(arch)} is not known", ", ".join(STAGES),
+                         closest(arch, STAGES) if isinstance(arch, str) else "")
     stage = get_stage(arch)
-    devices = _sub_table(where, "", "devices", devices)
-    bias = _sub_table(where, "", "bias", bias)
+    devices = sub_table(where, "", "devices", devices)
+    bias = sub_table(where, "", "bias", bias)
     for role in devices:
         if role not in stage.ROLES:
             raise InputError(where, f"[devices.{role}] is not a role of {arch}", ", ".join(stage.ROLES),
-                             _closest(role, stage.ROLES))
+                             closest(role, stage.ROLES))
     missing = [r for r in stage.ROLES if r not in devices]
     if missing:
         raise InputError(where, f"[devices] {arch} needs every role; missing {', '.join(missing)}",
@@ -161,8 +162,8 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
     w, l, tied = {}, {}, set()
     for role in stage.ROLES:
         table = f"devices.{role}"
-        dev = _sub_table(where, "devices", role, devices[role])
-        _check_keys(where, table, dev, ("w", "l", "bulk"), ("w", "l"))
+        dev = sub_table(where, "devices", role, devices[role])
+        check_keys(where, table, dev, ("w", "l", "bulk"), ("w", "l"))
         polarity = next(s.polarity for s in stage.TOPOLOGY.devices if s.role == role)
         mt = tech.mos(polarity)
         for key, store, minimum in (("w", w, mt.w_min), ("l", l, mt.l_min)):
@@ -173,19 +174,19 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
             store[role] = np.array([value])
         bulk = dev.get("bulk", "rail")
         if bulk not in ("rail", "source"):
-            raise InputError(where, f"[{table}] bulk = {_show(bulk)} is not allowed",
+            raise InputError(where, f"[{table}] bulk = {show(bulk)} is not allowed",
                              "\"rail\" (default) or \"source\" (own well, no body effect)")
         if bulk == "source":
             tied.add(role)
     for name in bias:
         if name not in stage.BIAS:
             raise InputError(where, f"[bias] {name} is not a bias of {arch}", ", ".join(stage.BIAS),
-                             _closest(name, stage.BIAS))
+                             closest(name, stage.BIAS))
     values = {}
     for name, unit in stage.BIAS.items():
         if name not in bias:
             raise InputError(where, f"[bias] missing {name}", f"{arch} needs {', '.join(stage.BIAS)}")
-        v = _number(where, "bias", name, bias[name], unit)
+        v = number(where, "bias", name, bias[name], unit)
         if not v > 0:
             raise InputError(where, f"[bias] {name} = {v:g} {unit} must be positive", f"> 0 {unit}")
         values[name] = np.array([v])
@@ -196,12 +197,12 @@ def _micrometres(where, table, key, value) -> float:
     """A size: a plain number is micrometres; a string with a scale letter is metres."""
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return float(value) * 1e-6
-    return _number(where, table, key, value, "m")
+    return number(where, table, key, value, "m")
 
 
 def load_design(path, tech: Tech) -> Design:
     """Read a design file (architecture, [devices.ROLE] w/l in um, [bias])."""
     where = str(path)
     data = read_toml(path)
-    _check_keys(where, "", data, ("architecture", "devices", "bias", "name"), ("architecture", "devices", "bias"))
+    check_keys(where, "", data, ("architecture", "devices", "bias", "name"), ("architecture", "devices", "bias"))
     return design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech)

@@ -20,8 +20,6 @@ what is allowed; nothing else escapes `load_tech`.
 from __future__ import annotations
 
 import dataclasses
-import datetime
-import difflib
 import tomllib
 from pathlib import Path
 
@@ -29,7 +27,7 @@ from models.constants import T_NOMINAL
 from models.tech import Corner, CornerShift, ModelKind, MosTech, Tech
 
 from .errors import InputError
-from .units import parse_quantity
+from .tables import build, check_keys, closest, number, show, sub_table
 
 # Unit of every numeric key; a unit word in a suffixed string must match it.
 MOS_UNITS = {
@@ -45,96 +43,23 @@ MODELS = tuple(k.value for k in ModelKind)
 CORNERS = tuple(c.value for c in Corner)
 
 
-def _table(name: str) -> str:
-    return f"[{name}] " if name else ""
-
-
-def _show(value) -> str:
-    """Short description of a TOML value for messages."""
-    if isinstance(value, dict):
-        return "a table"
-    if isinstance(value, list):
-        return "an array"
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, (datetime.date, datetime.time)):
-        return f"the date/time {value.isoformat()}"
-    try:
-        text = repr(value)
-    except ValueError:  # an integer too long to print
-        return "an integer too long to show"
-    return text if len(text) <= 60 else text[:57] + "..."
-
-
-def _closest(key, choices) -> str:
-    lower = {str(c).lower(): c for c in choices}
-    near = difflib.get_close_matches(str(key).lower(), list(lower), n=1)
-    return f"did you mean {lower[near[0]]!r}?" if near else ""
-
-
-def _check_keys(where: str, table: str, data: dict, allowed, required=(), hint: str = "") -> None:
-    """Refuse unknown keys (suggesting the closest) first, then report missing ones."""
-    for key in data:
-        if key not in allowed:
-            raise InputError(
-                where, f"{_table(table)}unknown key {_show(key)}", ", ".join(allowed), _closest(key, allowed) or hint
-            )
-    missing = [k for k in required if k not in data]
-    if missing:
-        raise InputError(
-            where,
-            f"{_table(table)}missing required key{'s' if len(missing) > 1 else ''} {', '.join(missing)}",
-            f"required keys{' in [' + table + ']' if table else ''}: {', '.join(required)}",
-            hint,
-        )
-
-
-def _sub_table(where: str, parent: str, key: str, value) -> dict:
-    if not isinstance(value, dict):
-        full = f"{parent}.{key}" if parent else key
-        raise InputError(
-            where, f"{_table(parent)}{key} = {_show(value)} is not a table", f"a table [{full}] of key = value lines"
-        )
-    return value
-
-
-def _number(where: str, table: str, key: str, value, unit: str) -> float:
-    """One numeric value: a TOML number or a suffixed string, in `unit`."""
-    if isinstance(value, (bool, dict, list, datetime.date, datetime.time)):
-        unit_text = f" in {unit}" if unit else ""
-        allowed = f"a number{unit_text}, or a string with a scale letter (f p n u m k meg g t) such as \"2.5u\""
-        raise InputError(where, f"{_table(table)}{key} = {_show(value)} is not a number", allowed)
-    try:
-        return parse_quantity(value, unit)
-    except (TypeError, ValueError) as err:
-        raise InputError(where, f"{_table(table)}{key}: {err}") from None
-
-
-def _build(where: str, table: str, cls, kwargs: dict):
-    """Construct a checked dataclass; its range errors get the file and table prefixed."""
-    try:
-        return cls(**kwargs)
-    except ValueError as err:
-        raise InputError(where, _table(table) + " ".join(str(err).split())) from None
-
-
 def _mos(where: str, table: str, data) -> MosTech:
-    data = _sub_table(where, "", table, data)
-    _check_keys(where, table, data, MOS_KEYS, MOS_KEYS)
-    values = {k: _number(where, table, k, data[k], MOS_UNITS.get(k, "")) for k in MOS_KEYS}
-    return _build(where, table, MosTech, values)
+    data = sub_table(where, "", table, data)
+    check_keys(where, table, data, MOS_KEYS, MOS_KEYS)
+    values = {k: number(where, table, k, data[k], MOS_UNITS.get(k, "")) for k in MOS_KEYS}
+    return build(where, table, MosTech, values)
 
 
 def _corners(where: str, data) -> dict[Corner, CornerShift]:
-    data = _sub_table(where, "", "corners", data)
-    _check_keys(where, "corners", data, CORNERS, hint="corners are tables such as [corners.ff]")
+    data = sub_table(where, "", "corners", data)
+    check_keys(where, "corners", data, CORNERS, hint="corners are tables such as [corners.ff]")
     shifts = {Corner.TT: CornerShift()}
     for name, table in data.items():
         path = f"corners.{name}"
-        table = _sub_table(where, "corners", name, table)
-        _check_keys(where, path, table, tuple(CORNER_UNITS))
-        values = {k: _number(where, path, k, v, CORNER_UNITS[k]) for k, v in table.items()}
-        shifts[Corner(name)] = _build(where, path, CornerShift, values)
+        table = sub_table(where, "corners", name, table)
+        check_keys(where, path, table, tuple(CORNER_UNITS))
+        values = {k: number(where, path, k, v, CORNER_UNITS[k]) for k, v in table.items()}
+        shifts[Corner(name)] = build(where, path, CornerShift, values)
     return shifts
 
 
@@ -160,25 +85,25 @@ def tech_from_dict(data: dict, where: str = "<technology>") -> Tech:
         unknown model kind or corner.
     """
     if not isinstance(data, dict):
-        raise InputError(where, f"the technology is {_show(data)}", "a table of key = value lines")
-    _check_keys(where, "", data, TOP_KEYS, TOP_REQUIRED)
+        raise InputError(where, f"the technology is {show(data)}", "a table of key = value lines")
+    check_keys(where, "", data, TOP_KEYS, TOP_REQUIRED)
     name = data["name"]
     if not isinstance(name, str) or not name.strip():
-        raise InputError(where, f"name = {_show(name)} is not a name", "a non-empty string, e.g. \"demo180-invented\"")
+        raise InputError(where, f"name = {show(name)} is not a name", "a non-empty string, e.g. \"demo180-invented\"")
     model = data["model"]
     if not isinstance(model, str) or model not in MODELS:
-        shown = _show(model)
-        raise InputError(where, f"model = {shown} is not a model kind", ", ".join(MODELS), _closest(model, MODELS))
+        shown = show(model)
+        raise InputError(where, f"model = {shown} is not a model kind", ", ".join(MODELS), closest(model, MODELS))
     kwargs = {
         "name": name,
         "model": ModelKind(model),
         "nmos": _mos(where, "nmos", data["nmos"]),
         "pmos": _mos(where, "pmos", data["pmos"]),
-        "grid": _number(where, "", "grid", data["grid"], "m"),
-        "tnom": _number(where, "", "tnom", data["tnom"], "K") if "tnom" in data else T_NOMINAL,
+        "grid": number(where, "", "grid", data["grid"], "m"),
+        "tnom": number(where, "", "tnom", data["tnom"], "K") if "tnom" in data else T_NOMINAL,
         "corners": _corners(where, data["corners"]) if "corners" in data else {Corner.TT: CornerShift()},
     }
-    return _build(where, "", Tech, kwargs)
+    return build(where, "", Tech, kwargs)
 
 
 def load_tech(path) -> Tech:

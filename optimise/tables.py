@@ -1,0 +1,84 @@
+"""Reading checked values out of parsed TOML tables: the shared helpers of every file
+loader (technology, study, search, grid). Each raises InputError worded
+where -> what -> allowed -> hint, naming the key as a table path.
+"""
+from __future__ import annotations
+
+import datetime
+import difflib
+
+from .errors import InputError
+from .units import parse_quantity
+
+
+def table_prefix(name: str) -> str:
+    return f"[{name}] " if name else ""
+
+
+def show(value) -> str:
+    """Short description of a TOML value for messages."""
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, list):
+        return "an array"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (datetime.date, datetime.time)):
+        return f"the date/time {value.isoformat()}"
+    try:
+        text = repr(value)
+    except ValueError:  # an integer too long to print
+        return "an integer too long to show"
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def closest(key, choices) -> str:
+    lower = {str(c).lower(): c for c in choices}
+    near = difflib.get_close_matches(str(key).lower(), list(lower), n=1)
+    return f"did you mean {lower[near[0]]!r}?" if near else ""
+
+
+def check_keys(where: str, table: str, data: dict, allowed, required=(), hint: str = "") -> None:
+    """Refuse unknown keys (suggesting the closest) first, then report missing ones."""
+    for key in data:
+        if key not in allowed:
+            raise InputError(
+                where, f"{table_prefix(table)}unknown key {show(key)}", ", ".join(allowed), closest(key, allowed) or hint
+            )
+    missing = [k for k in required if k not in data]
+    if missing:
+        raise InputError(
+            where,
+            f"{table_prefix(table)}missing required key{'s' if len(missing) > 1 else ''} {', '.join(missing)}",
+            f"required keys{' in [' + table + ']' if table else ''}: {', '.join(required)}",
+            hint,
+        )
+
+
+def sub_table(where: str, parent: str, key: str, value) -> dict:
+    if not isinstance(value, dict):
+        full = f"{parent}.{key}" if parent else key
+        raise InputError(
+            where, f"{table_prefix(parent)}{key} = {show(value)} is not a table", f"a table [{full}] of key = value lines"
+        )
+    return value
+
+
+def number(where: str, table: str, key: str, value, unit: str) -> float:
+    """One numeric value: a TOML number or a suffixed string, in `unit`."""
+    if isinstance(value, (bool, dict, list, datetime.date, datetime.time)):
+        unit_text = f" in {unit}" if unit else ""
+        allowed = f"a number{unit_text}, or a string with a scale letter (f p n u m k meg g t) such as \"2.5u\""
+        raise InputError(where, f"{table_prefix(table)}{key} = {show(value)} is not a number", allowed)
+    try:
+        return parse_quantity(value, unit)
+    except (TypeError, ValueError) as err:
+        raise InputError(where, f"{table_prefix(table)}{key}: {err}") from None
+
+
+def build(where: str, table: str, cls, kwargs: dict):
+    """Construct a checked dataclass; its range errors get the file and table prefixed."""
+    try:
+        return cls(**kwargs)
+    except ValueError as err:
+        raise InputError(where, table_prefix(table) + " ".join(str(err).split())) from None
