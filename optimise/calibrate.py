@@ -12,9 +12,10 @@ Sweeps (single devices of width `WIDTH`, one ngspice process per deck, both pola
 Fits (scipy.optimize.least_squares, residuals ln(Id model / Id simulator), each length
 and curve kind weighted equally):
 
-1. Early voltage: in saturation (VDS from VDD/3 up) each output curve is a line
-   Id = a (1 + VDS / VA); VA per length is the geometric mean over the VGS levels, and
-   va_per_l the least-squares slope of VA against L through the origin (relative residuals).
+1. Early voltage: the output curve at VGS = 0.35 VDD (moderate inversion, where the bias
+   loop sits) is a line Id = a (1 + VDS / VA) from VDS = VGS to 0.75 VDD, the span between a
+   diode-connected device and an output device at mid-supply; va_per_l is the least-squares
+   slope of VA against L through the origin (relative residuals).
 2. EKV (`models.mos` equations with that va_per_l): vt0, kp and n on the transfer curves
    from IC of about 0.01 up (weak, moderate and strong inversion), plus the output curves
    (saturation and triode), so that the on-resistance near the rail is fitted as well as the
@@ -185,17 +186,23 @@ def _log_residual(model, sim):
 
 
 def early_voltages(out: Curves, vdd: float) -> dict[float, float]:
-    """VA per length from the output curves' saturated stretch (VDS >= VDD/3)."""
+    """VA per length from the output conductance where the bias loop works.
+
+    The output curve at the lowest VGS level (0.35 VDD: moderate inversion in a process made
+    for that supply) is a line Id = a (1 + VDS / VA) between VDS = VGS (a diode-connected
+    device) and VDS = 0.75 VDD (an output device at mid-supply, with margin): VA = a / b.
+    Short-channel devices have a much lower output resistance there (drain-induced barrier
+    lowering) than at high VDS or in strong inversion, and this is the span that sets Iq.
+    """
     va = {}
+    level = min(OUTPUT_VGS) * vdd
     for l in np.unique(out.l):
-        vals = []
-        for c in np.unique(out.curve[out.l == l]):
-            m = (out.curve == c) & (out.vds >= vdd / 3.0)
-            b, a = np.polyfit(out.vds[m], out.i[m], 1)
-            if b > 0 and a > 0:
-                vals.append(a / b)
-        if vals:
-            va[float(l)] = float(np.exp(np.mean(np.log(vals))))
+        m = (out.l == l) & np.isclose(out.vgs, level) & (out.vds >= out.vgs) & (out.vds <= 0.75 * vdd)
+        if m.sum() < 5:
+            continue
+        b, a = np.polyfit(out.vds[m], out.i[m], 1)
+        if b > 0 and a > 0:
+            va[float(l)] = float(a / b)
     if not va:
         raise InputError("--models", "no output curve has a positive output conductance in saturation",
                          hint="check the model card and --vdd")
@@ -290,7 +297,8 @@ def region_errors(kind: ModelKind, pol: int, p: dict, c: Curves, temp: float, ek
     """
     m = Mos(pol, ModelKind.EKV, ekv["vt0"], ekv["kp"], ekv["n"], 0.0, 0.7, thermal_voltage(temp), ekv["va_per_l"])
     ic = c.i / specific_current(m, WIDTH, c.l)
-    err = model_current(kind, pol, p, c, temp) / c.i - 1.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        err = model_current(kind, pol, p, c, temp) / c.i - 1.0
     vdsat = m.ut * (2.0 * np.sqrt(ic) + 4.0)
     sat = c.kind != "out"
     regions = {
@@ -530,7 +538,8 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
     command = ("stagefront calibrate --models " + str(args.models) + f" --nmos {args.nmos} --pmos {args.pmos}"
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"
                + (f" --lengths {args.lengths}" if args.lengths else "") + f" --vdd {args.vdd}"
-               + (f" --base {args.base}" if args.base else "") + f" --out {args.out}")
+               + (f" --base {args.base}" if args.base else "") + (f" --name {args.name}" if args.name else "")
+               + f" --out {args.out}")
     text = tech_toml(cal, name, models, lmin, base, command)
     try:
         tech_from_dict(tomllib.loads(text), str(out))  # the file must load as it will be read
