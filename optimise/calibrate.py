@@ -440,6 +440,17 @@ def report(cal: Calibration, stream) -> None:
           f"PMOS vt0 {s.dvt_p * 1e3:+.1f} mV, kp x {s.kp_p:.3f}")
 
 
+def _card_title(path: Path) -> str:
+    """The first comment line of a model file (its provenance, often), without the '*'."""
+    try:
+        for line in path.read_text().splitlines():
+            if line.strip().startswith("*") and line.strip("* \t"):
+                return line.strip().lstrip("*").strip()
+    except (OSError, UnicodeDecodeError):
+        pass
+    return ""
+
+
 def _g(x: float) -> str:
     return format(float(x), ".6g")
 
@@ -454,6 +465,7 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
         f"# W = {format_eng(WIDTH, 'm')}, L = {', '.join(format_eng(x, 'm') for x in cal.lengths)}, "
         f"voltages up to {cal.vdd:g} V; least-squares fit of the {cal.kind.value} equations.",
         f"# Made with: {command}",
+        *([f"# The card's own first line: {_card_title(models.path)}"] if _card_title(models.path) else []),
         "# Values marked 'from base' or 'default, not calibrated' are not measured by DC sweeps.",
         "# A fit of a card, not the card: model estimates for early design only.",
         "",
