@@ -335,3 +335,24 @@ def test_tt_card_helper_keeps_only_the_typical_section(tmp_path):
     source = tb.load_models(_tt_card(tmp_path))
     # A plain card supports the typical corner only.
     assert source.sections == () and [c.value for c in source.corners(None)] == ["tt"]
+
+
+def test_shipped_card_has_every_corner_section():
+    source = tb.load_models(CARD)
+    assert source.sections == ("tt", "ff", "ss", "fs", "sf")
+    assert source.reference(tb.Corner.FS) == f'.lib "{CARD.resolve()}" fs'
+
+
+def test_drive_point_follows_the_model_definitions():
+    s = np.linspace(0.0, 1.0, 101)
+    vdd = 2.0
+    # Sourcing: 1 mA pushed at VDD/2 falling linearly to -0.1 mA at the rail. Hand calc: the
+    # 0.5 mA load is met at s = 0.5 / 1.1, V(out) = 1 + 0.4545 V, headroom 2 - 1.4545 V.
+    peak, hr = tb.drive_point(s, 1e-3 - 1.1e-3 * s, vdd, +1, 0.5e-3)
+    assert peak == pytest.approx(1e-3) and hr == pytest.approx(1.0 - 0.5 / 1.1, rel=1e-9)
+    # Sinking is the mirror image: the current pushed is negative, the headroom is V(out).
+    peak, hr = tb.drive_point(s, -(1e-3 - 1.1e-3 * s), vdd, -1, 0.5e-3)
+    assert peak == pytest.approx(1e-3) and hr == pytest.approx(1.0 - 0.5 / 1.1, rel=1e-9)
+    # models.evaluate: a peak below the load current gives a headroom of VDD/2.
+    peak, hr = tb.drive_point(s, 0.2e-3 - 0.3e-3 * s, vdd, +1, 0.5e-3)
+    assert peak == pytest.approx(0.2e-3) and hr == 0.5 * vdd
