@@ -16,12 +16,11 @@ from models.constants import ZERO_CELSIUS
 from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result, evaluate, monte_carlo_iq
 from models.tech import Corner
 
+from . import CAUTION
 from .errors import InputError
 from .study import load_design, load_study
 from .units import format_eng
 
-CAUTION = ("Model estimates for early design only: the foundry's process design kit and sign-off "
-           "simulation decide. Never tape out from these numbers.")
 
 SUMMARY_UNITS = {
     "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",

@@ -32,12 +32,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from . import CAUTION
 from .atomic import write_bytes, write_text
 from .errors import InputError
 from .space import OBJECTIVES
 from .units import format_eng
 
-CAUTION = "Model estimates for early design only: the foundry's kit and sign-off simulation decide."
 FILES = ("compare.csv", "compare.md", "compare.png")
 
 

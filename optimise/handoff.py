@@ -20,14 +20,13 @@ from models.evaluate import Conditions, Design, evaluate
 from models.stages import get_stage
 from models.tech import Corner
 
+from . import CAUTION
 from . import testbench as tb
 from .atomic import write_text
 from .errors import InputError
 from .export import design_from_row, read_front
 from .study import Study, load_study
 
-CAUTION = ("Model estimates for early design only: the foundry's process design kit and sign-off "
-           "simulation decide. Never tape out from these numbers.")
 
 
 def load_run(run) -> tuple[Study, "object", Path]:

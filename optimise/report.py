@@ -40,6 +40,7 @@ from models.evaluate import Conditions, Design, Result, evaluate, monte_carlo_iq
 from models.stages import get_stage
 from models.tech import Corner
 
+from . import CAUTION
 from .atomic import write_bytes, write_text
 from .compare import load_run, markdown_table
 from .errors import InputError
@@ -49,8 +50,6 @@ from .space import OBJECTIVES
 from .study import Study, load_study
 from .units import format_eng
 
-CAUTION = ("These are model estimates for early design. The foundry's process design kit and sign-off "
-           "simulation decide; never tape out from them.")
 SECTIONS = (
     ("caution", "Caution"),
     ("glance", "At a glance"),

@@ -14,10 +14,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from . import CAUTION
 from .atomic import write_bytes, write_text
 from .grid import Grid
 
-CAUTION = "Model estimates for early design only: the foundry's kit and sign-off simulation decide."
 DONE = ("finished", "reused")
 
 
