@@ -210,6 +210,7 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
         return (u - dn) * direction - i_load, dd * direction
 
     can = peak >= i_load
+    # Output voltage to 0.1 uV: the last safeguarded Newton step leaves far less.
     rail = vdd if direction > 0 else np.zeros_like(vdd)
     # Start from the rail side: the active device's triode conductance at the rail gives
     # the output voltage drop for the load current.
@@ -219,9 +220,9 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
                                     0.0, 0.5 * vdd)
     f_mid = peak - i_load
     if direction > 0:
-        v_at, ok_v = solve_bracketed(fun, out, vdd.copy(), x0=x0, flo=f_mid, fhi=f_rail)
+        v_at, ok_v = solve_bracketed(fun, out, vdd.copy(), x0=x0, xtol=1e-7, flo=f_mid, fhi=f_rail)
     else:
-        v_at, ok_v = solve_bracketed(fun, np.zeros_like(vdd), out, x0=x0, flo=f_rail, fhi=f_mid)
+        v_at, ok_v = solve_bracketed(fun, np.zeros_like(vdd), out, x0=x0, xtol=1e-7, flo=f_rail, fhi=f_mid)
     v_at = np.where(can, v_at, out)
     headroom = np.where(direction > 0, vdd - v_at, v_at)
     i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, v_at)

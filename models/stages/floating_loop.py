@@ -226,7 +226,7 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
     else:
         gp0 = devs["mp_ctl"].source_for(ib_ctl, pb2, vdd, sat0)
         x0 = np.stack([gp0 - sat0, gp0])
-    x, ok_edge = newton(fun, x0, step_max=0.2, max_iter=80)
+    x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-6, max_iter=80)  # gates to 1 uV
     gn, gp = x[0].copy(), x[1].copy()
     v_edge = gp if driven_node == "gp" else gn
     # The edge comes first when the driven gate meets it before its compliance bound.
