@@ -10,14 +10,12 @@ import json
 import math
 import sys
 
-import numpy as np
-
 from models.constants import ZERO_CELSIUS
-from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result, evaluate, monte_carlo_iq
-from models.tech import Corner
+from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result, evaluate
 
 from . import CAUTION
 from .errors import InputError
+from .montecarlo import confirm_sigma
 from .study import load_design, load_study
 from .units import format_eng
 
@@ -119,18 +117,7 @@ def cmd_evaluate(args) -> int:
     if args.montecarlo:
         if args.montecarlo < 2:
             raise InputError("--montecarlo", f"{args.montecarlo} samples is too few", ">= 2")
-        cond = study.conditions
-        corner = Corner.TT if Corner.TT in cond.corners else cond.corners[0]
-        iq, ok = monte_carlo_iq(design, study.tech, corner, cond.temps[0], cond.vdd_nom, args.montecarlo,
-                                np.random.default_rng(args.seed))
-        j = next(j for j in range(len(res.vdd)) if res.corners[j] == corner and res.vdd[j] == cond.vdd_nom
-                 and res.temps[j] == cond.temps[0])
-        good = iq[ok]
-        mc = {"samples": int(args.montecarlo), "corner": corner.value, "temp_c": cond.temps[0] - ZERO_CELSIUS,
-              "vdd_v": cond.vdd_nom, "seed": args.seed, "failed": int((~ok).sum()),
-              "iq_mean_a": float(good.mean()) if good.size else None,
-              "iq_sigma_pct": float(100 * good.std(ddof=1) / good.mean()) if good.size > 1 else None,
-              "linear_sigma_pct": float(res.pvt["iq_sigma_pct"][0, j])}
+        mc = confirm_sigma(design, study, args.montecarlo, args.seed, result=res)
         out["montecarlo"] = mc
     if args.json:
         json.dump(out, sys.stdout, indent=1)

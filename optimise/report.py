@@ -36,15 +36,15 @@ import numpy as np
 import pandas as pd
 
 from models.constants import ZERO_CELSIUS
-from models.evaluate import Conditions, Design, Result, evaluate, monte_carlo_iq
+from models.evaluate import Conditions, Design, Result, evaluate
 from models.stages import get_stage
-from models.tech import Corner
 
 from . import CAUTION
 from .atomic import write_bytes, write_text
 from .compare import load_run, markdown_table
 from .errors import InputError
 from .export import UNIT_SUFFIX, design_from_row
+from .montecarlo import Confirmation, confirm, typical
 from .pick import rank
 from .space import OBJECTIVES
 from .study import Study, load_study
@@ -188,11 +188,6 @@ def populations(rows: pd.DataFrame) -> list[tuple[list, Design]]:
     return out
 
 
-def typical(cond: Conditions) -> Corner:
-    """The corner that stands for 'typical': tt when the study has it, else its first corner."""
-    return Corner.TT if Corner.TT in cond.corners else cond.corners[0]
-
-
 def pick_rows(table: pd.DataFrame, objectives: dict, count: int) -> pd.DataFrame:
     """The knee, then the best design per objective, then the next designs by knee distance.
 
@@ -225,7 +220,7 @@ class ReportData:
     table: pd.DataFrame
     picks: pd.DataFrame
     knee: Result | None = None
-    mc: dict | None = None
+    mc: Confirmation | None = None
     sweep: dict = field(default_factory=dict)  # id -> (vdd (p,), iq (p,))
     verify: tuple = (None, "")  # (DataFrame or None, note)
 
@@ -261,14 +256,8 @@ def gather(run, count: int = 8) -> ReportData:
     cond, tech, targets = study.conditions, study.tech, study.targets
     [(_, knee_design)] = populations(picks.iloc[:1])
     data.knee = evaluate(knee_design, tech, cond, targets)
+    data.mc = confirm(knee_design, study, MC_SAMPLES, int(r.record.get("seed", 1)), result=data.knee)
     corner, temp, vnom = typical(cond), cond.temps[0], cond.vdd_nom
-    iq, ok = monte_carlo_iq(knee_design, tech, corner, temp, vnom, MC_SAMPLES,
-                            np.random.default_rng(int(r.record.get("seed", 1))))
-    j = next(j for j in range(len(data.knee.vdd)) if data.knee.corners[j] == corner
-             and data.knee.temps[j] == temp and data.knee.vdd[j] == vnom)
-    data.mc = {"iq": iq[ok], "failed": int((~ok).sum()), "corner": corner, "temp": temp, "vdd": vnom,
-               "iq_nom": float(data.knee.pvt["iq_a"][0, j]),
-               "sigma_lin_pct": float(data.knee.pvt["iq_sigma_pct"][0, j])}
     supplies = np.unique(np.r_[np.linspace(cond.vdd_min, cond.vdd_max, SWEEP_POINTS), vnom])
     for ids, design in populations(picks):
         iq_v = np.stack([evaluate(design, tech, Conditions((corner,), (temp,), v, v, v), targets).pvt["iq_a"][:, 0]
@@ -379,22 +368,22 @@ def mismatch_figure(data: ReportData) -> bytes:
 
     plt, mc = _plt(), data.mc
     fig, ax = plt.subplots(figsize=(7, 3.8))
-    iq = mc["iq"] * 1e6
+    iq = mc.iq * 1e6
     counts, edges, _ = ax.hist(iq, bins=60, color="#7fa7c9", edgecolor="white", linewidth=0.4,
                                label=f"Monte Carlo, {len(iq)} samples")
-    mu, s = mc["iq_nom"] * 1e6, mc["iq_nom"] * 1e6 * mc["sigma_lin_pct"] / 100.0
+    mu, s = mc.iq_nom * 1e6, mc.iq_nom * 1e6 * mc.linear_sigma_pct / 100.0
     if s > 0:
         x = np.linspace(min(edges[0], mu - 4 * s), max(edges[-1], mu + 4 * s), 300)
         ax.plot(x, len(iq) * (edges[1] - edges[0]) * np.exp(-0.5 * ((x - mu) / s) ** 2) / (s * np.sqrt(2 * np.pi)),
-                color="#1d3557", lw=1.4, label=f"linear estimate, sigma {mc['sigma_lin_pct']:.3g} %")
+                color="#1d3557", lw=1.4, label=f"linear estimate, sigma {mc.linear_sigma_pct:.3g} %")
         for k, style in ((1, "--"), (3, ":")):
             for sign in (-1, 1):
                 ax.axvline(mu + sign * k * s, color="#d1495b", ls=style, lw=1.1,
                            label=f"linear +-{k} sigma" if sign > 0 else None)
     ax.set_xlabel("Iq [uA]")
     ax.set_ylabel("samples per bin")
-    ax.set_title(f"Iq under mismatch: {data.picks['id'].iloc[0]}, {mc['corner'].value}, "
-                 f"{mc['temp'] - ZERO_CELSIUS:g} C, {mc['vdd']:g} V")
+    ax.set_title(f"Iq under mismatch: {data.picks['id'].iloc[0]}, {mc.corner.value}, "
+                 f"{mc.temp - ZERO_CELSIUS:g} C, {mc.vdd:g} V")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()
@@ -593,13 +582,12 @@ def _knee_pvt(data: ReportData) -> list:
 
 def _mismatch(data: ReportData) -> list:
     mc = data.mc
-    iq = mc["iq"]
-    mc_sigma = 100 * iq.std(ddof=1) / iq.mean() if iq.size > 1 else float("nan")
+    nan = lambda v: float("nan") if v is None else v  # noqa: E731
     return [f"{MC_SAMPLES} Monte Carlo samples of Pelgrom mismatch on every device (seed {data.record.get('seed')}), "
-            f"each solved exactly at {mc['corner'].value}, {mc['temp'] - ZERO_CELSIUS:g} C, {mc['vdd']:g} V: "
-            f"mean Iq {format_eng(iq.mean(), 'A')}, sigma {mc_sigma:.3g} % against the linear estimate "
-            f"{mc['sigma_lin_pct']:.3g} % (Iq {format_eng(mc['iq_nom'], 'A')} without mismatch); "
-            f"{mc['failed']} sample(s) did not solve.",
+            f"each solved exactly at {mc.corner.value}, {mc.temp - ZERO_CELSIUS:g} C, {mc.vdd:g} V: "
+            f"mean Iq {format_eng(nan(mc.iq_mean), 'A')}, sigma {nan(mc.sigma_pct):.3g} % against the linear "
+            f"estimate {mc.linear_sigma_pct:.3g} % (Iq {format_eng(mc.iq_nom, 'A')} without mismatch); "
+            f"{mc.failed} sample(s) did not solve.",
             Figure("mismatch", mismatch_figure(data), "Histogram of Iq under random mismatch; the curve and the "
                    "red lines are the linear (adjoint) estimate at +-1 and +-3 sigma.")]
 

@@ -41,8 +41,6 @@ import traceback
 import uuid
 from pathlib import Path
 
-import numpy as np
-
 from .atomic import write_text
 from .errors import InputError
 from .grid import Grid, load_grid
@@ -70,8 +68,9 @@ def run_cell(study_path: str, out: str) -> dict:
 def montecarlo_task(study, row: dict, samples: int, seed: int) -> dict:
     """Monte Carlo Iq of one front.csv row against its linear (adjoint) sigma estimate.
 
-    Both at the study's tt corner (else its first), first (nominal) temperature and nominal
-    supply, as `stagefront evaluate --montecarlo` does. Runs on a Dask worker.
+    `optimise.montecarlo.confirm_sigma` (the study's tt corner, else its first; first
+    temperature; nominal supply, as `stagefront evaluate --montecarlo`) under the sweep's
+    column names. Runs on a Dask worker.
 
     Parameters
     ----------
@@ -89,26 +88,15 @@ def montecarlo_task(study, row: dict, samples: int, seed: int) -> dict:
         mc_samples, mc_seed, mc_corner, mc_temp_c, mc_vdd_v, mc_iq_mean_a, mc_sigma_pct,
         linear_sigma_pct (percent of Iq), mc_failed (solves that did not converge).
     """
-    from models.constants import ZERO_CELSIUS
-    from models.evaluate import evaluate, monte_carlo_iq
-    from models.tech import Corner
-
     from .export import design_from_row
+    from .montecarlo import confirm_sigma
 
-    design = design_from_row(row)
-    cond = study.conditions
-    corner = Corner.TT if Corner.TT in cond.corners else cond.corners[0]
-    res = evaluate(design, study.tech, cond, study.targets)
-    iq, ok = monte_carlo_iq(design, study.tech, corner, cond.temps[0], cond.vdd_nom, samples,
-                            np.random.default_rng(seed))
-    j = next(j for j in range(len(res.vdd)) if res.corners[j] == corner and res.vdd[j] == cond.vdd_nom
-             and res.temps[j] == cond.temps[0])
-    good = iq[ok]
-    return {"mc_samples": int(samples), "mc_seed": int(seed), "mc_corner": corner.value,
-            "mc_temp_c": float(cond.temps[0] - ZERO_CELSIUS), "mc_vdd_v": float(cond.vdd_nom),
-            "mc_iq_mean_a": float(good.mean()) if good.size else float("nan"),
-            "mc_sigma_pct": float(100 * good.std(ddof=1) / good.mean()) if good.size > 1 else float("nan"),
-            "linear_sigma_pct": float(res.pvt["iq_sigma_pct"][0, j]), "mc_failed": int((~ok).sum())}
+    mc = confirm_sigma(design_from_row(row), study, samples, seed)
+    nan = lambda v: float("nan") if v is None else float(v)  # noqa: E731
+    return {"mc_samples": mc["samples"], "mc_seed": mc["seed"], "mc_corner": mc["corner"],
+            "mc_temp_c": float(mc["temp_c"]), "mc_vdd_v": float(mc["vdd_v"]), "mc_iq_mean_a": nan(mc["iq_mean_a"]),
+            "mc_sigma_pct": nan(mc["iq_sigma_pct"]), "linear_sigma_pct": mc["linear_sigma_pct"],
+            "mc_failed": mc["failed"]}
 
 
 def _reason(future) -> str:
