@@ -386,42 +386,22 @@ def render_markdown(c: Comparison, plot: str | None = "compare.png") -> str:
 
 
 def comparison_figure(c: Comparison):
-    """Pairwise objective scatter of every group: colour per run, marker per architecture.
-
-    Reuses `optimise.plots.objective_matrix` (which styles by an "architecture" column) on
-    a copy labelled by group, then restyles each group's points and redraws the legend.
-    """
-    from matplotlib.markers import MarkerStyle
-
+    """Pairwise objective scatter of every group: colour per run, marker per architecture
+    (`optimise.plots.objective_matrix` grouped by "run/architecture")."""
     from . import plots
 
-    frames = [g.table.assign(architecture=g.label) for g in c.groups]
-    table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
-        columns=["architecture"] + list(c.objectives))
-    fig = plots.objective_matrix(table, c.objectives, title="Fronts compared (colour: run, marker: architecture)")
     palette = [f"C{k}" for k in range(10)]
     run_colour = {r.label: palette[k % len(palette)] for k, r in enumerate(c.runs)}
-    style = {}
-    for g in c.groups:
-        marker = plots.STYLE.get(g.architecture, ("x", "black"))[0]
-        m = MarkerStyle(marker)
-        style[g.label] = (m.get_path().transformed(m.get_transform()), run_colour[g.run])
-    handles = {}
-    for ax in fig.axes:
-        for coll in ax.collections:
-            lab = coll.get_label()
-            if lab in style:
-                path, colour = style[lab]
-                coll.set_paths([path])
-                coll.set_facecolor(colour)
-                coll.set_edgecolor(colour)
-                handles.setdefault(lab, coll)
-    for legend in list(fig.legends):
-        legend.remove()
-    if handles:
-        fig.legend(list(handles.values()), list(handles), loc="upper right", title="run/architecture",
-                   fontsize=7)
-    return fig
+    style = {g.label: (plots.STYLE.get(g.architecture, ("x", "black"))[0], run_colour[g.run]) for g in c.groups}
+    return plots.objective_matrix(group_table(c, "run/architecture"), c.objectives,
+                                  title="Fronts compared (colour: run, marker: architecture)",
+                                  group="run/architecture", style=style)
+
+
+def group_table(c: Comparison, column: str) -> pd.DataFrame:
+    """Every group's front.csv rows, one table, with the group's label in `column`."""
+    frames = [g.table.assign(**{column: g.label}) for g in c.groups]
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=[column] + list(c.objectives))
 
 
 def compare_runs(paths, out=None, overwrite: bool = False, stream=None) -> int:

@@ -38,9 +38,30 @@ def scaled(table: pd.DataFrame, name: str) -> np.ndarray:
     return np.abs(v) if name == "supply_sens_pct_per_v" else v
 
 
-def objective_matrix(table: pd.DataFrame, objectives, title: str = ""):
-    """Lower-triangle matrix of pairwise objective scatter, one marker per architecture."""
+def objective_matrix(table: pd.DataFrame, objectives, title: str = "", group: str = "architecture",
+                     style: dict | None = None):
+    """Lower-triangle matrix of pairwise objective scatter, one series per value of `group`.
+
+    Parameters
+    ----------
+    table : DataFrame
+        Rows to plot: front.csv columns (raw SI floats) and the `group` column.
+    objectives : iterable of str
+        Objective columns, in axis order.
+    title : str
+        Figure title (default: a title for Pareto fronts).
+    group : str
+        Column whose values label the series; also the legend's title.
+    style : dict, optional
+        Series label -> (marker, colour); default `STYLE` (by architecture). A label it
+        does not name is drawn as a black "x".
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     plt = _plt()
+    style = STYLE if style is None else style
     names = list(objectives)
     m = max(len(names), 2)
     fig, axes = plt.subplots(m - 1, m - 1, figsize=(3.2 * (m - 1) + 1, 3.0 * (m - 1) + 0.6), squeeze=False)
@@ -50,10 +71,10 @@ def objective_matrix(table: pd.DataFrame, objectives, title: str = ""):
             if c >= r or r >= len(names):
                 ax.set_visible(False)
                 continue
-            for arch, sub in table.groupby("architecture", sort=False):
-                marker, colour = STYLE.get(arch, ("x", "black"))
+            for lab, sub in table.groupby(group, sort=False):
+                marker, colour = style.get(lab, ("x", "black"))
                 ax.scatter(scaled(sub, names[c]), scaled(sub, names[r]), s=14, marker=marker, color=colour,
-                           label=arch, alpha=0.8)
+                           label=lab, alpha=0.8)
             if r == m - 1:
                 ax.set_xlabel(label(names[c]))
             if c == 0:
@@ -67,8 +88,9 @@ def objective_matrix(table: pd.DataFrame, objectives, title: str = ""):
                 if ll not in labels:
                     handles.append(hh)
                     labels.append(ll)
-    if handles:
-        fig.legend(handles, labels, loc="upper right", title="architecture")
+    if handles:  # the legend sits in the right margin: labels longer than an architecture's name in 7 pt
+        long = max(len(str(lab)) for lab in labels) > max(len(a) for a in STYLE)
+        fig.legend(handles, labels, loc="upper right", title=group, fontsize=7 if long else None)
     fig.suptitle(title or "Pareto fronts (feasible, non-dominated designs)")
     fig.tight_layout(rect=(0, 0, 0.85 if m > 2 else 0.75, 0.95))
     return fig

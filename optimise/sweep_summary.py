@@ -69,37 +69,18 @@ def joint_front(grid: Grid, out: Path, rows: list[dict]):
 
 def overlay_figure(c, cells: list[str]):
     """Every cell's front on the pairwise objective axes: one colour per cell, one marker
-    per architecture (`optimise.plots.objective_matrix`, restyled per cell)."""
+    per architecture (`optimise.plots.objective_matrix` grouped by "cell/architecture")."""
     import matplotlib
-    from matplotlib.markers import MarkerStyle
 
     from . import plots
+    from .compare import group_table
 
-    frames = [g.table.assign(architecture=g.label) for g in c.groups]
-    table = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
-        columns=["architecture"] + list(c.objectives))
-    fig = plots.objective_matrix(table, c.objectives, title="Fronts of the sweep's cells")
     palette = matplotlib.colormaps["tab20"].colors
     colour = {name: palette[k % len(palette)] for k, name in enumerate(cells)}
-    style = {}
-    for g in c.groups:
-        m = MarkerStyle(plots.STYLE.get(g.architecture, ("x", "black"))[0])
-        style[g.label] = (m.get_path().transformed(m.get_transform()), colour.get(g.run, "black"))
-    handles = {}
-    for ax in fig.axes:
-        for coll in ax.collections:
-            lab = coll.get_label()
-            if lab in style:
-                coll.set_paths([style[lab][0]])
-                coll.set_facecolor(style[lab][1])
-                coll.set_edgecolor(style[lab][1])
-                handles.setdefault(lab, coll)
-    for legend in list(fig.legends):
-        legend.remove()
-    if handles:
-        fig.legend(list(handles.values()), list(handles), loc="upper right", title="cell/architecture",
-                   fontsize=6)
-    return fig
+    style = {g.label: (plots.STYLE.get(g.architecture, ("x", "black"))[0], colour.get(g.run, "black"))
+             for g in c.groups}
+    return plots.objective_matrix(group_table(c, "cell/architecture"), c.objectives,
+                                  title="Fronts of the sweep's cells", group="cell/architecture", style=style)
 
 
 def write_summary(grid: Grid, out: Path, rows: list[dict], comparison, montecarlo: int) -> None:
