@@ -41,7 +41,8 @@ from models.stages import get_stage
 
 from . import CAUTION
 from .atomic import write_bytes, write_text
-from .compare import load_run, markdown_table
+from .compare import load_run
+from .compare_render import markdown_table
 from .errors import InputError
 from .export import UNIT_SUFFIX, design_from_row
 from .montecarlo import Confirmation, confirm, typical

@@ -84,7 +84,7 @@ def overlay_figure(c, cells: list[str]):
 
 
 def write_summary(grid: Grid, out: Path, rows: list[dict], comparison, montecarlo: int) -> None:
-    from .compare import markdown_table, show_objective
+    from .compare_render import markdown_table, show_objective
 
     cols = (["cell"] + list(grid.axes) + ["status", "reason", "front_size", "hypervolume", "on_joint_front",
                                           "evaluations", "wall_time_s"]
