@@ -32,9 +32,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import CAUTION  # noqa: F401  (optimise.pick imports CAUTION and markdown_table from here)
 from .atomic import write_bytes, write_text
-from .compare_render import markdown_table, render_markdown, render_text  # noqa: F401
+from .compare_render import render_markdown, render_text
 from .errors import InputError
 from .space import OBJECTIVES
 

@@ -52,9 +52,8 @@ from pathlib import Path
 from models.stages import STAGES
 
 from .errors import InputError
-from .study import (CONDITION_KEYS, DRIVER_KEYS, LOAD_KEYS, SUPPLY_KEYS, TARGET_UNITS, load_study,
-                    read_toml)
-from .tables import check_keys, closest, number, show, sub_table
+from .study import CONDITION_KEYS, DRIVER_KEYS, LOAD_KEYS, SUPPLY_KEYS, TARGET_UNITS, load_study
+from .tables import check_keys, closest, number, read_toml, show, sub_table
 
 GRID_KEYS = ("base", "name", "description", "axes", "search")
 SEARCH_OVERRIDES = {"population": 4, "generations": 1, "checkpoint_every": 1}  # key -> smallest allowed

@@ -24,7 +24,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .compare import CAUTION, load_run, markdown_table, minimised
+from . import CAUTION
+from .compare import load_run, minimised
+from .compare_render import markdown_table
 from .errors import InputError
 from .space import OBJECTIVES
 from .units import parse_quantity

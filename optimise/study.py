@@ -6,7 +6,6 @@ is an InputError naming the file, the key, the value and what is allowed.
 """
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -18,7 +17,7 @@ from models.stages import STAGES, get_stage
 from models.tech import Corner, Tech
 
 from .errors import InputError
-from .tables import build, check_keys, closest, number, show, sub_table
+from .tables import build, check_keys, closest, number, read_toml, show, sub_table
 from .techfile import load_tech
 
 STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
@@ -44,22 +43,6 @@ class Study:
     architectures: tuple[str, ...]
     seed: int
     raw: dict = field(repr=False, default_factory=dict)
-
-
-def read_toml(path) -> dict:
-    """Parse a TOML file; missing files and syntax errors become InputError."""
-    path = Path(path)
-    try:
-        with path.open("rb") as fh:
-            return tomllib.load(fh)
-    except FileNotFoundError:
-        raise InputError(str(path), "file not found", hint="check the path") from None
-    except IsADirectoryError:
-        raise InputError(str(path), "is a folder, not a TOML file") from None
-    except OSError as err:
-        raise InputError(str(path), f"cannot be read ({err.strerror})") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
-        raise InputError(str(path), f"is not valid TOML: {err}") from None
 
 
 def _list(where, table, key, value, kind=str):

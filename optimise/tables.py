@@ -6,6 +6,8 @@ from __future__ import annotations
 
 import datetime
 import difflib
+import tomllib
+from pathlib import Path
 
 from .errors import InputError
 from .units import parse_quantity
@@ -82,3 +84,29 @@ def build(where: str, table: str, cls, kwargs: dict):
         return cls(**kwargs)
     except ValueError as err:
         raise InputError(where, table_prefix(table) + " ".join(str(err).split())) from None
+
+
+def read_toml(path, hint: str = "") -> dict:
+    """Parse a TOML file. A missing or unreadable file, text that is not UTF-8 and every
+    TOML error become InputError naming the path; `hint` is added to a missing file's message."""
+    where = str(path)
+    try:
+        with open(Path(path), "rb") as fh:
+            raw = fh.read()
+    except FileNotFoundError:
+        raise InputError(where, "file not found", hint=f"check the path{'; ' + hint if hint else ''}") from None
+    except (OSError, TypeError, ValueError) as err:
+        reason = getattr(err, "strerror", None) or str(err)
+        raise InputError(where, f"cannot read the file ({reason})", "a readable TOML file") from None
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError as err:
+        raise InputError(where, f"not UTF-8 text ({err.reason} at byte {err.start})", "a UTF-8 TOML file") from None
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(where, f"not valid TOML: {err}", hint="check quotes, brackets and '=' on that line") from None
+    except (RecursionError, ValueError) as err:
+        # tomllib lets these through for arrays nested thousands deep and for integers
+        # longer than Python converts (4300 digits).
+        reason = "arrays nested too deeply" if isinstance(err, RecursionError) else str(err).split(":")[0]
+        raise InputError(where, f"not valid TOML: {reason}") from None
+    return data

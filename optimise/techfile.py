@@ -20,14 +20,12 @@ what is allowed; nothing else escapes `load_tech`.
 from __future__ import annotations
 
 import dataclasses
-import tomllib
-from pathlib import Path
 
 from models.constants import T_NOMINAL
 from models.tech import Corner, CornerShift, ModelKind, MosTech, Tech
 
 from .errors import InputError
-from .tables import build, check_keys, closest, number, show, sub_table
+from .tables import build, check_keys, closest, number, read_toml, show, sub_table
 
 # Unit of every numeric key; a unit word in a suffixed string must match it.
 MOS_UNITS = {
@@ -125,24 +123,5 @@ def load_tech(path) -> Tech:
         The file is missing, unreadable or not TOML, or its contents fail the checks of
         `tech_from_dict`. Every message starts with the path.
     """
-    where = str(path)
-    try:
-        with open(Path(path), "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise InputError(where, "file not found", hint="check the path; shipped technologies are in studies/tech/") from None
-    except (OSError, TypeError, ValueError) as err:
-        reason = getattr(err, "strerror", None) or str(err)
-        raise InputError(where, f"cannot read the file ({reason})", "a readable TOML file") from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except UnicodeDecodeError as err:
-        raise InputError(where, f"not UTF-8 text ({err.reason} at byte {err.start})", "a UTF-8 TOML file") from None
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(where, f"not valid TOML: {err}", hint="check quotes, brackets and '=' on that line") from None
-    except (RecursionError, ValueError) as err:
-        # tomllib lets these through for arrays nested thousands deep and for integers
-        # longer than Python converts (4300 digits).
-        reason = "arrays nested too deeply" if isinstance(err, RecursionError) else str(err).split(":")[0]
-        raise InputError(where, f"not valid TOML: {reason}") from None
-    return tech_from_dict(data, where)
+    data = read_toml(path, hint="shipped technologies are in studies/tech/")
+    return tech_from_dict(data, str(path))

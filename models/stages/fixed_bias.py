@@ -16,6 +16,7 @@ import numpy as np
 
 from ..tech import Polarity
 from .base import DeviceSpec, ResistorSpec, SourceSpec, Topology, solve_bracketed, subset
+from .common_source import gates, gm_output, output  # noqa: F401 (the stage interface)
 
 NAME = "fixed-bias"
 ROLES = ("mn_out", "mp_out")
@@ -73,26 +74,6 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
         gn = vdd - vcomp - np.maximum(vb, 0.0)
         gp = gn + vb
     return gn, gp, np.zeros(vdd.shape, dtype=int), np.ones(vdd.shape, dtype=bool)
-
-
-def gates(nodes):
-    """Gates of the pull-down and pull-up output devices."""
-    return nodes["gn"], nodes["gp"]
-
-
-def gm_output(devs, nodes, vdd):
-    """gm(MN_OUT) + gm(MP_OUT) at rest [S]."""
-    out = 0.5 * vdd
-    _, g_n, _, _ = devs["mn_out"].eval(nodes["gn"], out, 0.0, 0.0)
-    _, g_p, _, _ = devs["mp_out"].eval(nodes["gp"], out, vdd, vdd)
-    return g_n - g_p
-
-
-def output(devs, gate_n, gate_p, vdd, v):
-    """(i_push, i_pull, d(i_push - i_pull)/dv) with the gates held and the output at v."""
-    i_p, _, gpd, _ = devs["mp_out"].eval(gate_p, v, vdd, vdd)
-    i_n, _, gnd, _ = devs["mn_out"].eval(gate_n, v, 0.0, 0.0)
-    return i_p, i_n, gpd - gnd
 
 
 def requirements(devs, bias, vdd, nodes, vcomp):

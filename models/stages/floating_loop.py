@@ -26,6 +26,7 @@ import numpy as np
 
 from ..tech import Polarity
 from .base import DeviceSpec, SourceSpec, Topology, newton, solve_bracketed, subset
+from .common_source import gates, gm_output, output  # noqa: F401 (the stage interface)
 
 NAME = "floating-loop"
 ROLES = ("mn_out", "mp_out", "mn_d1", "mn_d2", "mn_ctl", "mp_d1", "mp_d2", "mp_ctl")
@@ -283,30 +284,6 @@ def _edge_bracketed(devs, bias, vdd, nb2, pb2, driven_node, direction, bound, re
     v_f = np.where(m_rest <= 0, rest, v_f)
     g_n, g_p, _, ok_h = at(devs, bias, vdd, nb2, pb2, v_f, warm)
     return g_n, g_p, (ok_f | (m_rest <= 0)) & ok_h
-
-
-def gates(nodes):
-    """Gates of the pull-down and pull-up output devices."""
-    return nodes["gn"], nodes["gp"]
-
-
-def gm_output(devs, nodes, vdd):
-    """Transconductance that sets the output pole, gm(MN_OUT) + gm(MP_OUT) [S]."""
-    out = 0.5 * vdd
-    _, g_n, _, _ = devs["mn_out"].eval(nodes["gn"], out, 0.0, 0.0)
-    _, g_p, _, _ = devs["mp_out"].eval(nodes["gp"], out, vdd, vdd)
-    return g_n - g_p
-
-
-def output(devs, gate_n, gate_p, vdd, v):
-    """Currents of the output devices with the gates held and the output at v.
-
-    Returns (i_push, i_pull, d_net): current from MP_OUT into the output, current from the
-    output through MN_OUT, and d(i_push - i_pull)/dv. Shapes (m,).
-    """
-    i_p, _, gpd, _ = devs["mp_out"].eval(gate_p, v, vdd, vdd)
-    i_n, _, gnd, _ = devs["mn_out"].eval(gate_n, v, 0.0, 0.0)
-    return i_p, i_n, gpd - gnd
 
 
 def requirements(devs, bias, vdd, nodes, vcomp):
