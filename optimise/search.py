@@ -20,6 +20,7 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import moocore
 import numpy as np
 from pymoo.algorithms.moo.nsga2 import NSGA2
 from pymoo.indicators.hv import HV
@@ -87,13 +88,12 @@ def hypervolume(F: np.ndarray, ideal: np.ndarray, ref: np.ndarray) -> float:
 
 
 def non_dominated(F: np.ndarray) -> np.ndarray:
-    """Mask of the rows of F (n, m) that no other row dominates (minimisation)."""
+    """Mask of the rows of F (n, m) that no other row dominates (minimisation); equal
+    rows do not dominate each other. moocore (a pymoo dependency) does it in C."""
     F = np.asarray(F, dtype=float)
-    keep = np.ones(len(F), dtype=bool)
-    for i in range(len(F)):
-        if np.any(np.all(F <= F[i], axis=1) & np.any(F < F[i], axis=1)):
-            keep[i] = False
-    return keep
+    if len(F) == 0:
+        return np.zeros(0, dtype=bool)
+    return np.asarray(moocore.is_nondominated(F, keep_weakly=True), dtype=bool)
 
 
 def _feasible(pop) -> np.ndarray:

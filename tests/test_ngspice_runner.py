@@ -265,7 +265,7 @@ def _child_pytest(tmp_path: Path, require: bool) -> subprocess.Popen:
 
 @pytest.fixture(scope="module")
 def policy_runs(tmp_path_factory):
-    """Both child sessions, started together (each takes about a second)."""
+    """Both child pytest runs, started together (each takes about a second)."""
     tmp = tmp_path_factory.mktemp("policy")
     procs = {"optional": _child_pytest(tmp, False), "required": _child_pytest(tmp, True)}
     return {k: (p.communicate(timeout=120)[0], p.returncode) for k, p in procs.items()}
