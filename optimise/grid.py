@@ -51,6 +51,7 @@ from pathlib import Path
 
 from models.stages import STAGES
 
+from . import CAUTION
 from .errors import InputError
 from .study import CONDITION_KEYS, DRIVER_KEYS, LOAD_KEYS, SUPPLY_KEYS, TARGET_UNITS, load_study
 from .tables import check_keys, closest, number, read_toml, show, sub_table
@@ -272,7 +273,7 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
         header = (f"# Cell {cname} of the sweep {name}: the base study {base.name} with\n"
                   f"# {setting}.\n"
                   "# Written by `stagefront sweep`; run it on its own with `stagefront optimise THIS-FILE`.\n"
-                  "# Model estimates for early design only: the foundry's kit and sign-off simulation decide.\n")
+                  f"# {CAUTION}\n")
         cells.append(Cell(cname, values, header + dumps(data)))
     return tuple(cells)
 

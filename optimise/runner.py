@@ -19,6 +19,7 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
+from . import CAUTION
 from .atomic import write_bytes
 from .errors import InputError
 from .export import closest_design_report, front_table, run_record, write_front, write_json
@@ -134,5 +135,5 @@ def optimise_study(study_path, out=None, seed=None, population=None, generations
     p(f"front:  {out / 'front.csv'}")
     p(f"plots:  {', '.join(str(out / n) for n in PLOTS)}")
     p(f"record: {out / 'run.json'}")
-    p("Model estimates for early design only: the foundry's kit and sign-off simulation decide.")
+    p(CAUTION)
     return 130 if status == "interrupted" else 0
