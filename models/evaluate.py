@@ -166,7 +166,11 @@ class Result:
 
     @property
     def feasible(self) -> np.ndarray:
-        return np.array([not v for v in self.violations])
+        """(n,) True where every PVT point converged and every margin is met."""
+        ok = self.converged.all(axis=1)
+        for arr in self.margins.values():
+            ok = ok & (np.asarray(arr) >= 0)
+        return ok
 
 
 def _shifts(tech: Tech, corner):
@@ -298,7 +302,8 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
 
 
-def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chunk: int = 16384) -> Result:
+def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chunk: int = 16384,
+             explain: bool = True) -> Result:
     """All metrics of a population at every PVT point, with summary and violations.
 
     Parameters
@@ -311,6 +316,9 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     targets : Targets
     chunk : int
         Elements (design x PVT pairs) processed at a time; bounds the memory.
+    explain : bool
+        Word the violations of every design (the search, which needs only the margins,
+        turns this off).
 
     Returns
     -------
@@ -339,7 +347,7 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     converged = converged.reshape(n, k)
     _supply_sensitivity(pvt, cond, corner, temp, vdd)
     summary = _summary(pvt, design, stage, cond, corner, temp, vdd, targets)
-    violations, margins = _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names)
+    violations, margins = _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, explain)
     return Result(design.architecture, corner, temp, vdd, pvt, summary, converged, req_names, violations, margins)
 
 
@@ -405,7 +413,7 @@ def _where(corner, temp, vdd, j):
     return f"{corner[j].value}, {temp[j] - 273.15:g} C, {vdd[j]:g} V"
 
 
-def _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names):
+def _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, explain=True):
     """Violations (readable, per design) and worst margins (per design, >= 0 when met).
 
     Margins are relative to their limit, so the search can use them as constraints."""
@@ -450,10 +458,12 @@ def _check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names)
         arr = np.where(converged, np.nan_to_num(arr, nan=-1.0), inf)
         worst = arr.argmin(axis=1)
         margins[key] = arr[np.arange(n), worst]
-        for i in np.flatnonzero(margins[key] < 0):
+        for i in np.flatnonzero(margins[key] < 0) if explain else ():
             violations[i].append(labels[key](i, worst[i]))
     margins["area"] = np.full(n, inf) if not np.isfinite(targets.area_max) else \
         (targets.area_max * 1e12 - summary["area_um2"]) / (targets.area_max * 1e12)
+    if not explain:
+        return violations, margins
     for i in np.flatnonzero(margins["area"] < 0):
         violations[i].append(f"area {summary['area_um2'][i]:.4g} um^2 exceeds {targets.area_max * 1e12:.4g} um^2")
     for i in np.flatnonzero(~converged.all(axis=1)):

@@ -163,22 +163,21 @@ def _softplus_sigmoid(h):
 
 def _ekv(m, w, l, vgb, vdb, vsb, dvt, dbeta):
     ut, n = m.ut, m.n
-    ispec = specific_current(m, w, l, dbeta)
+    inv_ut = 1.0 / ut
     vp = (vgb - m.vt0 - dvt) / n
-    half_ut = 0.5 / ut
-    lf, sf = _softplus_sigmoid((vp - vsb) * half_ut)
-    lr, sr = _softplus_sigmoid((vp - vdb) * half_ut)
+    lf, sf = _softplus_sigmoid((vp - vsb) * (0.5 * inv_ut))
+    lr, sr = _softplus_sigmoid((vp - vdb) * (0.5 * inv_ut))
     vds = vdb - vsb
-    va = early_voltage(m, l)
-    c = 1.0 + np.abs(vds) / va
-    i0 = ispec * (lf * lf - lr * lr)
-    dff = lf * sf
-    dfr = lr * sr
-    s = np.sign(vds) / va
-    gg = ispec * c * (dff - dfr) / (n * ut)
-    gd = ispec * c * dfr / ut + i0 * s
-    gs = -ispec * c * dff / ut - i0 * s
-    return i0 * c, gg, gd, gs
+    inv_va = 1.0 / early_voltage(m, l)
+    k = specific_current(m, w, l, dbeta) * (1.0 + np.abs(vds) * inv_va)  # Ispec times length modulation
+    i0 = k * (lf * lf - lr * lr)  # current with length modulation
+    dff = lf * sf * inv_ut
+    dfr = lr * sr * inv_ut
+    s = i0 * (np.sign(vds) * inv_va / (1.0 + np.abs(vds) * inv_va))  # d(length modulation)/dVDS share
+    gg = k * (dff - dfr) / n
+    gd = k * dfr + s
+    gs = -k * dff - s
+    return i0, gg, gd, gs
 
 
 def _threshold(m, vsb, dvt):

@@ -68,6 +68,7 @@ class StageProblem(Problem):
                          xl=space.xl, xu=space.xu)
 
     def _evaluate(self, X, out, *args, **kwargs):
-        res = evaluate(self.space.decode(X), self.study.tech, self.study.conditions, self.study.targets)
+        res = evaluate(self.space.decode(X), self.study.tech, self.study.conditions, self.study.targets,
+                       explain=False)
         out["F"] = objective_values(res, self.objectives)
         out["G"] = constraint_values(res, self.constraints)
