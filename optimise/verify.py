@@ -30,7 +30,7 @@ import numpy as np
 from models.constants import ZERO_CELSIUS
 from models.evaluate import Design, evaluate
 from models.stages import get_stage
-from models.tech import Corner
+from models.tech import Corner, ModelKind
 
 from . import ngspice
 from . import testbench as tb
@@ -214,6 +214,12 @@ def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmo
                          f"none of the study's corners ({', '.join(c.value for c in cond.corners)}) is available "
                          f"from {models.describe()}",
                          hint="a plain card supports tt only; a .lib file supports the corners it has sections for")
+    if not models_path and study.tech.model is not ModelKind.SQUARE_LAW:
+        # Level-1 cards run the square law, not the EKV equations the study solves: the
+        # comparison then measures the difference between the two device models.
+        log(f"note: {study.tech.name} is an {study.tech.model.value} technology and no --models was given; the "
+            "level-1 cards made from it run the square law, so the errors below compare two device models. "
+            "Give the card the technology was calibrated to (--models) to check the design.")
     log(f"verifying {len(ids)} designs at {len(corners)} corners x {len(cond.temps)} temperatures x "
         f"{len(cond.supplies)} supplies with {models.describe()}"
         + (f"; corners not in the model file, skipped: {', '.join(skipped)}" if skipped else ""))
