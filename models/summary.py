@@ -1,0 +1,132 @@
+"""Per-design figures from the per-PVT metrics: supply sensitivity, the summary over the
+PVT grid, and the check against the targets (relative margins and worded violations).
+
+Used by `models.evaluate`; pure numpy, no solving here.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .tech import Corner
+
+
+def supply_sensitivity(pvt, cond, corner, temp, vdd):
+    """(Iq(VDD max) - Iq(VDD min)) / Iq(nominal) / (VDD max - VDD min), percent per volt,
+    per corner and temperature; stored at each of the group's PVT points."""
+    iq = pvt["iq_a"]
+    sens = np.zeros_like(iq)
+    span = cond.vdd_max - cond.vdd_min
+    ns = len(cond.supplies)
+    for g in range(len(vdd) // ns):
+        cols = np.arange(g * ns, (g + 1) * ns)
+        v = vdd[cols]
+        i_nom = iq[:, cols[np.argmin(np.abs(v - cond.vdd_nom))]]
+        i_lo = iq[:, cols[np.argmin(v)]]
+        i_hi = iq[:, cols[np.argmax(v)]]
+        # When Iq is zero at the nominal supply (a stage that cuts off there), the largest
+        # Iq of the group stands in for it, so a stage that only conducts at some supplies
+        # never looks supply-stable.
+        ref = np.where(i_nom > 0, i_nom, np.maximum(i_lo, i_hi))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            val = np.where((ref > 0) & (span > 0), 100.0 * (i_hi - i_lo) / ref / max(span, 1e-300), 0.0)
+        sens[:, cols] = val[:, None]
+    pvt["supply_sens_pct_per_v"] = sens
+
+
+def nominal_column(cond, corner, temp, vdd):
+    for j in range(len(vdd)):
+        if corner[j] == Corner.TT and temp[j] == cond.temps[0] and vdd[j] == cond.vdd_nom:
+            return j
+    for j in range(len(vdd)):  # no tt in the study: the first corner stands in
+        if temp[j] == cond.temps[0] and vdd[j] == cond.vdd_nom:
+            return j
+    return 0
+
+
+def summarise(pvt, design, stage, cond, corner, temp, vdd, targets):
+    j = nominal_column(cond, corner, temp, vdd)
+    bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
+    area = sum(np.asarray(design.w[r]) * np.asarray(design.l[r]) for r in stage.ROLES) * targets.layout_factor
+    sens = pvt["supply_sens_pct_per_v"]
+    return {
+        "iq_a": pvt["iq_a"][:, j],
+        "iq_min_a": pvt["iq_a"].min(axis=1),
+        "iq_max_a": pvt["iq_a"].max(axis=1),
+        "power_w": cond.vdd_nom * (pvt["iq_a"][:, j] + stage.bias_total(bias)),
+        "headroom_high_v": pvt["headroom_high_v"].max(axis=1),
+        "headroom_low_v": pvt["headroom_low_v"].max(axis=1),
+        "swing_v": pvt["swing_v"].min(axis=1),
+        "iout_source_a": pvt["iout_source_a"].min(axis=1),
+        "iout_sink_a": pvt["iout_sink_a"].min(axis=1),
+        "ab_ratio": pvt["ab_ratio"].min(axis=1),
+        "area_um2": area * 1e12,
+        "iq_sigma_pct": pvt["iq_sigma_pct"].max(axis=1),
+        "supply_sens_pct_per_v": sens[np.arange(len(sens)), np.argmax(np.abs(sens), axis=1)],
+        "vdd_min_v": pvt["vdd_min_v"].max(axis=1),
+        "fp2_hz": pvt["fp2_hz"].min(axis=1),
+        "c_drive_f": pvt["c_drive_f"].max(axis=1),
+    }
+
+
+def where(corner, temp, vdd, j):
+    return f"{corner[j].value}, {temp[j] - 273.15:g} C, {vdd[j]:g} V"
+
+
+def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, explain=True):
+    """Violations (readable, per design) and worst margins (per design, >= 0 when met).
+
+    Margins are relative to their limit, so the search can use them as constraints."""
+    n, k = pvt["iq_a"].shape
+    iq = pvt["iq_a"]
+    spread = targets.iq_sigmas * pvt["iq_sigma_pct"] / 100.0
+    inf = np.inf
+    m = {}
+    with np.errstate(divide="ignore", invalid="ignore"):
+        m["iq_low"] = (iq * (1 - spread) - targets.iq_min) / max(targets.iq_min, 1e-12) if targets.iq_min > 0 \
+            else np.full((n, k), inf)
+        m["iq_high"] = (targets.iq_max - iq * (1 + spread)) / targets.iq_max if np.isfinite(targets.iq_max) \
+            else np.full((n, k), inf)
+        hr = np.maximum(pvt["headroom_high_v"], pvt["headroom_low_v"])
+        m["headroom"] = (targets.headroom_max - hr) / targets.headroom_max if np.isfinite(targets.headroom_max) \
+            else np.full((n, k), inf)
+        m["load_current"] = (np.minimum(pvt["iout_source_a"], pvt["iout_sink_a"]) - targets.i_load) / targets.i_load
+        m["ab_ratio"] = (pvt["ab_ratio"] - targets.ab_min) / targets.ab_min if targets.ab_min > 0 \
+            else np.full((n, k), inf)
+        m["fp2"] = (pvt["fp2_hz"] - targets.fp2_min) / targets.fp2_min if targets.fp2_min > 0 \
+            else np.full((n, k), inf)
+        m["vdd_min"] = (vdd[None, :] - pvt["vdd_min_v"]) / vdd[None, :]
+    labels = {
+        "iq_low": lambda i, j: f"Iq {iq[i, j]:.4g} A{' (at -%g sigma)' % targets.iq_sigmas if targets.iq_sigmas else ''}"
+                               f" below the window minimum {targets.iq_min:.4g} A at {where(corner, temp, vdd, j)}",
+        "iq_high": lambda i, j: f"Iq {iq[i, j]:.4g} A{' (at +%g sigma)' % targets.iq_sigmas if targets.iq_sigmas else ''}"
+                                f" above the window maximum {targets.iq_max:.4g} A at {where(corner, temp, vdd, j)}",
+        "headroom": lambda i, j: f"headroom {hr[i, j]:.4g} V exceeds {targets.headroom_max:.4g} V at "
+                                 f"{where(corner, temp, vdd, j)}",
+        "load_current": lambda i, j: f"peak output current {min(pvt['iout_source_a'][i, j], pvt['iout_sink_a'][i, j]):.4g}"
+                                     f" A is below the load current {targets.i_load:.4g} A at {where(corner, temp, vdd, j)}",
+        "ab_ratio": lambda i, j: f"ab_ratio {pvt['ab_ratio'][i, j]:.4g} is below {targets.ab_min:.4g} at "
+                                 f"{where(corner, temp, vdd, j)}",
+        "fp2": lambda i, j: f"output pole {pvt['fp2_hz'][i, j]:.4g} Hz is below {targets.fp2_min:.4g} Hz at "
+                            f"{where(corner, temp, vdd, j)}",
+        "vdd_min": lambda i, j: f"at {where(corner, temp, vdd, j)}: {req_names[pvt['vdd_min_what'][i, j]]} "
+                                f"by {pvt['vdd_min_v'][i, j] - vdd[j]:.3g} V (needs {pvt['vdd_min_v'][i, j]:.3g} V)",
+    }
+    violations = [[] for _ in range(n)]
+    margins = {}
+    for key, arr in m.items():
+        arr = np.where(converged, np.nan_to_num(arr, nan=-1.0), inf)
+        worst = arr.argmin(axis=1)
+        margins[key] = arr[np.arange(n), worst]
+        for i in np.flatnonzero(margins[key] < 0) if explain else ():
+            violations[i].append(labels[key](i, worst[i]))
+    margins["area"] = np.full(n, inf) if not np.isfinite(targets.area_max) else \
+        (targets.area_max * 1e12 - summary["area_um2"]) / (targets.area_max * 1e12)
+    if not explain:
+        return violations, margins
+    for i in np.flatnonzero(margins["area"] < 0):
+        violations[i].append(f"area {summary['area_um2'][i]:.4g} um^2 exceeds {targets.area_max * 1e12:.4g} um^2")
+    for i in np.flatnonzero(~converged.all(axis=1)):
+        bad = np.flatnonzero(~converged[i])
+        violations[i].insert(0, f"operating point did not converge at {len(bad)} of {k} PVT points "
+                                f"(first: {where(corner, temp, vdd, bad[0])})")
+    return violations, margins
