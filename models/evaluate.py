@@ -215,7 +215,6 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
         return (u - dn) * direction - i_load, dd * direction
 
     can = peak >= i_load
-    # Output voltage to 0.1 uV: the last safeguarded Newton step leaves far less.
     rail = vdd if direction > 0 else np.zeros_like(vdd)
     # Start from the rail side: the active device's triode conductance at the rail gives
     # the output voltage drop for the load current.
@@ -224,6 +223,7 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     x0 = rail - direction * np.clip((i_load + (r_dn if direction > 0 else r_up)) / np.maximum(np.abs(d_rail), 1e-30),
                                     0.0, 0.5 * vdd)
     f_mid = peak - i_load
+    # Output voltage to 0.1 uV: the last safeguarded Newton step leaves far less.
     if direction > 0:
         v_at, ok_v = solve_bracketed(fun, out, vdd.copy(), x0=x0, xtol=1e-7, flo=f_mid, fhi=f_rail)
     else:
@@ -234,7 +234,44 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     idle = i_dn if direction > 0 else i_up
     with np.errstate(divide="ignore", invalid="ignore"):
         ab = np.where(iq > 0, idle / iq, 0.0)
-    return headroom, peak, ab, limit, ok & (ok_v | ~can), can
+    return headroom, peak, ab, limit, ok & (ok_v | ~can)
+
+
+def _rest_point(stage, devs, bias, vdd, sensitivity=True):
+    """Rest point of every element: the stage's fast solve, checked against the residuals
+    of the full Kirchhoff system, with Newton on that system as the second chance.
+
+    Returns (nodes, ok, sens): node voltages, convergence flags and, when asked, the Iq
+    sensitivities of `NodalSystem.iq_sensitivity` (else None).
+    """
+    nodes, ok = stage.quiescent(devs, bias, vdd)
+    system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd)
+    x = np.stack([nodes[nname] for nname in stage.TOPOLOGY.nodes] + [np.zeros_like(vdd)])
+    if sensitivity:
+        sens, r = system.iq_sensitivity(x, stage.PULL_DOWN)
+    else:
+        sens, r = None, system.assemble(x, np.arange(len(vdd)))[0]
+    scale = np.maximum(stage.bias_total(bias), 1e-15)
+    ok &= np.all(np.abs(r) <= 1e-6 * scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
+    if not ok.all():
+        bad = np.flatnonzero(~ok)
+        sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad])
+        xb, ok[bad] = sub.solve(np.nan_to_num(x[:, bad], nan=0.0))
+        for k_node, nname in enumerate(stage.TOPOLOGY.nodes):
+            nodes[nname] = nodes[nname].copy()
+            nodes[nname][bad] = xb[k_node]
+        if sensitivity:
+            sens_b, _ = sub.iq_sensitivity(xb, stage.PULL_DOWN)
+            for role, (s_vt, s_beta) in sens_b.items():
+                sens[role][0][bad], sens[role][1][bad] = s_vt, s_beta
+    return nodes, ok, sens
+
+
+def _pull_down_current(stage, devs, nodes, vdd):
+    """Iq: the current of the pull-down output device at the rest point [A], >= 0."""
+    spec = stage.TOPOLOGY.spec(stage.PULL_DOWN)
+    v = {"vdd": vdd, "0": np.zeros_like(vdd), "out": 0.5 * vdd, **nodes}
+    return np.maximum(devs[stage.PULL_DOWN].current(v[spec.g], v[spec.d], v[spec.s], v[spec.rail]), 0.0)
 
 
 def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
@@ -244,28 +281,8 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     vdd = vdd_all[idx_pvt]
     devs = _devices(stage, design, tech, shifts, temp, idx_design)
     bias = {k: np.asarray(v, dtype=float)[idx_design] for k, v in design.bias.items()}
-    nodes, ok = stage.quiescent(devs, bias, vdd)
-    system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd)
-    x = np.stack([nodes[nname] for nname in stage.TOPOLOGY.nodes] + [np.zeros_like(vdd)])
-    sens, r = system.iq_sensitivity(x, stage.PULL_DOWN)
-    scale = np.maximum(stage.bias_total(bias), 1e-15)
-    ok &= np.all(np.abs(r) <= 1e-6 * scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
-    if not ok.all():  # second chance: Newton on the full nodal system
-        bad = np.flatnonzero(~ok)
-        sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad])
-        xb, ok[bad] = sub.solve(np.nan_to_num(x[:, bad], nan=0.0))
-        x[:, bad] = xb
-        for k_node, nname in enumerate(stage.TOPOLOGY.nodes):
-            nodes[nname] = x[k_node]
-        sens_b, _ = sub.iq_sensitivity(xb, stage.PULL_DOWN)
-        for role, (s_vt, s_beta) in sens_b.items():
-            sens[role][0][bad], sens[role][1][bad] = s_vt, s_beta
-    out = 0.5 * vdd
-    down = devs[stage.PULL_DOWN]
-    spec_down = next(s for s in stage.TOPOLOGY.devices if s.role == stage.PULL_DOWN)
-    node_v = {"vdd": vdd, "0": np.zeros_like(vdd), "out": out, **nodes}
-    iq = down.current(node_v[spec_down.g], node_v[spec_down.d], node_v[spec_down.s], node_v[spec_down.rail])
-    iq = np.maximum(iq, 0.0)
+    nodes, ok, sens = _rest_point(stage, devs, bias, vdd)
+    iq = _pull_down_current(stage, devs, nodes, vdd)
 
     var = np.zeros_like(vdd)
     for spec in stage.TOPOLOGY.devices:
@@ -284,13 +301,13 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     vdd_min = np.max(req, axis=0)
     vdd_min_what = np.argmax(req, axis=0)
 
-    hh, i_src, ab_src, lim_src, ok_src, can_src = _driven_point(stage, devs, bias, vdd, nodes, +1, targets, iq)
-    hl, i_snk, ab_snk, lim_snk, ok_snk, can_snk = _driven_point(stage, devs, bias, vdd, nodes, -1, targets, iq)
+    hh, i_src, ab_src, lim_src, ok_src = _driven_point(stage, devs, bias, vdd, nodes, +1, targets, iq)
+    hl, i_snk, ab_snk, lim_snk, ok_snk = _driven_point(stage, devs, bias, vdd, nodes, -1, targets, iq)
 
     c_drive = np.zeros_like(vdd)
     for role in (stage.PULL_DOWN, stage.PULL_UP):
         dev = devs[role]
-        mt = tech.mos(next(s.polarity for s in stage.TOPOLOGY.devices if s.role == role))
+        mt = tech.mos(stage.TOPOLOGY.spec(role).polarity)
         c_drive += gate_capacitance(mt, dev.w, dev.l, inversion_coefficient(dev.mos, dev.w, dev.l, iq))
 
     res = {
@@ -298,7 +315,6 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": np.minimum(ab_src, ab_snk),
         "iq_sigma_pct": sigma_pct, "vdd_min_v": vdd_min, "fp2_hz": fp2, "c_drive_f": c_drive,
         "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what,
-        "delivers_source": can_src, "delivers_sink": can_snk,
     }
     return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
 
@@ -381,8 +397,5 @@ def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd:
     devs = _devices(stage, design, tech, _shifts(tech, [corner] * samples), np.full(samples, temp), idx, dvt, dbeta)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
     vdd_arr = np.full(samples, float(vdd))
-    nodes, ok = stage.quiescent(devs, bias, vdd_arr)
-    spec = next(s for s in stage.TOPOLOGY.devices if s.role == stage.PULL_DOWN)
-    node_v = {"vdd": vdd_arr, "0": np.zeros(samples), "out": 0.5 * vdd_arr, **nodes}
-    iq = devs[stage.PULL_DOWN].current(node_v[spec.g], node_v[spec.d], node_v[spec.s], node_v[spec.rail])
-    return iq, ok
+    nodes, ok, _ = _rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
+    return _pull_down_current(stage, devs, nodes, vdd_arr), ok

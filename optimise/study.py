@@ -147,7 +147,7 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
         table = f"devices.{role}"
         dev = sub_table(where, "devices", role, devices[role])
         check_keys(where, table, dev, ("w", "l", "bulk"), ("w", "l"))
-        polarity = next(s.polarity for s in stage.TOPOLOGY.devices if s.role == role)
+        polarity = stage.TOPOLOGY.spec(role).polarity
         mt = tech.mos(polarity)
         for key, store, minimum in (("w", w, mt.w_min), ("l", l, mt.l_min)):
             value = _micrometres(where, table, key, dev[key])

@@ -71,6 +71,13 @@ class Topology:
     def roles(self) -> tuple[str, ...]:
         return tuple(d.role for d in self.devices)
 
+    def spec(self, role: str) -> DeviceSpec:
+        """The device record of a role."""
+        for d in self.devices:
+            if d.role == role:
+                return d
+        raise KeyError(role)
+
     @property
     def nodes(self) -> tuple[str, ...]:
         """Internal nodes (unknowns of the nodal system), in first-seen order."""
@@ -349,7 +356,7 @@ class NodalSystem:
         idx = np.arange(m)
         r, jac, theta = self.assemble(x, idx, want_theta=True)
         v = self.voltages(x, idx)
-        spec = next(d for d in self.topo.devices if d.role == out_role)
+        spec = self.topo.spec(out_role)
         dev = self.devices[out_role]
         i, gg, gd, gs = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
         grad = np.zeros((m, self.size))
