@@ -72,6 +72,12 @@ class Design:
     def size(self) -> int:
         return int(np.size(next(iter(self.w.values()))))
 
+    def take(self, idx) -> "Design":
+        """The designs at the integer positions idx, as a population of their own."""
+        return Design(self.architecture, {k: np.asarray(v)[idx] for k, v in self.w.items()},
+                      {k: np.asarray(v)[idx] for k, v in self.l.items()},
+                      {k: np.asarray(v)[idx] for k, v in self.bias.items()}, self.tied)
+
 
 @dataclass(frozen=True, slots=True)
 class Conditions:
@@ -164,6 +170,15 @@ class Result:
     requirement_names: tuple
     violations: list = field(default_factory=list)
     margins: dict = field(default_factory=dict)
+
+    def take(self, idx) -> "Result":
+        """The results of the designs at the integer positions idx, in that order."""
+        idx = np.asarray(idx, dtype=int)
+        return Result(self.architecture, self.corners, self.temps, self.vdd,
+                      {k: v[idx] for k, v in self.pvt.items()}, {k: v[idx] for k, v in self.summary.items()},
+                      self.converged[idx], self.requirement_names,
+                      [self.violations[i] for i in idx] if self.violations else [],
+                      {k: np.asarray(v)[idx] for k, v in self.margins.items()})
 
     @property
     def feasible(self) -> np.ndarray:

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from models.evaluate import Design, Result, evaluate
-from models.stages import STAGES, get_stage
+from models.stages import get_stage
 
 from .atomic import write_text
 from .problem import constraint_names, objective_values
@@ -95,14 +95,13 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
             if key not in seen:
                 seen.add(key)
                 keep.append(i)
-        design = _take(design, np.array(keep))
+        design = design.take(np.array(keep))
         res = evaluate(design, study.tech, study.conditions, study.targets)
         F = objective_values(res, settings.objectives)
         # Sorted by the objectives; only rows that stay feasible and non-dominated after snapping.
         order = np.lexsort(F.T[::-1])
         order = order[(non_dominated(F) & res.feasible)[order]]
-        design = _take(design, order)
-        res = evaluate(design, study.tech, study.conditions, study.targets)
+        design, res = design.take(order), res.take(order)
         results[run.architecture] = res
         df = pd.DataFrame(design_rows(design))
         df.insert(0, "architecture", run.architecture)
@@ -125,12 +124,6 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
                                                        if c in table.columns]
     cols += [c for c in table.columns if c not in cols]
     return table[cols], results
-
-
-def _take(design: Design, idx) -> Design:
-    return Design(design.architecture, {k: v[idx] for k, v in design.w.items()},
-                  {k: v[idx] for k, v in design.l.items()}, {k: v[idx] for k, v in design.bias.items()},
-                  design.tied)
 
 
 def write_front(path: Path, table: pd.DataFrame) -> None:
@@ -195,10 +188,6 @@ def run_record(study: Study, settings, runs: list[ArchRun], seed: int, populatio
 
 def write_json(path: Path, obj: dict) -> None:
     write_text(path, json.dumps(obj, indent=1, sort_keys=False) + "\n")
-
-
-def known_architectures() -> tuple[str, ...]:
-    return tuple(STAGES)
 
 
 def closest_design_report(study: Study, settings, run: ArchRun) -> dict:

@@ -130,11 +130,12 @@ class SearchSettings:
     reference: dict
 
 
-def _pair(where, table, key, value, unit, scale=1.0):
+def _pair(where, table, key, value, unit, sizes=False):
+    """A [lower, upper] bound pair, SI; `sizes` reads plain numbers as micrometres."""
     if not isinstance(value, list) or len(value) != 2:
         raise InputError(where, f"[{table}] {key} = {show(value)} is not a [lower, upper] pair",
                          f"two numbers in {unit}, e.g. [1, 100]")
-    lo, hi = (_size(where, table, key, x) if scale != 1.0 else number(where, table, key, x, unit) for x in value)
+    lo, hi = (_size(where, table, key, x) if sizes else number(where, table, key, x, unit) for x in value)
     if not (lo > 0 and hi > 0):
         raise InputError(where, f"[{table}] {key} = {show(value)} must be positive", f"0 < lower <= upper ({unit})")
     if lo > hi:
@@ -229,8 +230,8 @@ def _space(where, arch, bounds, ties, tech) -> Space:
         spec = sub_table(where, table, role, spec)
         check_keys(where, f"{table}.{role}", spec, ("w", "l", "bulk"))
         mt = tech.mos(pol[role])
-        w = _pair(where, f"{table}.{role}", "w", spec["w"], "um", 1e-6) if "w" in spec else (mt.w_min, 1000 * mt.w_min)
-        l = _pair(where, f"{table}.{role}", "l", spec["l"], "um", 1e-6) if "l" in spec else (mt.l_min, 8 * mt.l_min)
+        w = _pair(where, f"{table}.{role}", "w", spec["w"], "um", sizes=True) if "w" in spec else (mt.w_min, 1000 * mt.w_min)
+        l = _pair(where, f"{table}.{role}", "l", spec["l"], "um", sizes=True) if "l" in spec else (mt.l_min, 8 * mt.l_min)
         for key, (lo, _), minimum in (("w", w, mt.w_min), ("l", l, mt.l_min)):
             if lo < minimum * (1 - 1e-9):
                 raise InputError(where, f"[{table}.{role}] {key} lower bound {lo * 1e6:g} um is below the "
