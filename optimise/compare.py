@@ -325,12 +325,8 @@ def compare_runs(paths, out=None, overwrite: bool = False, stream=None) -> int:
         c.pairs.to_csv(buf, index=False, float_format="%.17g")
         write_text(out_dir / "compare.csv", buf.getvalue())
         write_text(out_dir / "compare.md", render_markdown(c))
-        fig = comparison_figure(c)
-        import matplotlib.pyplot as plt  # after plots chose the Agg backend
+        from .plots import png_bytes
 
-        png = io.BytesIO()
-        fig.savefig(png, format="png", dpi=110)
-        plt.close(fig)
-        write_bytes(out_dir / "compare.png", png.getvalue())
+        write_bytes(out_dir / "compare.png", png_bytes(comparison_figure(c)))
         stream.write(f"written: {', '.join(str(out_dir / f) for f in FILES)}\n")
     return 0

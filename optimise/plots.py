@@ -5,6 +5,8 @@ lazily with the Agg backend so plotting works on a machine with no screen.
 """
 from __future__ import annotations
 
+import io
+
 import numpy as np
 import pandas as pd
 
@@ -139,9 +141,12 @@ def parallel_coordinates(table: pd.DataFrame, objectives, ax=None):
     return ax
 
 
-def save(fig_or_ax, path) -> None:
-    """Save a figure (or an axes' figure) as PNG and close it."""
+def png_bytes(fig_or_ax, dpi: int = 110) -> bytes:
+    """A figure (or an axes' figure) as PNG bytes, for `optimise.atomic.write_bytes` or a
+    data URI; the figure is closed."""
     plt = _plt()
     fig = fig_or_ax if hasattr(fig_or_ax, "savefig") else fig_or_ax.figure
-    fig.savefig(path, dpi=110)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
     plt.close(fig)
+    return buf.getvalue()

@@ -3,24 +3,13 @@ knee's Monte Carlo histogram against the linear estimate, and Iq against the sup
 """
 from __future__ import annotations
 
-import io
-
 import numpy as np
 
 from models.constants import ZERO_CELSIUS
 
 from .montecarlo import typical
+from .plots import png_bytes
 from .report_data import ReportData
-
-
-def png(fig) -> bytes:
-    """The figure as PNG bytes (100 dpi); the figure is closed."""
-    import matplotlib.pyplot as plt
-
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100)
-    plt.close(fig)
-    return buf.getvalue()
 
 
 def fronts_figure(data: ReportData) -> bytes:
@@ -39,7 +28,7 @@ def fronts_figure(data: ReportData) -> bytes:
             knee = data.picks.iloc[:1]
             ax.scatter(plots.scaled(knee, names[c]), plots.scaled(knee, names[r]), s=160, marker="*",
                        color="#d1495b", edgecolors="black", linewidths=0.6, zorder=4)
-    return png(fig)
+    return png_bytes(fig, dpi=100)
 
 
 def mismatch_figure(data: ReportData) -> bytes:
@@ -67,7 +56,7 @@ def mismatch_figure(data: ReportData) -> bytes:
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()
-    return png(fig)
+    return png_bytes(fig, dpi=100)
 
 
 def supply_figure(data: ReportData) -> bytes:
@@ -99,4 +88,4 @@ def supply_figure(data: ReportData) -> bytes:
     rel.set_title("Relative to Iq at the nominal supply")
     ax.legend(fontsize=7, loc="best")
     fig.tight_layout()
-    return png(fig)
+    return png_bytes(fig, dpi=100)

@@ -10,7 +10,6 @@ unpickling a file from elsewhere can run code.
 """
 from __future__ import annotations
 
-import io
 import json
 import pickle
 import shutil
@@ -60,14 +59,7 @@ def _plots(out: Path, table, objectives, hv) -> None:
     for name, make in (("objectives.png", lambda: plots.objective_matrix(table, objectives)),
                        ("hypervolume.png", lambda: plots.hypervolume_curve(hv)),
                        ("parallel.png", lambda: plots.parallel_coordinates(table, objectives))):
-        fig_or_ax = make()
-        fig = fig_or_ax if hasattr(fig_or_ax, "savefig") else fig_or_ax.figure
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=110)
-        import matplotlib.pyplot as plt
-
-        plt.close(fig)
-        write_bytes(out / name, buf.getvalue())
+        write_bytes(out / name, plots.png_bytes(make()))
 
 
 def optimise_study(study_path, out=None, seed=None, population=None, generations=None, resume=False,

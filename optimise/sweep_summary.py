@@ -137,13 +137,9 @@ def write_summary(grid: Grid, out: Path, rows: list[dict], comparison, montecarl
     write_text(out / "summary.md", "\n".join(md) + "\n")
 
     if comparison is not None and comparison.groups:
-        import matplotlib.pyplot as plt
+        from .plots import png_bytes
 
-        fig = overlay_figure(comparison, [r["cell"] for r in rows])
-        png = io.BytesIO()
-        fig.savefig(png, format="png", dpi=110)
-        plt.close(fig)
-        write_bytes(out / "fronts.png", png.getvalue())
+        write_bytes(out / "fronts.png", png_bytes(overlay_figure(comparison, [r["cell"] for r in rows])))
 
 
 def knee_rows(grid: Grid, out: Path, rows: list[dict]) -> dict:
