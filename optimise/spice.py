@@ -97,9 +97,10 @@ def subcircuit_name(stage) -> str:
     return _stage(stage).NAME.replace("-", "_")
 
 
-def model_name(stage, role: str) -> str:
-    """Name of the level-1 card written for `role`, e.g. ``floating_loop_mn_out``."""
-    return f"{subcircuit_name(stage)}_{role}"
+def model_name(stage, role: str, subckt: str | None = None) -> str:
+    """Name of the level-1 card written for `role` in the ``.subckt`` named `subckt` (None:
+    `subcircuit_name`): ``<subckt>_<role>``, e.g. ``floating_loop_mn_out``."""
+    return f"{subcircuit_name(stage) if subckt is None else subckt}_{role}"
 
 
 def device_name(role: str) -> str:
@@ -181,7 +182,7 @@ def _length(x: float) -> str:
 # Netlist text
 # ---------------------------------------------------------------------------------------
 def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corner.TT,
-                temp: float | None = None) -> str:
+                temp: float | None = None, name: str | None = None) -> str:
     """Level-1 ``.model`` cards of every device of design i, one per role.
 
     Parameters
@@ -200,6 +201,9 @@ def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corn
         Temperature [K]; None is ``tech.tnom``. The cards hold the constants of
         `models.mos.at_conditions` at `temp` with TNOM = `temp`, for a deck run at
         ``.temp`` = `temp` (see `optimise.ngspice.level1_model_card`).
+    name : str or None
+        Name of the ``.subckt`` that uses the cards (`stage_subcircuit`'s `name`); None is
+        `subcircuit_name`.
 
     Returns
     -------
@@ -213,7 +217,7 @@ def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corn
     for spec in mod.TOPOLOGY.devices:
         dvt, kp = (shift.dvt_n, shift.kp_n) if spec.polarity == Polarity.N else (shift.dvt_p, shift.kp_p)
         lines.append(ngspice.level1_model_card(
-            model_name(mod, spec.role), tech.mos(spec.polarity), spec.polarity, wl[spec.role][1],
+            model_name(mod, spec.role, name), tech.mos(spec.polarity), spec.polarity, wl[spec.role][1],
             temp=temp, tnom=tech.tnom, dvt=dvt, kp_scale=kp,
         ))
     return "\n".join(lines)
@@ -233,10 +237,10 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
     i : int
         Index of the design in the population.
     tech_or_models : Tech or mapping of str to str
-        A Tech: the devices use the cards of `model_cards` (names from `model_name`) and
-        W, L are snapped to ``tech.grid``. A mapping role -> model name: the devices use
-        those models (a foundry kit's, say); W, L are snapped to `grid` if given, else
-        written as designed.
+        A Tech: the devices use the cards of `model_cards` given the same `name` (names
+        from `model_name`) and W, L are snapped to ``tech.grid``. A mapping role -> model
+        name: the devices use those models (a foundry kit's, say); W, L are snapped to
+        `grid` if given, else written as designed.
     grid : float or None
         Drawing grid [m] for the mapping case; ignored with a Tech.
     name : str or None
@@ -253,8 +257,9 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
         model cards.
     """
     mod = _stage(stage, design)
+    name = subcircuit_name(mod) if name is None else name
     if isinstance(tech_or_models, Tech):
-        models = {role: model_name(mod, role) for role in mod.ROLES}
+        models = {role: model_name(mod, role, name) for role in mod.ROLES}
         snap = tech_or_models.snap
     else:
         models = dict(tech_or_models)
@@ -264,7 +269,6 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
                              f"{', '.join(mod.ROLES)}")
         snap = None if grid is None else (lambda x: np.maximum(np.round(x / grid), 1.0) * grid)
     wl = sizes(mod, design, i, snap)
-    name = subcircuit_name(mod) if name is None else name
     ports = subcircuit_ports(mod)
     ports += tuple(p for p in dict.fromkeys(extra_ports) if p not in ports)
     lines = [

@@ -169,35 +169,16 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
     return ModelSource(p.resolve(), nmos, pmos, corners)
 
 
-def level1_cards(stage, design: Design, i: int, tech: Tech, corner: Corner, temp: float, prefix: str):
-    """Level-1 cards of design i named ``<prefix>_<role>`` and the role -> name mapping.
-
-    The cards hold the constants of `models.mos.at_conditions` at `temp` [K] and `corner`,
-    with TNOM = `temp` (see `optimise.ngspice.level1_model_card`); LAMBDA is per device length.
-    """
-    mod = get_stage(stage) if isinstance(stage, str) else stage
-    shift = tech.corners.get(Corner(corner), CornerShift())
-    wl = spice.sizes(mod, design, i, tech.snap)
-    names, cards = {}, []
-    for spec in mod.TOPOLOGY.devices:
-        dvt, kp = (shift.dvt_n, shift.kp_n) if spec.polarity == Polarity.N else (shift.dvt_p, shift.kp_p)
-        names[spec.role] = f"{prefix}_{spec.role}"
-        cards.append(ngspice.level1_model_card(names[spec.role], tech.mos(spec.polarity), spec.polarity,
-                                               wl[spec.role][1], temp=temp, tnom=tech.tnom, dvt=dvt, kp_scale=kp))
-    return "\n".join(cards), names
-
-
 def design_models(stage, design: Design, i: int, tech: Tech, models: ModelSource, corner: Corner, temp: float,
                   name: str) -> tuple[str, str]:
     """(model cards or "", subcircuit) of design i under the subcircuit name `name`."""
     mod = get_stage(stage) if isinstance(stage, str) else stage
     if models.level1:
-        cards, names = level1_cards(mod, design, i, tech, corner, temp, name)
-    else:
-        cards = ""
-        names = {s.role: (models.nmos if s.polarity == Polarity.N else models.pmos) for s in mod.TOPOLOGY.devices}
-    sub = spice.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name, extra_ports=gate_nodes(mod))
-    return cards, sub
+        # Level-1 cards named after the subcircuit, ``<name>_<role>``, at this corner and temperature.
+        return (spice.model_cards(mod, design, i, tech, corner, temp, name),
+                spice.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod)))
+    names = {s.role: (models.nmos if s.polarity == Polarity.N else models.pmos) for s in mod.TOPOLOGY.devices}
+    return "", spice.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name, extra_ports=gate_nodes(mod))
 
 
 def header(title: str, models: ModelSource, corner: Corner, temp: float) -> list[str]:
