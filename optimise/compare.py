@@ -229,15 +229,18 @@ def best_values(groups: list[Group], objectives: dict) -> pd.DataFrame:
     design in that objective's sense (raw SI floats, signed as in front.csv)."""
     out = {}
     for g in groups:
-        F = minimised(g.table, objectives)
-        out[g.label] = {n: float(g.table[n].iloc[int(np.argmin(F[:, k]))]) for k, n in enumerate(objectives)}
+        out[g.label] = {n: float(g.table[n].iloc[int(np.argmin(g.F[:, k]))]) for k, n in enumerate(objectives)}
     return pd.DataFrame.from_dict(out, orient="index", columns=list(objectives))
 
 
 def union_front_counts(groups: list[Group]) -> list[int]:
     """Per group, how many of its designs no design of any group dominates."""
-    F_all = np.concatenate([g.F for g in groups]) if groups else np.empty((0, 0))
-    return [int((~dominated_by(g.F, F_all)).sum()) for g in groups]
+    from .search import non_dominated  # pymoo's import cost only where it is needed (not for pick)
+
+    if not groups:
+        return []
+    keep = non_dominated(np.concatenate([g.F for g in groups]))
+    return [int(k.sum()) for k in np.split(keep, np.cumsum([len(g.F) for g in groups])[:-1])]
 
 
 @dataclass(frozen=True)
