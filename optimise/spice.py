@@ -84,7 +84,7 @@ BALANCE_TOLERANCE = (1e-3, 1e-9)  # (1, A), largest |I(pull-up) - I(pull-down)| 
 # ---------------------------------------------------------------------------------------
 # Names
 # ---------------------------------------------------------------------------------------
-def _stage(stage, design: Design | None = None) -> types.ModuleType:
+def stage_module(stage, design: Design | None = None) -> types.ModuleType:
     """The architecture module from a module or a registered name; checks the design's."""
     mod = get_stage(stage) if isinstance(stage, str) else stage
     if design is not None and design.architecture != mod.NAME:
@@ -94,7 +94,7 @@ def _stage(stage, design: Design | None = None) -> types.ModuleType:
 
 def subcircuit_name(stage) -> str:
     """Name of the architecture's ``.subckt``: its registered name with ``-`` -> ``_``."""
-    return _stage(stage).NAME.replace("-", "_")
+    return stage_module(stage).NAME.replace("-", "_")
 
 
 def model_name(stage, role: str, subckt: str | None = None) -> str:
@@ -124,17 +124,21 @@ def drive_ports(stage) -> tuple[str, ...]:
     and pull-down devices, ``("gp", "gn")``. Otherwise the topology's drive node (the
     followers' input ``nm``).
     """
-    mod = _stage(stage)
-    if _common_source(mod):
-        specs = {s.role: s for s in mod.TOPOLOGY.devices}
-        ports = (specs[mod.PULL_UP].g, specs[mod.PULL_DOWN].g)
-    else:
-        ports = ()
+    mod = stage_module(stage)
+    ports = gate_nodes(mod) if common_source(mod) else ()
     return tuple(dict.fromkeys(ports + (mod.TOPOLOGY.drive,)))
 
 
-def _common_source(mod) -> bool:
+def gate_nodes(stage) -> tuple[str, str]:
+    """(gate of the pull-up output device, gate of the pull-down output device)."""
+    mod = stage_module(stage)
+    specs = {s.role: s for s in mod.TOPOLOGY.devices}
+    return specs[mod.PULL_UP].g, specs[mod.PULL_DOWN].g
+
+
+def common_source(stage) -> bool:
     """True when both output devices have their source on a rail (a common-source pair)."""
+    mod = stage_module(stage)
     specs = {s.role: s for s in mod.TOPOLOGY.devices}
     return all(specs[r].s in ("vdd", "0") for r in (mod.PULL_UP, mod.PULL_DOWN))
 
@@ -162,7 +166,7 @@ def _shift(tech: Tech, corner: Corner) -> CornerShift:
 
 def sizes(stage, design: Design, i: int, snap=None) -> dict[str, tuple[float, float]]:
     """Role -> (W, L) [m] of design i, passed through `snap` (e.g. ``tech.snap``) if given."""
-    mod = _stage(stage, design)
+    mod = stage_module(stage, design)
     out = {}
     for role in mod.ROLES:
         w, l = _value(design.w[role], i), _value(design.l[role], i)
@@ -210,7 +214,7 @@ def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corn
     str
         One line per role, in the topology's device order, named by `model_name`.
     """
-    mod = _stage(stage, design)
+    mod = stage_module(stage, design)
     shift = _shift(tech, corner)
     wl = sizes(mod, design, i, tech.snap)
     lines = []
@@ -256,7 +260,7 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
         ``.subckt <name> vdd gnd out <drive ports> [extra ports]`` ... ``.ends``, without
         model cards.
     """
-    mod = _stage(stage, design)
+    mod = stage_module(stage, design)
     name = subcircuit_name(mod) if name is None else name
     if isinstance(tech_or_models, Tech):
         models = {role: model_name(mod, role, name) for role in mod.ROLES}
@@ -315,7 +319,7 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
         ``.op``; it saves every node voltage and the drain current ``[id]`` of the
         pull-down and pull-up output devices (`device_vector`).
     """
-    mod = _stage(stage, design)
+    mod = stage_module(stage, design)
     t = tech.tnom if temp is None else float(temp)
     t_c = round(t - ZERO_CELSIUS, 9)
     half = 0.5 * float(vdd)
@@ -331,7 +335,7 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
         f"{INSTANCE} {' '.join('0' if p == GROUND_PORT else p for p in ports)} {subcircuit_name(mod)}",
     ]
     drives = drive_ports(mod)
-    if _common_source(mod):
+    if common_source(mod):
         # The output current flows through V_HOLD into the reference; injected into the
         # gates it raises both, which lowers the output: negative feedback.
         lines.append("V_HOLD out mid dc 0")
@@ -349,7 +353,7 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
 def device_vector(stage, role: str, quantity: str = "id") -> str:
     """ngspice's vector name for a device quantity in the test bench, e.g.
     ``@m.x_stage.m_mn_out[id]`` (lower case, as the rawfile names it)."""
-    _stage(stage)
+    stage_module(stage)
     return f"@m.{INSTANCE}.{device_name(role)}[{quantity}]".lower()
 
 
@@ -389,7 +393,7 @@ def simulate_rest(stage, design: Design, i: int, tech: Tech, vdd: float, corner:
         bring the stage to rest: V(out) more than 1 mV from VDD/2, or pull-up and pull-down
         currents apart by more than 0.1 % (plus 1 nA).
     """
-    mod = _stage(stage, design)
+    mod = stage_module(stage, design)
     deck = rest_testbench(mod, design, i, tech, vdd, corner, temp)
     res = ngspice.run(deck, timeout=timeout)
 

@@ -55,6 +55,7 @@ from models.stages.base import Device, NodalSystem, subset
 from models.tech import Corner, CornerShift, Polarity, Tech
 
 from . import ngspice, spice
+from .spice import common_source, gate_nodes, stage_module
 from .errors import InputError
 
 SWEEP_POINTS = 100  # points of each drive-limit sweep from VDD/2 to the rail (9 mV apart at 1.8 V)
@@ -172,7 +173,7 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
 def design_models(stage, design: Design, i: int, tech: Tech, models: ModelSource, corner: Corner, temp: float,
                   name: str) -> tuple[str, str]:
     """(model cards or "", subcircuit) of design i under the subcircuit name `name`."""
-    mod = get_stage(stage) if isinstance(stage, str) else stage
+    mod = stage_module(stage)
     if models.level1:
         # Level-1 cards named after the subcircuit, ``<name>_<role>``, at this corner and temperature.
         return (spice.model_cards(mod, design, i, tech, corner, temp, name),
@@ -200,31 +201,19 @@ def require_ngspice() -> None:
 # ---------------------------------------------------------------------------------------
 # Drive limits from the model
 # ---------------------------------------------------------------------------------------
-def gate_nodes(stage) -> tuple[str, str]:
-    """(gate of the pull-up output device, gate of the pull-down output device)."""
-    mod = get_stage(stage) if isinstance(stage, str) else stage
-    specs = {s.role: s for s in mod.TOPOLOGY.devices}
-    return specs[mod.PULL_UP].g, specs[mod.PULL_DOWN].g
-
-
 def bench_ports(stage) -> tuple[str, ...]:
     """Ports of the test-bench subcircuit: the usual ones and both output gates."""
-    mod = get_stage(stage) if isinstance(stage, str) else stage
+    mod = stage_module(stage)
     ports = spice.subcircuit_ports(mod)
     return ports + tuple(g for g in gate_nodes(mod) if g not in ports)
-
-
-def _common_source(mod) -> bool:
-    specs = {s.role: s for s in mod.TOPOLOGY.devices}
-    return all(specs[r].s in ("vdd", "0") for r in (mod.PULL_UP, mod.PULL_DOWN))
 
 
 def forced_gate(stage, direction: int, drive: str) -> str:
     """The gate the drive-limit block forces: the active output device's gate, or for a
     common-source pair driven on one gate only (drive "p" or "n"), that gate."""
-    mod = get_stage(stage) if isinstance(stage, str) else stage
+    mod = stage_module(stage)
     up, down = gate_nodes(mod)
-    if _common_source(mod) and drive in ("p", "n"):
+    if common_source(mod) and drive in ("p", "n"):
         return up if drive == "p" else down
     return up if direction > 0 else down
 
@@ -327,7 +316,7 @@ def feedback_block(mod, sub: str, part: str, tag: str, vdd: float) -> tuple[list
     lines = [_instance_line(mod, sub, part, tag)]
     out = block_node(part, tag, "out")
     hold = f"V_HOLD_{part.upper()}{tag}"
-    if _common_source(mod):
+    if common_source(mod):
         lines.append(f"{hold} {out} mid{tag} dc 0")
         for node in spice.drive_ports(mod):
             lines.append(f"F_{part.upper()}{tag}_{node.upper()} 0 {block_node(part, tag, node)} {hold} "
