@@ -143,18 +143,16 @@ def write_summary(grid: Grid, out: Path, rows: list[dict], comparison, montecarl
 
 
 def knee_rows(grid: Grid, out: Path, rows: list[dict]) -> dict:
-    """Per finished cell with a front: (study, knee row) for Monte Carlo."""
-    from .compare import minimised
+    """Per finished cell with a front: (study, knee row) for Monte Carlo; the knee is
+    `stagefront pick`'s (`optimise.pick.rank`)."""
     from .export import read_front
-    from .pick import knee_distance
+    from .pick import rank
     from .study import load_study
 
     jobs = {}
     for r in rows:
         if r["status"] in DONE and r["front_size"]:
-            table = read_front(Path(r["run_folder"]) / "front.csv")
-            cheb, eucl = knee_distance(minimised(table, grid.objectives))
-            k = int(np.lexsort((eucl, cheb))[0])
-            r["mc_design_id"] = str(table["id"].iloc[k])
-            jobs[r["cell"]] = (load_study(r["study_file"]), table.iloc[k].to_dict())
+            knee = rank(read_front(Path(r["run_folder"]) / "front.csv"), grid.objectives, "knee").iloc[0]
+            r["mc_design_id"] = str(knee["id"])
+            jobs[r["cell"]] = (load_study(r["study_file"]), knee.drop("knee_distance").to_dict())
     return jobs
