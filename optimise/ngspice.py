@@ -208,6 +208,18 @@ def join_plots(plots: list[Plot]) -> dict[str, np.ndarray]:
     return {k: np.concatenate([p.vectors[k] for p in plots]) for k in first.vectors}
 
 
+def vector(res: dict, name: str) -> np.ndarray:
+    """A vector of `run`'s result (or a plot's vectors) by name, with or without the
+    ``i(...)`` the rawfile wraps around a device's current (``i(@m.x1.m1[id])``).
+
+    Raises KeyError(name) when it is not there.
+    """
+    for key in (name, f"i({name})"):
+        if key in res:
+            return res[key]
+    raise KeyError(name)
+
+
 def _text(x) -> str:
     if x is None:
         return ""
@@ -381,16 +393,16 @@ def level1_model_card(
     kind = "nmos" if pol == 1 else "pmos"
     fields = {
         "level": "1",
-        "vto": _num(pol * float(m.vt0)),
-        "kp": _num(float(m.kp)),
-        "gamma": _num(mos_tech.gamma),
-        "phi": _num(mos_tech.phi),
-        "lambda": _num(lam),
-        "tnom": _num(round(t - ZERO_CELSIUS, 9)),  # 300.15 K - 273.15 is not exactly 27.0
+        "vto": number(pol * float(m.vt0)),
+        "kp": number(float(m.kp)),
+        "gamma": number(mos_tech.gamma),
+        "phi": number(mos_tech.phi),
+        "lambda": number(lam),
+        "tnom": number(round(t - ZERO_CELSIUS, 9)),  # 300.15 K - 273.15 is not exactly 27.0
     }
     return f".model {name} {kind} (" + " ".join(f"{k}={v}" for k, v in fields.items()) + ")"
 
 
-def _num(x: float) -> str:
-    """Shortest text that reads back as the same double (no SPICE suffixes)."""
+def number(x: float) -> str:
+    """Shortest text that reads back as the same double (no SPICE suffixes), for decks."""
     return repr(float(x))

@@ -70,7 +70,7 @@ from models.stages import get_stage
 from models.tech import Corner, CornerShift, Polarity, Tech
 
 from . import ngspice
-from .ngspice import NgspiceError
+from .ngspice import NgspiceError, number
 
 OPTIONS = "reltol=1e-7 abstol=1e-15 vntol=1e-9"
 FEEDBACK_GAIN = 1.0  # 1, current gain from the held output's current into each gate (common-source pairs)
@@ -146,11 +146,6 @@ def common_source(stage) -> bool:
 def subcircuit_ports(stage) -> tuple[str, ...]:
     """Ports of the ``.subckt`` in order: ``vdd gnd out`` and the drive node(s)."""
     return ("vdd", GROUND_PORT, "out") + drive_ports(stage)
-
-
-def _num(x: float) -> str:
-    """Shortest text that reads back as the same double (no SPICE suffixes)."""
-    return repr(float(x))
 
 
 def _value(arr, i: int) -> float:
@@ -286,10 +281,10 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
         lines.append(f"{device_name(spec.role)} {nodes} {models[spec.role]} w={_length(w)} l={_length(l)}")
     for src in mod.TOPOLOGY.sources:
         val = _value(design.bias[src.bias], i)
-        lines.append(f"{_element('I', src.name)} {_node(src.a)} {_node(src.b)} dc {_num(val)}")
+        lines.append(f"{_element('I', src.name)} {_node(src.a)} {_node(src.b)} dc {number(val)}")
     for res in mod.TOPOLOGY.resistors:
         val = _value(design.bias[res.bias], i)
-        lines.append(f"{_element('R', res.name)} {_node(res.a)} {_node(res.b)} {_num(val)}")
+        lines.append(f"{_element('R', res.name)} {_node(res.a)} {_node(res.b)} {number(val)}")
     lines.append(f".ends {name}")
     return "\n".join(lines)
 
@@ -326,12 +321,12 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
     ports = subcircuit_ports(mod)
     lines = [
         f"stagefront {mod.NAME} design {i} at rest: {Corner(corner).value}, {t_c:g} degC, VDD = {float(vdd):g} V",
-        f".options tnom={_num(t_c)} {OPTIONS}",
-        f".temp {_num(t_c)}",
+        f".options tnom={number(t_c)} {OPTIONS}",
+        f".temp {number(t_c)}",
         model_cards(mod, design, i, tech, corner, temp),
         stage_subcircuit(mod, design, i, tech),
-        f"V_DD vdd 0 dc {_num(vdd)}",
-        f"V_MID mid 0 dc {_num(half)}",
+        f"V_DD vdd 0 dc {number(vdd)}",
+        f"V_MID mid 0 dc {number(half)}",
         f"{INSTANCE} {' '.join('0' if p == GROUND_PORT else p for p in ports)} {subcircuit_name(mod)}",
     ]
     drives = drive_ports(mod)
@@ -340,11 +335,11 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
         # gates it raises both, which lowers the output: negative feedback.
         lines.append("V_HOLD out mid dc 0")
         for node in drives:
-            lines.append(f"F_FB_{node.upper()} 0 {node} V_HOLD {_num(FEEDBACK_GAIN)}")
+            lines.append(f"F_FB_{node.upper()} 0 {node} V_HOLD {number(FEEDBACK_GAIN)}")
     else:
         node = drives[0]
-        lines.append(f"E_FB {node} mid mid out {_num(FOLLOWER_GAIN)}")
-        lines.append(f".nodeset v({node})={_num(half)} v(out)={_num(half)}")
+        lines.append(f"E_FB {node} mid mid out {number(FOLLOWER_GAIN)}")
+        lines.append(f".nodeset v({node})={number(half)} v(out)={number(half)}")
     vectors = " ".join(device_vector(mod, role) for role in (mod.PULL_DOWN, mod.PULL_UP))
     lines += [f".save all {vectors}", ".op", ".end"]
     return "\n".join(lines)
@@ -398,11 +393,10 @@ def simulate_rest(stage, design: Design, i: int, tech: Tech, vdd: float, corner:
     res = ngspice.run(deck, timeout=timeout)
 
     def get(name: str) -> float:
-        # The rawfile wraps a device's current vector as i(@...); accept it either way.
-        for key in (name, f"i({name})"):
-            if key in res:
-                return float(res[key][0])
-        raise NgspiceError(f"ngspice did not report {name}; it reported: {', '.join(sorted(res))}")
+        try:
+            return float(ngspice.vector(res, name)[0])
+        except KeyError:
+            raise NgspiceError(f"ngspice did not report {name}; it reported: {', '.join(sorted(res))}") from None
 
     # ngspice reports a level-1 device's [id] in the device's own frame (a conducting PMOS
     # gives a positive id, as does an NMOS), which is the frame current of models.mos.

@@ -55,6 +55,7 @@ from models.stages.base import Device, NodalSystem, subset
 from models.tech import Corner, CornerShift, Polarity, Tech
 
 from . import ngspice, spice
+from .ngspice import number, vector
 from .spice import common_source, gate_nodes, stage_module
 from .errors import InputError
 
@@ -287,10 +288,6 @@ def drive_limits(design: Design, tech: Tech, targets: Targets, corner: Corner, t
 # ---------------------------------------------------------------------------------------
 # Blocks
 # ---------------------------------------------------------------------------------------
-def _n(x: float) -> str:
-    return repr(float(x))
-
-
 def block_node(part: str, tag: str, node: str) -> str:
     """Top-level name of a block's node, e.g. ``src3_out`` (part src, tag 3)."""
     return f"{part}{tag}_{node}"
@@ -301,7 +298,7 @@ def instance(part: str, tag: str) -> str:
 
 
 def supply_lines(tag: str, vdd: float) -> list[str]:
-    return [f"V_DD{tag} vdd{tag} 0 dc {_n(vdd)}", f"V_MID{tag} mid{tag} 0 dc {_n(0.5 * vdd)}"]
+    return [f"V_DD{tag} vdd{tag} 0 dc {number(vdd)}", f"V_MID{tag} mid{tag} 0 dc {number(0.5 * vdd)}"]
 
 
 def _instance_line(mod, sub: str, part: str, tag: str) -> str:
@@ -320,11 +317,11 @@ def feedback_block(mod, sub: str, part: str, tag: str, vdd: float) -> tuple[list
         lines.append(f"{hold} {out} mid{tag} dc 0")
         for node in spice.drive_ports(mod):
             lines.append(f"F_{part.upper()}{tag}_{node.upper()} 0 {block_node(part, tag, node)} {hold} "
-                         f"{_n(spice.FEEDBACK_GAIN)}")
+                         f"{number(spice.FEEDBACK_GAIN)}")
         return lines, []
     node = block_node(part, tag, spice.drive_ports(mod)[0])
-    lines.append(f"E_{part.upper()}{tag} {node} mid{tag} mid{tag} {out} {_n(spice.FOLLOWER_GAIN)}")
-    return lines, [f"v({node})={_n(0.5 * vdd)}", f"v({out})={_n(0.5 * vdd)}"]
+    lines.append(f"E_{part.upper()}{tag} {node} mid{tag} mid{tag} {out} {number(spice.FOLLOWER_GAIN)}")
+    return lines, [f"v({node})={number(0.5 * vdd)}", f"v({out})={number(0.5 * vdd)}"]
 
 
 def drive_block(mod, sub: str, direction: int, tag: str, vdd: float, node: str, value: float,
@@ -339,13 +336,13 @@ def drive_block(mod, sub: str, direction: int, tag: str, vdd: float, node: str, 
     up = part.upper()
     out = block_node(part, tag, "out")
     lines = [_instance_line(mod, sub, part, tag),
-             f"V_GATE_{up}{tag} {block_node(part, tag, node)} 0 dc {_n(value)}"]
+             f"V_GATE_{up}{tag} {block_node(part, tag, node)} 0 dc {number(value)}"]
     if batch:
         e_node = block_node(part, tag, "sweep")
-        lines += [f"E_OUT_{up}{tag} {e_node} 0 sweep 0 {_n(direction * 0.5 * vdd)}",
-                  f"V_OUT_{up}{tag} {out} {e_node} dc {_n(0.5 * vdd)}"]
+        lines += [f"E_OUT_{up}{tag} {e_node} 0 sweep 0 {number(direction * 0.5 * vdd)}",
+                  f"V_OUT_{up}{tag} {out} {e_node} dc {number(0.5 * vdd)}"]
     else:
-        lines.append(f"V_OUT_{up}{tag} {out} 0 dc {_n(0.5 * vdd)}")
+        lines.append(f"V_OUT_{up}{tag} {out} 0 dc {number(0.5 * vdd)}")
     return lines
 
 
@@ -357,14 +354,6 @@ def device_vector(part: str, tag: str, role: str) -> str:
 # ---------------------------------------------------------------------------------------
 # Reading results
 # ---------------------------------------------------------------------------------------
-def vector(res: dict, name: str) -> np.ndarray:
-    """A vector by name, with or without ngspice's ``i(...)`` wrapper of device currents."""
-    for key in (name, f"i({name})"):
-        if key in res:
-            return res[key]
-    raise KeyError(name)
-
-
 def rest_current(res: dict, mod, tag: str) -> tuple[float, float, float]:
     """(Iq, pull-up current, V(out)) of a rest block from an operating-point plot.
 
