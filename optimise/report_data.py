@@ -8,9 +8,6 @@ reads RUN/verify.csv (`optimise.report_verify`).
 """
 from __future__ import annotations
 
-import re
-import tempfile
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -25,7 +22,9 @@ from .export import design_from_row
 from .montecarlo import Confirmation, confirm, typical
 from .pick import rank
 from .report_verify import read_verification
-from .study import Study, load_study
+from .study import Study, load_study, study_from_dict
+from .tables import loads_toml
+from .techfile import tech_from_dict
 
 MC_SAMPLES = 5000
 SWEEP_POINTS = 13
@@ -47,23 +46,14 @@ def study_of_run(run_path: Path, record: dict) -> Study:
             raise InputError(where, f"keeps no copy of the study and its study file {str(path)!r} is not found",
                              hint="re-run `stagefront optimise` with this version")
         return load_study(path)
-    rewritten, n = re.subn(r"(?m)^(\s*technology\s*=\s*)(\"[^\"\n]*\"|'[^'\n]*')", r'\1"technology.toml"',
-                           study_text, count=1)
+    path = Path(str(record.get("study", "study")))
+    path = path if path.stem else Path("study.toml")
     try:
-        ok = n == 1 and tomllib.loads(rewritten).get("technology") == "technology.toml"
-    except tomllib.TOMLDecodeError:
-        ok = False
-    if not ok:
-        raise InputError(where, "its copy of the study has no readable technology = \"...\" line")
-    stem = Path(str(record.get("study", "study"))).stem or "study"
-    with tempfile.TemporaryDirectory(prefix="stagefront-report-") as tmp:
-        (Path(tmp) / "technology.toml").write_text(tech_text)
-        (Path(tmp) / f"{stem}.toml").write_text(rewritten)
-        try:
-            return load_study(Path(tmp) / f"{stem}.toml")
-        except InputError as err:
-            raise InputError(where, f"its copy of the study cannot be read again: {err.what}", err.allowed,
-                             err.hint) from None
+        tech = tech_from_dict(loads_toml(tech_text, where), where)
+        return study_from_dict(loads_toml(study_text, where), path, tech)
+    except InputError as err:
+        raise InputError(where, f"its copy of the study cannot be read again: {err.what}", err.allowed,
+                         err.hint) from None
 
 
 def populations(rows: pd.DataFrame) -> list[tuple[list, Design]]:

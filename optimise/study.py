@@ -56,8 +56,34 @@ def _list(where, table, key, value, kind=str):
 def load_study(path) -> Study:
     """Read and check a study file (see studies/*.toml for the format)."""
     path = Path(path)
+    return study_from_dict(read_toml(path), path)
+
+
+def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
+    """Check and convert the parsed contents of a study file.
+
+    Parameters
+    ----------
+    data : dict
+        The table `tomllib` returns for a study file.
+    path : str or Path
+        The study file: error messages start with it, a relative technology path is taken
+        relative to it, and the study's name defaults to its stem.
+    tech : Tech, optional
+        The technology to use instead of reading the file the study names (e.g. the copy a
+        run folder keeps); the study must still name one.
+
+    Returns
+    -------
+    Study
+
+    Raises
+    ------
+    InputError
+        Naming `path`, the key and the value.
+    """
+    path = Path(path)
     where = str(path)
-    data = read_toml(path)
     check_keys(where, "", data, STUDY_KEYS, ("technology", "supply", "load"))
 
     tech_ref = data["technology"]
@@ -65,7 +91,8 @@ def load_study(path) -> Study:
         raise InputError(where, f"technology = {show(tech_ref)} is not a file path",
                          "a path to a technology TOML file, relative to the study file")
     tech_path = (path.parent / tech_ref) if not Path(tech_ref).is_absolute() else Path(tech_ref)
-    tech = load_tech(tech_path)
+    if tech is None:
+        tech = load_tech(tech_path)
 
     supply = sub_table(where, "", "supply", data["supply"])
     check_keys(where, "supply", supply, SUPPLY_KEYS, ("nominal",))

@@ -99,9 +99,17 @@ def read_toml(path, hint: str = "") -> dict:
         reason = getattr(err, "strerror", None) or str(err)
         raise InputError(where, f"cannot read the file ({reason})", "a readable TOML file") from None
     try:
-        data = tomllib.loads(raw.decode("utf-8"))
+        text = raw.decode("utf-8")
     except UnicodeDecodeError as err:
         raise InputError(where, f"not UTF-8 text ({err.reason} at byte {err.start})", "a UTF-8 TOML file") from None
+    return loads_toml(text, where)
+
+
+def loads_toml(text: str, where: str) -> dict:
+    """Parse TOML text (a file's contents, or a copy kept in run.json); every TOML error
+    becomes InputError naming `where`."""
+    try:
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise InputError(where, f"not valid TOML: {err}", hint="check quotes, brackets and '=' on that line") from None
     except (RecursionError, ValueError) as err:
