@@ -329,20 +329,48 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
         f"V_MID mid 0 dc {number(half)}",
         f"{INSTANCE} {' '.join('0' if p == GROUND_PORT else p for p in ports)} {subcircuit_name(mod)}",
     ]
-    drives = drive_ports(mod)
-    if common_source(mod):
-        # The output current flows through V_HOLD into the reference; injected into the
-        # gates it raises both, which lowers the output: negative feedback.
-        lines.append("V_HOLD out mid dc 0")
-        for node in drives:
-            lines.append(f"F_FB_{node.upper()} 0 {node} V_HOLD {number(FEEDBACK_GAIN)}")
-    else:
-        node = drives[0]
-        lines.append(f"E_FB {node} mid mid out {number(FOLLOWER_GAIN)}")
-        lines.append(f".nodeset v({node})={number(half)} v(out)={number(half)}")
+    fb, nodeset = feedback(mod, vdd)
+    lines += fb + ([".nodeset " + " ".join(nodeset)] if nodeset else [])
     vectors = " ".join(device_vector(mod, role) for role in (mod.PULL_DOWN, mod.PULL_UP))
     lines += [f".save all {vectors}", ".op", ".end"]
     return "\n".join(lines)
+
+
+def feedback(stage, vdd: float, node=None, mid: str = "mid", label: str = "") -> tuple[list[str], list[str]]:
+    """The amplifier's feedback at rest, emulated as in the module notes.
+
+    Parameters
+    ----------
+    stage : module or str
+        Architecture module (models.stages) or its registered name.
+    vdd : float
+        Supply [V].
+    node : callable or None
+        Deck node of a subcircuit port (``"out"`` and the drive ports); None: the port's name.
+    mid : str
+        Deck node of the VDD/2 reference.
+    label : str
+        Appended to the element names (``V_HOLD<label>``, ``F_FB<label>_<GATE>``,
+        ``E_FB<label>``) to keep several benches in one deck apart.
+
+    Returns
+    -------
+    (list of str, list of str)
+        Element lines and ``.nodeset`` entries (``v(node)=value``; the followers' only).
+    """
+    mod = stage_module(stage)
+    node = node or (lambda port: port)
+    out, half = node("out"), 0.5 * float(vdd)
+    if common_source(mod):
+        # The output current flows through V_HOLD into the reference; injected into the
+        # gates it raises both, which lowers the output: negative feedback.
+        hold = f"V_HOLD{label}"
+        return [f"{hold} {out} {mid} dc 0"] + [
+            f"F_FB{label}_{port.upper()} 0 {node(port)} {hold} {number(FEEDBACK_GAIN)}" for port in drive_ports(mod)
+        ], []
+    drive = node(drive_ports(mod)[0])
+    return ([f"E_FB{label} {drive} {mid} {mid} {out} {number(FOLLOWER_GAIN)}"],
+            [f"v({drive})={number(half)}", f"v({out})={number(half)}"])
 
 
 def device_vector(stage, role: str, quantity: str = "id") -> str:

@@ -15,7 +15,7 @@ Every block is its own instance of the design's subcircuit with its own supply, 
 can hold many designs and supplies side by side (they share nothing but ground):
 
 - ``rest``: the output held at VDD/2 by the amplifier's feedback, emulated as in
-  `optimise.spice.rest_testbench` (0 V source V_HOLD from the output to a VDD/2 reference and
+  `optimise.spice.feedback` (0 V source V_HOLD from the output to a VDD/2 reference and
   one current-controlled current source per output gate for a common-source pair; a
   voltage-controlled voltage source of gain 1e4 on the input for the followers). ``.op``
   gives Iq: the drain current of the pull-down output device.
@@ -309,19 +309,11 @@ def _instance_line(mod, sub: str, part: str, tag: str) -> str:
 
 
 def feedback_block(mod, sub: str, part: str, tag: str, vdd: float) -> tuple[list[str], list[str]]:
-    """An instance held at VDD/2 by the feedback emulation. Returns (lines, nodeset entries)."""
-    lines = [_instance_line(mod, sub, part, tag)]
-    out = block_node(part, tag, "out")
-    hold = f"V_HOLD_{part.upper()}{tag}"
-    if common_source(mod):
-        lines.append(f"{hold} {out} mid{tag} dc 0")
-        for node in spice.drive_ports(mod):
-            lines.append(f"F_{part.upper()}{tag}_{node.upper()} 0 {block_node(part, tag, node)} {hold} "
-                         f"{number(spice.FEEDBACK_GAIN)}")
-        return lines, []
-    node = block_node(part, tag, spice.drive_ports(mod)[0])
-    lines.append(f"E_{part.upper()}{tag} {node} mid{tag} mid{tag} {out} {number(spice.FOLLOWER_GAIN)}")
-    return lines, [f"v({node})={number(0.5 * vdd)}", f"v({out})={number(0.5 * vdd)}"]
+    """An instance held at VDD/2 by the feedback emulation (`optimise.spice.feedback`).
+    Returns (lines, nodeset entries)."""
+    lines, nodeset = spice.feedback(mod, vdd, lambda port: block_node(part, tag, port), f"mid{tag}",
+                                    f"_{part.upper()}{tag}")
+    return [_instance_line(mod, sub, part, tag)] + lines, nodeset
 
 
 def drive_block(mod, sub: str, direction: int, tag: str, vdd: float, node: str, value: float,
