@@ -48,11 +48,9 @@ from pathlib import Path
 import numpy as np
 
 from models.constants import ZERO_CELSIUS
-from models.evaluate import Design, Targets
-from models.mos import at_conditions
+from models.evaluate import Design, Targets, _devices, _rest_point, _shifts
 from models.stages import get_stage
-from models.stages.base import Device, NodalSystem, subset
-from models.tech import Corner, CornerShift, Polarity, Tech
+from models.tech import Corner, Polarity, Tech
 
 from . import ngspice, spice
 from .ngspice import number, vector
@@ -257,24 +255,10 @@ def drive_limits(design: Design, tech: Tech, targets: Targets, corner: Corner, t
     vdd = np.asarray(vdd, dtype=float)
     idx = np.asarray(idx, dtype=int)
     n = len(idx)
-    shift = tech.corners.get(Corner(corner), CornerShift())
-    temps = np.full(n, float(temp))
-    devs = {}
-    for spec in stage.TOPOLOGY.devices:
-        dvt, kp = (shift.dvt_n, shift.kp_n) if spec.polarity == Polarity.N else (shift.dvt_p, shift.kp_p)
-        m = at_conditions(tech.mos(spec.polarity), spec.polarity, tech.model, temps, tech.tnom, dvt, kp)
-        devs[spec.role] = Device(m, np.asarray(design.w[spec.role], dtype=float)[idx],
-                                 np.asarray(design.l[spec.role], dtype=float)[idx], spec.role in design.tied)
+    # The devices and the rest point exactly as models.evaluate builds and solves them.
+    devs = _devices(stage, design, tech, _shifts(tech, [Corner(corner)] * n), np.full(n, float(temp)), idx)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
-    nodes, ok = stage.quiescent(devs, bias, vdd)
-    if not ok.all():  # the full nodal system, as models.evaluate does for stragglers
-        bad = np.flatnonzero(~ok)
-        sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad])
-        x0 = np.stack([np.nan_to_num(nodes[name][bad]) for name in stage.TOPOLOGY.nodes] + [np.zeros(len(bad))])
-        xb, ok[bad] = sub.solve(x0)
-        for k, name in enumerate(stage.TOPOLOGY.nodes):
-            nodes[name] = np.array(nodes[name], dtype=float)
-            nodes[name][bad] = xb[k]
+    nodes, ok, _ = _rest_point(stage, devs, bias, vdd, sensitivity=False)
     up, _ = gate_nodes(stage)
     forced = {}
     for direction in (+1, -1):
