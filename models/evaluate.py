@@ -108,6 +108,15 @@ class Conditions:
         vs = [self.vdd_nom, self.vdd_min, self.vdd_max]
         return tuple(dict.fromkeys(vs))  # nominal first, duplicates dropped
 
+    @property
+    def typical(self) -> Corner:
+        """The corner that stands for 'typical': tt when the study has it, else its first."""
+        return Corner.TT if Corner.TT in self.corners else self.corners[0]
+
+    def nominal_index(self) -> int:
+        """Index into `grid()` of (typical corner, first temperature, nominal supply)."""
+        return self.corners.index(self.typical) * len(self.temps) * len(self.supplies)
+
     def grid(self):
         """Flat PVT arrays (corner, temp, vdd), shape (k,), corner-major, supply fastest."""
         corner, temp, vdd = [], [], []

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from .tech import Corner
 
 
 def supply_sensitivity(pvt, cond, corner, temp, vdd):
@@ -33,18 +32,8 @@ def supply_sensitivity(pvt, cond, corner, temp, vdd):
     pvt["supply_sens_pct_per_v"] = sens
 
 
-def nominal_column(cond, corner, temp, vdd):
-    for j in range(len(vdd)):
-        if corner[j] == Corner.TT and temp[j] == cond.temps[0] and vdd[j] == cond.vdd_nom:
-            return j
-    for j in range(len(vdd)):  # no tt in the study: the first corner stands in
-        if temp[j] == cond.temps[0] and vdd[j] == cond.vdd_nom:
-            return j
-    return 0
-
-
 def summarise(pvt, design, stage, cond, corner, temp, vdd, targets):
-    j = nominal_column(cond, corner, temp, vdd)
+    j = cond.nominal_index()
     bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
     area = sum(np.asarray(design.w[r]) * np.asarray(design.l[r]) for r in stage.ROLES) * targets.layout_factor
     sens = pvt["supply_sens_pct_per_v"]

@@ -16,20 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from models.constants import ZERO_CELSIUS
-from models.evaluate import Conditions, Design, Result, evaluate, monte_carlo_iq
+from models.evaluate import Design, Result, evaluate, monte_carlo_iq
 from models.tech import Corner
-
-
-def typical(cond: Conditions) -> Corner:
-    """The corner that stands for 'typical': tt when the study has it, else its first corner."""
-    return Corner.TT if Corner.TT in cond.corners else cond.corners[0]
-
-
-def nominal_index(res: Result, cond: Conditions) -> int:
-    """Index into `res`'s PVT points of (typical corner, first temperature, nominal supply)."""
-    corner = typical(cond)
-    return next(j for j in range(len(res.vdd)) if res.corners[j] == corner and res.vdd[j] == cond.vdd_nom
-                and res.temps[j] == cond.temps[0])
 
 
 @dataclass(frozen=True)
@@ -89,11 +77,11 @@ def confirm(design: Design, study, samples: int, seed: int, result: Result | Non
     Confirmation
     """
     cond = study.conditions
-    corner = typical(cond)
+    corner = cond.typical
     res = result if result is not None else evaluate(design, study.tech, cond, study.targets)
     iq, ok = monte_carlo_iq(design, study.tech, corner, cond.temps[0], cond.vdd_nom, samples,
                             np.random.default_rng(seed))
-    j = nominal_index(res, cond)
+    j = cond.nominal_index()
     return Confirmation(int(samples), int(seed), corner, cond.temps[0], cond.vdd_nom, iq[ok], int((~ok).sum()),
                         float(res.pvt["iq_a"][0, j]), float(res.pvt["iq_sigma_pct"][0, j]))
 

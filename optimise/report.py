@@ -39,7 +39,6 @@ from . import CAUTION
 from .atomic import write_bytes, write_text
 from .errors import InputError
 from .export import UNIT_SUFFIX
-from .montecarlo import typical
 from .report_data import MC_SAMPLES, OBJ_SHOW, ReportData, gather
 from .report_figures import fronts_figure, mismatch_figure, supply_figure
 from .report_render import (CLOSE, TIGHT, Bullets, Cell, Figure, Legend, Table, num_cell, render_html,
@@ -206,7 +205,7 @@ def _knee_pvt(data: ReportData) -> list:
     scale = {"iq_a": 1e6, "headroom_high_v": 1e3, "headroom_low_v": 1e3, "iout_source_a": 1e3, "iout_sink_a": 1e3}
     rows, classes = [], []
     for pt in res["pvt"]:
-        nominal = (pt["corner"] == typical(cond).value and pt["vdd_v"] == cond.vdd_nom
+        nominal = (pt["corner"] == cond.typical.value and pt["vdd_v"] == cond.vdd_nom
                    and abs(pt["temp_c"] - (cond.temps[0] - ZERO_CELSIUS)) < 1e-6)
         cells = [Cell(pt["corner"] + (" (nominal)" if nominal else "") + ("" if pt["converged"] else " NOT CONVERGED"),
                       pt["corner"]), num_cell(pt["temp_c"]), num_cell(pt["vdd_v"])]
@@ -247,7 +246,7 @@ def _supply(data: ReportData) -> list:
         rows.append([Cell(rid), Cell(pick), num_cell(iq[0], 1e6), num_cell(i_nom, 1e6), num_cell(iq[-1], 1e6),
                      num_cell(sens, digits=3)])
     return [f"Iq of each picked design at {len(data.sweep[data.picks['id'].iloc[0]][0])} supplies from "
-            f"{c.vdd_min:g} V to {c.vdd_max:g} V, {typical(c).value} corner, {c.temps[0] - ZERO_CELSIUS:g} C.",
+            f"{c.vdd_min:g} V to {c.vdd_max:g} V, {c.typical.value} corner, {c.temps[0] - ZERO_CELSIUS:g} C.",
             Figure("supply", supply_figure(data), "Iq against VDD (left) and its change from the value at the "
                    "nominal supply (right); the knee is the thick line, dashed lines the Iq window of the targets, "
                    "dotted the nominal supply."),

@@ -19,7 +19,7 @@ from models.evaluate import Conditions, Design, Result, evaluate
 from .compare import load_run
 from .errors import InputError
 from .export import design_from_row
-from .montecarlo import Confirmation, confirm, typical
+from .montecarlo import Confirmation, confirm
 from .pick import rank
 from .report_verify import read_verification
 from .study import Study, load_study, study_from_dict
@@ -143,7 +143,7 @@ def gather(run, count: int = 8) -> ReportData:
     [(_, knee_design)] = populations(picks.iloc[:1])
     data.knee = evaluate(knee_design, tech, cond, targets)
     data.mc = confirm(knee_design, study, MC_SAMPLES, int(r.record.get("seed", 1)), result=data.knee)
-    corner, temp, vnom = typical(cond), cond.temps[0], cond.vdd_nom
+    corner, temp, vnom = cond.typical, cond.temps[0], cond.vdd_nom
     supplies = np.unique(np.r_[np.linspace(cond.vdd_min, cond.vdd_max, SWEEP_POINTS), vnom])
     for ids, design in populations(picks):
         iq_v = np.stack([evaluate(design, tech, Conditions((corner,), (temp,), v, v, v), targets).pvt["iq_a"][:, 0]

@@ -7,7 +7,6 @@ import numpy as np
 
 from models.constants import ZERO_CELSIUS
 
-from .montecarlo import typical
 from .plots import png_bytes
 from .report_data import ReportData
 
@@ -83,7 +82,7 @@ def supply_figure(data: ReportData) -> bytes:
         a.grid(alpha=0.3)
     ax.set_ylabel("Iq [uA]")
     rel.set_ylabel("Iq change from nominal supply [%]")
-    where = f"{typical(c).value}, {c.temps[0] - ZERO_CELSIUS:g} C"
+    where = f"{c.typical.value}, {c.temps[0] - ZERO_CELSIUS:g} C"
     ax.set_title(f"Iq against supply ({where})")
     rel.set_title("Relative to Iq at the nominal supply")
     ax.legend(fontsize=7, loc="best")
