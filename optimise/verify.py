@@ -32,11 +32,10 @@ from models.evaluate import Design, evaluate
 from models.stages import get_stage
 from models.tech import Corner, ModelKind
 
-from . import ngspice
+from . import ngspice, report_data
 from . import testbench as tb
 from .atomic import write_text
 from .errors import InputError
-from .export import design_from_row
 from .handoff import CAUTION, load_run
 from .ngspice import NgspiceError
 
@@ -59,18 +58,11 @@ class Population:
 
 
 def populations(front, ids) -> list[Population]:
-    """Group the chosen rows into populations that `models.evaluate` takes at once."""
-    groups: dict = {}
-    for rid in ids:
-        row = front.iloc[list(front["id"]).index(rid)].to_dict()
-        d = design_from_row(row)
-        groups.setdefault((d.architecture, d.tied), []).append((rid, d))
-    out = []
-    for (arch, tied), members in groups.items():
-        ds = [d for _, d in members]
-        cat = lambda field_: {k: np.concatenate([getattr(d, field_)[k] for d in ds]) for k in getattr(ds[0], field_)}
-        out.append(Population([r for r, _ in members], Design(arch, cat("w"), cat("l"), cat("bias"), tied)))
-    return out
+    """Group the chosen rows, in the order of `ids`, into populations that `models.evaluate`
+    takes at once (`optimise.report_data.populations`)."""
+    at = {str(rid): k for k, rid in enumerate(front["id"])}
+    return [Population([str(r) for r in rids], design)
+            for rids, design in report_data.populations(front.iloc[[at[rid] for rid in ids]])]
 
 
 def choose_rows(front, rows: str | None, all_rows: bool) -> list[str]:
