@@ -9,7 +9,6 @@ same conditions, so the simulator's answer can be compared line by line.
 """
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 
@@ -20,32 +19,28 @@ from models.evaluate import Conditions, Design, evaluate
 from models.stages import get_stage
 from models.tech import Corner
 
-from . import CAUTION
+from . import CAUTION, compare
 from . import testbench as tb
 from .atomic import write_text
 from .errors import InputError
-from .export import design_from_row, read_front
+from .export import design_from_row
 from .study import Study, load_study
-
 
 
 def load_run(run) -> tuple[Study, "object", Path]:
     """(study, front table, run folder) of a run folder made by `stagefront optimise`.
 
+    The folder, front.csv and run.json are read by `optimise.compare.load_run`; the study is
+    the file run.json names, as it is now (with a warning when it changed since the run).
+
     Raises InputError when the folder, its front.csv or run.json, or the study it names is
     missing or unreadable.
     """
-    folder = Path(run)
-    if not folder.is_dir():
-        raise InputError(str(folder), "is not a run folder", hint="give the --out folder of stagefront optimise")
-    for name in ("front.csv", "run.json"):
-        if not (folder / name).is_file():
-            raise InputError(str(folder), f"has no {name}", hint="give the --out folder of stagefront optimise")
-    try:
-        record = json.loads((folder / "run.json").read_text())
-        study_path = Path(record["study"])
-    except (OSError, ValueError, KeyError, TypeError) as err:
-        raise InputError(str(folder / "run.json"), f"cannot be read ({err})") from None
+    r = compare.load_run(run)
+    folder, record = r.path, r.record
+    if not isinstance(record.get("study"), str):
+        raise InputError(str(folder / "run.json"), "names no study file", hint="re-run `stagefront optimise`")
+    study_path = Path(record["study"])
     if not study_path.is_absolute() and not study_path.exists():
         study_path = folder / study_path
     if not study_path.exists():
@@ -55,7 +50,7 @@ def load_run(run) -> tuple[Study, "object", Path]:
     if "study_toml" in record and record["study_toml"] != study_path.read_text():
         print(f"stagefront: warning: {study_path} changed since the run was made; its current version is used",
               file=sys.stderr)
-    return study, read_front(folder / "front.csv"), folder
+    return study, r.table, folder
 
 
 def row_design(front, row_id: str, where: str = "--row") -> tuple[dict, Design]:
