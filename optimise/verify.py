@@ -32,11 +32,11 @@ from models.evaluate import Design, evaluate
 from models.stages import get_stage
 from models.tech import Corner, ModelKind
 
-from . import ngspice, report_data
+from . import CAUTION, ngspice, report_data
 from . import testbench as tb
 from .atomic import write_text
 from .errors import InputError
-from .handoff import CAUTION, load_run
+from .handoff import load_run
 from .ngspice import NgspiceError
 
 BATCH = 16  # designs per ngspice process (each at every supply of the study)
@@ -44,7 +44,6 @@ METRICS = ("iq_a", "headroom_high_v", "headroom_low_v", "iout_source_a", "iout_s
 ABSOLUTE = ("headroom_high_v", "headroom_low_v")  # compared in volts; the rest relatively
 COLUMNS = ("id", "architecture", "corner", "temp_c", "vdd_v", "metric", "model", "simulator", "error",
            "error_unit", "note")
-OUT_TOLERANCE = 1e-3  # V, largest |V(out) - VDD/2| of a rest block taken as at rest
 
 
 @dataclass
@@ -139,7 +138,7 @@ def simulate(pop: Population, members: list[int], study, models: tb.ModelSource,
         tag = tags[e]
         iq, _, v_out = tb.rest_current(op, mod, tag)
         vals = {"iq_a": iq, "note": ""}
-        if abs(v_out - 0.5 * v) > OUT_TOLERANCE:
+        if abs(v_out - 0.5 * v) > tb.spice.OUT_TOLERANCE:
             vals["note"] = f"rest block settled at V(out) = {v_out:.4g} V, not VDD/2"
         if not lim.ok[e]:
             vals["note"] = "the model found no drive limit here"
@@ -220,37 +219,44 @@ def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmo
     t0 = time.perf_counter()
     for pop in pops:
         pop.result = evaluate(pop.design, study.tech, cond, study.targets)
-        corner_of, temp_of, vdd_of = pop.result.corners, pop.result.temps, pop.result.vdd
         for corner in corners:
             for temp in cond.temps:
                 t1 = time.perf_counter()
                 sim = simulate_all(pop, study, models, corner, temp, log)
                 log(f"  {pop.design.architecture} {corner.value} {temp - ZERO_CELSIUS:g} C: {pop.design.size} designs "
                     f"in {time.perf_counter() - t1:.2f} s")
-                for j in range(len(vdd_of)):
-                    if corner_of[j] != corner or temp_of[j] != temp:
-                        continue
-                    for k, rid in enumerate(pop.ids):
-                        got = sim.get((k, float(vdd_of[j])))
-                        fail = pop.failures.get(rid, {}).get((corner, temp))
-                        for metric in METRICS:
-                            model = float(pop.result.pvt[metric][k, j])
-                            rec = {"id": rid, "architecture": pop.design.architecture, "corner": corner.value,
-                                   "temp_c": round(float(temp) - ZERO_CELSIUS, 6), "vdd_v": float(vdd_of[j]),
-                                   "metric": metric, "model": model, "simulator": None, "error": None,
-                                   "error_unit": "V" if metric in ABSOLUTE else "rel", "note": ""}
-                            if got is not None:
-                                rec["simulator"] = float(got[metric])
-                                rec["error"] = _error(metric, model, rec["simulator"])
-                                rec["note"] = got["note"]
-                            else:
-                                rec["note"] = f"ngspice failed: {fail}" if fail else "not simulated"
-                            records.append(rec)
+                records += _records(pop, corner, temp, sim)
     write_text(folder / "verify.csv", _csv(records))
     _summary(records, pops, stream, time.perf_counter() - t0)
     print(f"table: {folder / 'verify.csv'}", file=stream)
     print(CAUTION, file=stream)
     return 0 if any(r["simulator"] is not None for r in records) else 1
+
+
+def _records(pop: Population, corner: Corner, temp: float, sim: dict) -> list[dict]:
+    """verify.csv records of every design of `pop` at one corner and temperature: every
+    supply and metric, the model's figure beside ngspice's (`simulate_all`'s `sim`)."""
+    res = pop.result
+    out = []
+    for j in np.flatnonzero([c == corner and t == temp for c, t in zip(res.corners, res.temps)]):
+        vdd = float(res.vdd[j])
+        for k, rid in enumerate(pop.ids):
+            got = sim.get((k, vdd))
+            fail = pop.failures.get(rid, {}).get((corner, temp))
+            for metric in METRICS:
+                model = float(res.pvt[metric][k, j])
+                rec = {"id": rid, "architecture": pop.design.architecture, "corner": corner.value,
+                       "temp_c": round(float(temp) - ZERO_CELSIUS, 6), "vdd_v": vdd, "metric": metric,
+                       "model": model, "simulator": None, "error": None,
+                       "error_unit": "V" if metric in ABSOLUTE else "rel", "note": ""}
+                if got is not None:
+                    rec["simulator"] = float(got[metric])
+                    rec["error"] = _error(metric, model, rec["simulator"])
+                    rec["note"] = got["note"]
+                else:
+                    rec["note"] = f"ngspice failed: {fail}" if fail else "not simulated"
+                out.append(rec)
+    return out
 
 
 def _csv(records) -> str:
