@@ -45,6 +45,8 @@ STEP = 0.01  # V, sweep step
 OUTPUT_VGS = (0.35, 0.5, 0.7, 0.9)  # VGS of the output curves, fractions of VDD
 IC_FLOOR = 0.01  # lowest inversion coefficient fitted (EKV)
 SQUARE_MARGIN = 0.1  # V above the extrapolated threshold for the square-law fit
+# Bounds of the fitted parameters: vt0 [V], kp [A/V^2], n [1], gamma [V^0.5], phi [V].
+LIMITS = {"vt0": (0.05, 2.0), "kp": (1e-6, 1e-2), "n": (1.0, 3.0), "gamma": (0.0, 3.0), "phi": (0.1, 1.5)}
 
 
 @dataclass
@@ -175,6 +177,23 @@ def _weights(c: Curves) -> np.ndarray:
     return w
 
 
+def _free(base: dict, free):
+    """The `free` parameters as least_squares sees them: kp as ln kp, the others as they are.
+
+    Returns (x0, bounds, params): the start vector from `base`, the (lower, upper) bounds
+    from `LIMITS`, and the function that turns a vector back into `base` with the free
+    parameters replaced.
+    """
+    to_x = lambda k, v: math.log(v) if k == "kp" else v  # noqa: E731
+    x0 = np.array([to_x(k, base[k]) for k in free])
+    bounds = ([to_x(k, LIMITS[k][0]) for k in free], [to_x(k, LIMITS[k][1]) for k in free])
+
+    def params(x):
+        return {**base, **{k: math.exp(v) if k == "kp" else v for k, v in zip(free, x)}}
+
+    return x0, bounds, params
+
+
 def _log_residual(model, sim):
     return np.log(np.maximum(model, 1e-30) / sim)
 
@@ -236,17 +255,8 @@ def fit_ekv(c: Curves, pol: int, va_per_l: float, temp: float, start=(0.45, 2e-4
         curve kind weighted equally; a second pass keeps the points from IC = IC_FLOOR up
         (IC from the first pass's Ispec) and every output-curve point.
     """
-    fixed = dict(fixed or {})
-    base = {"vt0": start[0], "kp": start[1], "n": start[2], **fixed, "va_per_l": va_per_l}
-    x0 = np.array([base[k] if k != "kp" else math.log(base[k]) for k in free])
-    lo = {"vt0": 0.05, "kp": math.log(1e-6), "n": 1.0}
-    hi = {"vt0": 2.0, "kp": math.log(1e-2), "n": 3.0}
-
-    def params(x):
-        p = dict(base)
-        for k, v in zip(free, x):
-            p[k] = math.exp(v) if k == "kp" else v
-        return p
+    base = {"vt0": start[0], "kp": start[1], "n": start[2], **(fixed or {}), "va_per_l": va_per_l}
+    x0, bounds, params = _free(base, free)
 
     # Pass 1 on currents above a floor, pass 2 from IC_FLOOR up with the first fit's Ispec.
     mask = c.i > 1e-10 * WIDTH / c.l
@@ -254,7 +264,7 @@ def fit_ekv(c: Curves, pol: int, va_per_l: float, temp: float, start=(0.45, 2e-4
         sub = c.take(mask)
         w = _weights(sub)
         sol = least_squares(lambda x: w * _log_residual(model_current(ModelKind.EKV, pol, params(x), sub, temp), sub.i),
-                            x0, bounds=([lo[k] for k in free], [hi[k] for k in free]), x_scale="jac")
+                            x0, bounds=bounds, x_scale="jac")
         x0 = sol.x
         p = params(sol.x)
         m = Mos(pol, ModelKind.EKV, p["vt0"], p["kp"], p["n"], 0.0, 0.7, thermal_voltage(temp), va_per_l)
@@ -288,26 +298,16 @@ def fit_square(c: Curves, pol: int, va_per_l: float, temp: float, start=(0.45, 2
     curve's extrapolated threshold and on the output curves. Returns vt0, kp, gamma, phi
     and va_per_l.
     """
-    fixed = dict(fixed or {})
-    base = {"vt0": start[0], "kp": start[1], "gamma": start[2], "phi": start[3], **fixed, "va_per_l": va_per_l}
-    x0 = np.array([base[k] if k != "kp" else math.log(base[k]) for k in free])
-    lo = {"vt0": 0.05, "kp": math.log(1e-6), "gamma": 0.0, "phi": 0.1}
-    hi = {"vt0": 2.0, "kp": math.log(1e-2), "gamma": 3.0, "phi": 1.5}
+    base = {"vt0": start[0], "kp": start[1], "gamma": start[2], "phi": start[3], **(fixed or {}), "va_per_l": va_per_l}
+    x0, bounds, params = _free(base, free)
     sub = c.take(_threshold_mask(c))
     w = _weights(sub)
-
-    def params(x):
-        p = dict(base)
-        for k, v in zip(free, x):
-            p[k] = math.exp(v) if k == "kp" else v
-        return p
 
     def res(x):
         mdl = model_current(ModelKind.SQUARE_LAW, pol, params(x), sub, temp)
         return w * (mdl - sub.i) / sub.i
 
-    sol = least_squares(res, np.clip(x0, [lo[k] for k in free], [hi[k] for k in free]),
-                        bounds=([lo[k] for k in free], [hi[k] for k in free]), x_scale="jac")
+    sol = least_squares(res, np.clip(x0, *bounds), bounds=bounds, x_scale="jac")
     return params(sol.x)
 
 
