@@ -109,6 +109,16 @@ def available() -> bool:
     return find_executable() is not None
 
 
+def require_executable() -> str:
+    """`find_executable`'s path; NgspiceError, saying where it looked, when there is none."""
+    exe = find_executable()
+    if exe is None:
+        override = os.environ.get(ENV_EXECUTABLE, "").strip()
+        where = f"{ENV_EXECUTABLE}={override!r} is not an executable" if override else "ngspice is not on PATH"
+        raise NgspiceError(f"ngspice not found: {where}; install it (Debian: apt-get install ngspice) or set {ENV_EXECUTABLE}")
+    return exe
+
+
 # ---------------------------------------------------------------------------------------
 # Running
 # ---------------------------------------------------------------------------------------
@@ -132,11 +142,7 @@ def run_plots(netlist: str, timeout: float = 60) -> list[Plot]:
     NgspiceError
         When ngspice is missing, cannot start, times out or reports a failure.
     """
-    exe = find_executable()
-    if exe is None:
-        override = os.environ.get(ENV_EXECUTABLE, "").strip()
-        where = f"{ENV_EXECUTABLE}={override!r} is not an executable" if override else "ngspice is not on PATH"
-        raise NgspiceError(f"ngspice not found: {where}; install it (Debian: apt-get install ngspice) or set {ENV_EXECUTABLE}")
+    exe = require_executable()
     has_control = _CONTROL.search(netlist) is not None
     with tempfile.TemporaryDirectory(prefix="stagefront-ngspice-") as tmp:
         deck = Path(tmp) / DECKFILE

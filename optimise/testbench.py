@@ -193,8 +193,7 @@ def header(title: str, models: ModelSource, corner: Corner, temp: float) -> list
 
 def require_ngspice() -> None:
     """Raise NgspiceError (saying where it looked) unless an ngspice executable is found."""
-    if not ngspice.available():
-        ngspice.run_plots("* no deck")  # fails at its executable check, with the standard message
+    ngspice.require_executable()
 
 
 # ---------------------------------------------------------------------------------------
