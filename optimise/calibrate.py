@@ -179,6 +179,7 @@ def _g(x: float) -> str:
 def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, base, command: str) -> str:
     """The technology file text (the format of `optimise.techfile`), every value commented."""
     fitted = "fitted" if cal.kind is ModelKind.EKV else "fitted (EKV fit; unused by the square law)"
+    title = _card_title(models.path)
     lines = [
         f"# {name}: technology calibrated by stagefront calibrate to the SPICE model card",
         f"# {models.path.name} (models {models.nmos} / {models.pmos}, section "
@@ -186,7 +187,7 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
         f"# W = {format_eng(WIDTH, 'm')}, L = {', '.join(format_eng(x, 'm') for x in cal.lengths)}, "
         f"voltages up to {cal.vdd:g} V; least-squares fit of the {cal.kind.value} equations.",
         f"# Made with: {command}",
-        *([f"# The card's own first line: {_card_title(models.path)}"] if _card_title(models.path) else []),
+        *([f"# The card's own first line: {title}"] if title else []),
         "# Values marked 'from base' or 'default, not calibrated' are not measured by DC sweeps.",
         "# A fit of a card, not the card: model estimates for early design only.",
         "",
