@@ -132,15 +132,13 @@ def drive_ports(stage) -> tuple[str, ...]:
 def gate_nodes(stage) -> tuple[str, str]:
     """(gate of the pull-up output device, gate of the pull-down output device)."""
     mod = stage_module(stage)
-    specs = {s.role: s for s in mod.TOPOLOGY.devices}
-    return specs[mod.PULL_UP].g, specs[mod.PULL_DOWN].g
+    return mod.TOPOLOGY.spec(mod.PULL_UP).g, mod.TOPOLOGY.spec(mod.PULL_DOWN).g
 
 
 def common_source(stage) -> bool:
     """True when both output devices have their source on a rail (a common-source pair)."""
     mod = stage_module(stage)
-    specs = {s.role: s for s in mod.TOPOLOGY.devices}
-    return all(specs[r].s in ("vdd", "0") for r in (mod.PULL_UP, mod.PULL_DOWN))
+    return all(mod.TOPOLOGY.spec(r).s in ("vdd", "0") for r in (mod.PULL_UP, mod.PULL_DOWN))
 
 
 def subcircuit_ports(stage) -> tuple[str, ...]:
