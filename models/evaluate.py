@@ -198,7 +198,7 @@ class Result:
         return ok
 
 
-def _shifts(tech: Tech, corner):
+def corner_shifts(tech: Tech, corner):
     """Corner shifts per element: dict (polarity -> (dvt, kp factor)) of arrays (len(corner),)."""
     table = {c: tech.corners.get(c, CornerShift()) for c in set(corner)}
     return {
@@ -207,9 +207,9 @@ def _shifts(tech: Tech, corner):
     }
 
 
-def _devices(stage, design: Design, tech: Tech, shifts, temp, idx_design, dvt=None, dbeta=None):
+def devices_at(stage, design: Design, tech: Tech, shifts, temp, idx_design, dvt=None, dbeta=None):
     """The Device dict for flat elements: design index idx_design, per-element corner
-    shifts (see `_shifts`) and temperature [K]."""
+    shifts (see `corner_shifts`) and temperature [K]."""
     devs = {}
     for spec in stage.TOPOLOGY.devices:
         dv, kp = shifts[spec.polarity]
@@ -261,7 +261,7 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     return headroom, peak, ab, limit, ok & (ok_v | ~can)
 
 
-def _rest_point(stage, devs, bias, vdd, sensitivity=True):
+def rest_point(stage, devs, bias, vdd, sensitivity=True):
     """Rest point of every element: the stage's fast solve, checked against the residuals
     of the full Kirchhoff system, with Newton on that system as the second chance.
 
@@ -291,7 +291,7 @@ def _rest_point(stage, devs, bias, vdd, sensitivity=True):
     return nodes, ok, sens
 
 
-def _pull_down_current(stage, devs, nodes, vdd):
+def pull_down_current(stage, devs, nodes, vdd):
     """Iq: the current of the pull-down output device at the rest point [A], >= 0."""
     spec = stage.TOPOLOGY.spec(stage.PULL_DOWN)
     v = {"vdd": vdd, "0": np.zeros_like(vdd), "out": 0.5 * vdd, **nodes}
@@ -303,10 +303,10 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     shifts = {p: (dv[idx_pvt], kp[idx_pvt]) for p, (dv, kp) in shifts_all.items()}
     temp = temp_all[idx_pvt]
     vdd = vdd_all[idx_pvt]
-    devs = _devices(stage, design, tech, shifts, temp, idx_design)
+    devs = devices_at(stage, design, tech, shifts, temp, idx_design)
     bias = {k: np.asarray(v, dtype=float)[idx_design] for k, v in design.bias.items()}
-    nodes, ok, sens = _rest_point(stage, devs, bias, vdd)
-    iq = _pull_down_current(stage, devs, nodes, vdd)
+    nodes, ok, sens = rest_point(stage, devs, bias, vdd)
+    iq = pull_down_current(stage, devs, nodes, vdd)
 
     var = np.zeros_like(vdd)
     for spec in stage.TOPOLOGY.devices:
@@ -370,7 +370,7 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     corner, temp, vdd = cond.grid()
     k = len(vdd)
     m = n * k
-    shifts = _shifts(tech, corner)
+    shifts = corner_shifts(tech, corner)
     flat_design = np.repeat(np.arange(n), k)
     flat_pvt = np.tile(np.arange(k), n)
     pvt: dict[str, np.ndarray] = {}
@@ -418,8 +418,8 @@ def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd:
         w = float(np.asarray(design.w[spec.role]).ravel()[0])
         l = float(np.asarray(design.l[spec.role]).ravel()[0])
         dvt[spec.role], dbeta[spec.role] = _mm.sample(rng, mt.a_vt, mt.a_beta, w, l, samples)
-    devs = _devices(stage, design, tech, _shifts(tech, [corner] * samples), np.full(samples, temp), idx, dvt, dbeta)
+    devs = devices_at(stage, design, tech, corner_shifts(tech, [corner] * samples), np.full(samples, temp), idx, dvt, dbeta)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
     vdd_arr = np.full(samples, float(vdd))
-    nodes, ok, _ = _rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
-    return _pull_down_current(stage, devs, nodes, vdd_arr), ok
+    nodes, ok, _ = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
+    return pull_down_current(stage, devs, nodes, vdd_arr), ok

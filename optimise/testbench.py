@@ -48,7 +48,7 @@ from pathlib import Path
 import numpy as np
 
 from models.constants import ZERO_CELSIUS
-from models.evaluate import Design, Targets, _devices, _rest_point, _shifts
+from models.evaluate import Design, Targets, devices_at, rest_point, corner_shifts
 from models.stages import get_stage
 from models.tech import Corner, Polarity, Tech
 
@@ -255,9 +255,9 @@ def drive_limits(design: Design, tech: Tech, targets: Targets, corner: Corner, t
     idx = np.asarray(idx, dtype=int)
     n = len(idx)
     # The devices and the rest point exactly as models.evaluate builds and solves them.
-    devs = _devices(stage, design, tech, _shifts(tech, [Corner(corner)] * n), np.full(n, float(temp)), idx)
+    devs = devices_at(stage, design, tech, corner_shifts(tech, [Corner(corner)] * n), np.full(n, float(temp)), idx)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
-    nodes, ok, _ = _rest_point(stage, devs, bias, vdd, sensitivity=False)
+    nodes, ok, _ = rest_point(stage, devs, bias, vdd, sensitivity=False)
     up, _ = gate_nodes(stage)
     forced = {}
     for direction in (+1, -1):

@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from models.evaluate import Design, _devices, _shifts
+from models.evaluate import Design, devices_at, corner_shifts
 from models.stages import get_stage
 from models.tech import Corner, ModelKind, MosTech, Tech
 
@@ -66,7 +66,7 @@ def solve_rest(design: Design, tech: Tech, vdd: float):
     """
     stage = get_stage(design.architecture)
     m = design.size
-    devs = _devices(stage, design, tech, _shifts(tech, [Corner.TT] * m), np.full(m, T_TEST), np.arange(m))
+    devs = devices_at(stage, design, tech, corner_shifts(tech, [Corner.TT] * m), np.full(m, T_TEST), np.arange(m))
     bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
     v = np.full(m, float(vdd))
     nodes, ok = stage.quiescent(devs, bias, v)
