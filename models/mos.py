@@ -155,29 +155,42 @@ def _frame(m: Mos, vg, vd, vs, vb):
     return p * (np.asarray(vg) - vb), p * (np.asarray(vd) - vb), p * (np.asarray(vs) - vb)
 
 
-def _softplus_sigmoid(h):
-    """ln(1 + e^h) and 1/(1 + e^-h) from one exponential, stable for any h."""
-    a = np.exp(-np.abs(h))
-    return np.maximum(h, 0.0) + np.log1p(a), np.where(h >= 0.0, 1.0, a) / (1.0 + a)
+def ekv_constants(m: Mos, w, l, dvt=0.0, dbeta=0.0):
+    """Per-instance constants of the EKV current, for repeated evaluation.
+
+    Returns (vt, 1/n, 1/(2 UT), Ispec, 1/VA): threshold magnitude with the instance's
+    deviation [V], inverse slope factor, half the inverse thermal voltage [1/V], specific
+    current with the instance's current-factor deviation [A], inverse Early voltage [1/V].
+    """
+    return (m.vt0 + dvt, 1.0 / m.n, 0.5 / m.ut, specific_current(m, w, l, dbeta), 1.0 / early_voltage(m, l))
+
+
+def ekv_terms(vgb, vdb, vsb, vt, inv_n, half_inv_ut, ispec, inv_va):
+    """EKV frame current and its partials from the constants of `ekv_constants`.
+
+    Forward and reverse terms F((VP - VS)/UT) and F((VP - VD)/UT), with
+    ln(1 + e^h) and its derivative 1/(1 + e^-h) taken from one exponential each; h is
+    capped at 700 (VP 700 x 2 UT above the source, beyond any supply), where ln(1 + e^h)
+    equals h to rounding. Returns (i, d/dVG, d/dVD, d/dVS) in the bulk-referenced frame.
+    """
+    vp = (vgb - vt) * inv_n
+    ef = np.exp(np.minimum((vp - vsb) * half_inv_ut, 700.0))
+    er = np.exp(np.minimum((vp - vdb) * half_inv_ut, 700.0))
+    lf = np.log1p(ef)
+    lr = np.log1p(er)
+    vds = vdb - vsb
+    clm = 1.0 + np.abs(vds) * inv_va
+    k = ispec * clm  # Ispec times length modulation
+    i0 = k * (lf * lf - lr * lr)  # current with length modulation
+    kd = k * (2.0 * half_inv_ut)
+    dff = kd * lf * (ef / (1.0 + ef))  # k dF/dx / UT, forward
+    dfr = kd * lr * (er / (1.0 + er))
+    s = i0 * (np.copysign(inv_va, vds) / clm)  # d(length modulation)/dVDS share
+    return i0, (dff - dfr) * inv_n, dfr + s, -(dff + s)
 
 
 def _ekv(m, w, l, vgb, vdb, vsb, dvt, dbeta):
-    ut, n = m.ut, m.n
-    inv_ut = 1.0 / ut
-    vp = (vgb - m.vt0 - dvt) / n
-    lf, sf = _softplus_sigmoid((vp - vsb) * (0.5 * inv_ut))
-    lr, sr = _softplus_sigmoid((vp - vdb) * (0.5 * inv_ut))
-    vds = vdb - vsb
-    inv_va = 1.0 / early_voltage(m, l)
-    k = specific_current(m, w, l, dbeta) * (1.0 + np.abs(vds) * inv_va)  # Ispec times length modulation
-    i0 = k * (lf * lf - lr * lr)  # current with length modulation
-    dff = lf * sf * inv_ut
-    dfr = lr * sr * inv_ut
-    s = i0 * (np.sign(vds) * inv_va / (1.0 + np.abs(vds) * inv_va))  # d(length modulation)/dVDS share
-    gg = k * (dff - dfr) / n
-    gd = k * dfr + s
-    gs = -k * dff - s
-    return i0, gg, gd, gs
+    return ekv_terms(vgb, vdb, vsb, *ekv_constants(m, w, l, dvt, dbeta))
 
 
 def _threshold(m, vsb, dvt):

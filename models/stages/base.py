@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .. import mos as _mos
-from ..tech import Polarity
+from ..tech import ModelKind, Polarity
 
 RAILS = ("vdd", "0")
 
@@ -98,7 +98,8 @@ class Device:
     """A sized device at its operating conditions, with optional mismatch deviations.
 
     Arrays broadcast with the flat batch. `tied` means the bulk sits on the source (own
-    well), which removes the body effect.
+    well), which removes the body effect. The EKV constants of the instance are worked
+    out once, at construction, since a solve evaluates the same device many times.
     """
 
     mos: _mos.Mos
@@ -107,6 +108,11 @@ class Device:
     tied: bool = False
     dvt: np.ndarray | float = 0.0
     dbeta: np.ndarray | float = 0.0
+    ekv: tuple | None = field(init=False, repr=False, default=None)
+
+    def __post_init__(self) -> None:
+        if self.mos.kind is ModelKind.EKV:
+            self.ekv = _mos.ekv_constants(self.mos, self.w, self.l, self.dvt, self.dbeta)
 
     @property
     def p(self) -> int:
@@ -116,11 +122,18 @@ class Device:
         """Frame current i and its derivatives with respect to the physical gate, drain and
         source voltages (source derivative includes the bulk when tied). Shape (m,)."""
         vb_eff = vs if self.tied else vb
-        i, gg, gd, gs = _mos.current_partials(self.mos, self.w, self.l, vg, vd, vs, vb_eff, self.dvt, self.dbeta)
         p = self.p
+        if self.ekv is None:
+            i, gg, gd, gs = _mos.current_partials(self.mos, self.w, self.l, vg, vd, vs, vb_eff, self.dvt, self.dbeta)
+        elif p == 1:
+            i, gg, gd, gs = _mos.ekv_terms(vg - vb_eff, vd - vb_eff, vs - vb_eff, *self.ekv)
+        else:
+            i, gg, gd, gs = _mos.ekv_terms(vb_eff - vg, vb_eff - vd, vb_eff - vs, *self.ekv)
         if self.tied:
             gs = -(gg + gd)
-        return i, p * gg, p * gd, p * gs
+        if p == 1:
+            return i, gg, gd, gs
+        return i, -gg, -gd, -gs
 
     def current(self, vg, vd, vs, vb):
         return self.eval(vg, vd, vs, vb)[0]
