@@ -82,32 +82,53 @@ def quiescent(devs, bias, vdd):
     """Operating point at rest, output held at VDD/2 with zero output current.
 
     Diode stacks are closed form; the two gate nodes follow from a damped Newton on
-    [i(MN_OUT) - i(MP_OUT), i(MN_CTL) + i(MP_CTL) - ib_ctl], started from the matched-density
-    estimate Iq = ib (W/L)_out / (W/L)_d1; a nested bracketed solve takes the stragglers.
+    [i(MN_OUT) - i(MP_OUT), i(MN_CTL) + i(MP_CTL) - ib_ctl] (on their logarithms with EKV),
+    started from the weak-inversion estimate of the two product laws: each loop gives
+    i_ctl Iq = ib^2 S_ctl S_out / (S_d1 S_d2) (S = W/L), and the two control currents add up
+    to ib_ctl. A nested bracketed solve takes the stragglers.
 
     Returns (nodes, ok): node voltages (each shape (m,)) and the convergence flags.
     """
     out = 0.5 * vdd
     nb1, nb2, pb1, pb2 = _stacks(devs, bias, vdd)
     dn, dp = devs["mn_out"], devs["mp_out"]
-    ratio_n = (dn.w / dn.l) / (devs["mn_d1"].w / devs["mn_d1"].l)
-    ratio_p = (dp.w / dp.l) / (devs["mp_d1"].w / devs["mp_d1"].l)
-    iq0 = np.sqrt(bias["ib_n"] * ratio_n * bias["ib_p"] * ratio_p)
+
+    def s(role):
+        return devs[role].w / devs[role].l
+
+    a_n = bias["ib_n"] ** 2 * s("mn_ctl") * s("mn_out") / (s("mn_d1") * s("mn_d2"))
+    a_p = bias["ib_p"] ** 2 * s("mp_ctl") * s("mp_out") / (s("mp_d1") * s("mp_d2"))
+    iq0 = (a_n + a_p) / bias["ib_ctl"]
     gn0 = dn.gate_for(iq0, 0.0, 0.0, out)
     gp0 = dp.gate_for(iq0, vdd, vdd, out)
+    # With EKV every current is positive and its logarithm nearly linear in the gate
+    # voltages (exactly so in weak inversion), so Newton on the logarithms of both
+    # balances converges in a few steps where Newton on the currents crawls down the
+    # exponentials; the square law has cut-off (zero current) and keeps the plain form.
+    logs = dn.ekv is not None
+
     def fun(x, idx):
         d = subset(devs, idx)
         gn, gp = x
         i_n, gn_g, _, _ = d["mn_out"].eval(gn, out[idx], 0.0, 0.0)
         i_p, gp_g, _, _ = d["mp_out"].eval(gp, out[idx], vdd[idx], vdd[idx])
         s, s_gn, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], gn, gp, vdd[idx])
-        r = np.stack([i_n - i_p, s - bias["ib_ctl"][idx]])
+        ib = bias["ib_ctl"][idx]
         jac = np.empty((len(idx), 2, 2))
-        jac[:, 0, 0], jac[:, 0, 1] = gn_g, -gp_g
-        jac[:, 1, 0], jac[:, 1, 1] = s_gn, s_gp
+        if logs:
+            i_n, i_p, s = np.maximum(i_n, 1e-300), np.maximum(i_p, 1e-300), np.maximum(s, 1e-300)
+            r = np.stack([np.log(i_n / i_p), np.log(s / ib)])
+            jac[:, 0, 0], jac[:, 0, 1] = gn_g / i_n, -gp_g / i_p
+            jac[:, 1, 0], jac[:, 1, 1] = s_gn / s, s_gp / s
+        else:
+            r = np.stack([i_n - i_p, s - ib])
+            jac[:, 0, 0], jac[:, 0, 1] = gn_g, -gp_g
+            jac[:, 1, 0], jac[:, 1, 1] = s_gn, s_gp
         return r, jac
 
-    x, ok = newton(fun, np.stack([gn0, gp0]))
+    # Newton is quadratic here (the next step would be about step^2 per volt), so a last
+    # step below 1 uV leaves the gates within about 1e-12 V.
+    x, ok = newton(fun, np.stack([gn0, gp0]), xtol=1e-6)
     gn, gp = x
     if not ok.all():
         bad = np.flatnonzero(~ok)
@@ -227,7 +248,8 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
     else:
         gp0 = devs["mp_ctl"].source_for(ib_ctl, pb2, vdd, sat0)
         x0 = np.stack([gp0 - sat0, gp0])
-    x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-6, max_iter=80)  # gates to 1 uV
+    # A last step below 10 uV leaves the gates within about 1e-9 V (quadratic convergence).
+    x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-5, max_iter=80)
     gn, gp = x[0].copy(), x[1].copy()
     v_edge = gp if driven_node == "gp" else gn
     # The edge comes first when the driven gate meets it before its compliance bound.
