@@ -265,16 +265,19 @@ def rest_point(stage, devs, bias, vdd, sensitivity=True):
     """Rest point of every element: the stage's fast solve, checked against the residuals
     of the full Kirchhoff system, with Newton on that system as the second chance.
 
-    Returns (nodes, ok, sens): node voltages, convergence flags and, when asked, the Iq
-    sensitivities of `NodalSystem.iq_sensitivity` (else None).
+    Returns (nodes, ok, sens, op): node voltages, convergence flags, the Iq sensitivities
+    of `NodalSystem.iq_sensitivity` when asked (else None), and every device evaluated at
+    the rest point (role -> (i, gg, gd, gs), as `Device.eval` gives them), for the metrics
+    that need currents or conductances at rest.
     """
     nodes, ok = stage.quiescent(devs, bias, vdd)
     system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd)
     x = np.stack([nodes[nname] for nname in stage.TOPOLOGY.nodes] + [np.zeros_like(vdd)])
     if sensitivity:
-        sens, r = system.iq_sensitivity(x, stage.PULL_DOWN)
+        sens, r, op = system.iq_sensitivity(x, stage.PULL_DOWN)
     else:
-        sens, r = None, system.assemble(x, np.arange(len(vdd)))[0]
+        sens = None
+        r, _, _, op = system.assemble(x, np.arange(len(vdd)))
     scale = np.maximum(stage.bias_total(bias), 1e-15)
     ok &= np.all(np.abs(r) <= 1e-6 * scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
     if not ok.all():
@@ -285,17 +288,22 @@ def rest_point(stage, devs, bias, vdd, sensitivity=True):
             nodes[nname] = nodes[nname].copy()
             nodes[nname][bad] = xb[k_node]
         if sensitivity:
-            sens_b, _ = sub.iq_sensitivity(xb, stage.PULL_DOWN)
+            sens_b, _, op_b = sub.iq_sensitivity(xb, stage.PULL_DOWN)
             for role, (s_vt, s_beta) in sens_b.items():
                 sens[role][0][bad], sens[role][1][bad] = s_vt, s_beta
-    return nodes, ok, sens
+        else:
+            _, _, _, op_b = sub.assemble(xb, np.arange(len(bad)))
+        for role, vals in op_b.items():
+            op[role] = tuple(np.array(whole, dtype=float) for whole in op[role])
+            for whole, part in zip(op[role], vals):
+                whole[bad] = part
+    return nodes, ok, sens, op
 
 
-def pull_down_current(stage, devs, nodes, vdd):
-    """Iq: the current of the pull-down output device at the rest point [A], >= 0."""
-    spec = stage.TOPOLOGY.spec(stage.PULL_DOWN)
-    v = {"vdd": vdd, "0": np.zeros_like(vdd), "out": 0.5 * vdd, **nodes}
-    return np.maximum(devs[stage.PULL_DOWN].current(v[spec.g], v[spec.d], v[spec.s], v[spec.rail]), 0.0)
+def pull_down_current(stage, op):
+    """Iq: the current of the pull-down output device at the rest point [A], >= 0, from
+    the rest-point evaluations `op` of `rest_point`."""
+    return np.maximum(op[stage.PULL_DOWN][0], 0.0)
 
 
 def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
@@ -305,8 +313,8 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     vdd = vdd_all[idx_pvt]
     devs = devices_at(stage, design, tech, shifts, temp, idx_design)
     bias = {k: np.asarray(v, dtype=float)[idx_design] for k, v in design.bias.items()}
-    nodes, ok, sens = rest_point(stage, devs, bias, vdd)
-    iq = pull_down_current(stage, devs, nodes, vdd)
+    nodes, ok, sens, op = rest_point(stage, devs, bias, vdd)
+    iq = pull_down_current(stage, op)
 
     var = np.zeros_like(vdd)
     for spec in stage.TOPOLOGY.devices:
@@ -317,10 +325,10 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     with np.errstate(divide="ignore", invalid="ignore"):
         sigma_pct = np.where(iq > 0, 100.0 * np.sqrt(var) / iq, 0.0)
 
-    gm = stage.gm_output(devs, nodes, vdd)
+    gm = stage.gm_output(op)
     fp2 = gm / (2.0 * np.pi * targets.c_load)
 
-    reqs = stage.requirements(devs, bias, vdd, nodes, targets.vcomp)
+    reqs = stage.requirements(devs, bias, vdd, nodes, op, targets.vcomp)
     req = np.stack([rq for _, rq in reqs])
     vdd_min = np.max(req, axis=0)
     vdd_min_what = np.argmax(req, axis=0)
@@ -421,5 +429,5 @@ def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd:
     devs = devices_at(stage, design, tech, corner_shifts(tech, [corner] * samples), np.full(samples, temp), idx, dvt, dbeta)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
     vdd_arr = np.full(samples, float(vdd))
-    nodes, ok, _ = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
-    return pull_down_current(stage, devs, nodes, vdd_arr), ok
+    _, ok, _, op = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
+    return pull_down_current(stage, op), ok

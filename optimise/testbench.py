@@ -257,7 +257,7 @@ def drive_limits(design: Design, tech: Tech, targets: Targets, corner: Corner, t
     # The devices and the rest point exactly as models.evaluate builds and solves them.
     devs = devices_at(stage, design, tech, corner_shifts(tech, [Corner(corner)] * n), np.full(n, float(temp)), idx)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
-    nodes, ok, _ = rest_point(stage, devs, bias, vdd, sensitivity=False)
+    nodes, ok, _, _ = rest_point(stage, devs, bias, vdd, sensitivity=False)
     up, _ = gate_nodes(stage)
     forced = {}
     for direction in (+1, -1):

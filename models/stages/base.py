@@ -296,18 +296,19 @@ class NodalSystem:
         return v
 
     def assemble(self, x, idx, want_theta=False):
-        """Residuals r (k, n), Jacobian (n, k, k) and, if asked, the parameter derivatives
-        of r: dict role -> (dr/d dvt, dr/d dbeta), each (k, n)."""
+        """Residuals r (k, n), Jacobian (n, k, k), the parameter derivatives of r if asked
+        (dict role -> (dr/d dvt, dr/d dbeta), each (k, n), else empty) and every device's
+        evaluation at x (dict role -> (i, gg, gd, gs) as `Device.eval` gives them)."""
         k, n = self.size, len(idx)
         v = self.voltages(x, idx)
         r = np.zeros((k, n))
         jac = np.zeros((n, k, k))
         row_of = dict(self.index)
         row_of["out"] = self.index["__drive__"]  # zero output current takes the drive's row
-        theta = {}
+        theta, evals = {}, {}
         for spec in self.topo.devices:
             dev = _subset(self.devices[spec.role], idx)
-            i, gg, gd, gs = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
+            i, gg, gd, gs = evals[spec.role] = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
             current_in = dev.p * i  # physical current entering the drain terminal
             p = dev.p
             terms = ((spec.g, p * gg), (spec.d, p * gd), (spec.s, p * gs))
@@ -352,7 +353,7 @@ class NodalSystem:
         drive_row = row_of[self.topo.drive]
         r[drive_row] += x[drive_col]
         jac[:, drive_row, drive_col] += 1.0
-        return r, jac, theta
+        return r, jac, theta, evals
 
     def solve(self, x0):
         """Damped Newton on the full system from x0 (k, m)."""
@@ -362,16 +363,16 @@ class NodalSystem:
         """d Iq / d dvt and d Iq / d dbeta for every device, by the adjoint of the exact
         Jacobian at the solved point x (k, m). Iq is the frame current of `out_role`.
 
-        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,), and the
-        residuals (k, m) at x, so the caller can check the point it passed.
+        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,), the
+        residuals (k, m) at x, so the caller can check the point it passed, and the device
+        evaluations at x (as `assemble` gives them).
         """
         m = x.shape[1]
         idx = np.arange(m)
-        r, jac, theta = self.assemble(x, idx, want_theta=True)
-        v = self.voltages(x, idx)
+        r, jac, theta, evals = self.assemble(x, idx, want_theta=True)
         spec = self.topo.spec(out_role)
         dev = self.devices[out_role]
-        i, gg, gd, gs = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
+        i, gg, gd, gs = evals[out_role]
         grad = np.zeros((m, self.size))
         for node, g in ((spec.g, gg), (spec.d, gd), (spec.s, gs)):
             col = self.index.get(node)
@@ -397,7 +398,7 @@ class NodalSystem:
                 s_vt = s_vt - dev.p * gg
                 s_beta = s_beta + i / (1.0 + dev.dbeta)
             out[role] = (np.where(singular, 0.0, s_vt), np.where(singular, 0.0, s_beta))
-        return out, r
+        return out, r, evals
 
 
 def _subset(dev: Device, idx) -> Device:

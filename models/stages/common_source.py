@@ -9,12 +9,10 @@ def gates(nodes):
     return nodes["gn"], nodes["gp"]
 
 
-def gm_output(devs, nodes, vdd):
-    """Transconductance that sets the output pole, gm(MN_OUT) + gm(MP_OUT) at rest [S]."""
-    out = 0.5 * vdd
-    _, g_n, _, _ = devs["mn_out"].eval(nodes["gn"], out, 0.0, 0.0)
-    _, g_p, _, _ = devs["mp_out"].eval(nodes["gp"], out, vdd, vdd)
-    return g_n - g_p
+def gm_output(op):
+    """Transconductance that sets the output pole, gm(MN_OUT) + gm(MP_OUT) at rest [S],
+    from the rest-point evaluations `op` (role -> (i, gg, gd, gs))."""
+    return op["mn_out"][1] - op["mp_out"][1]
 
 
 def output(devs, gate_n, gate_p, vdd, v):

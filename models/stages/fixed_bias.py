@@ -76,10 +76,10 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
     return gn, gp, np.zeros(vdd.shape, dtype=int), np.ones(vdd.shape, dtype=bool)
 
 
-def requirements(devs, bias, vdd, nodes, vcomp):
-    """Lowest supply for each condition at rest [V], as (what, required) pairs."""
-    out = 0.5 * vdd
-    iq = devs["mn_out"].current(nodes["gn"], out, 0.0, 0.0)
+def requirements(devs, bias, vdd, nodes, op, vcomp):
+    """Lowest supply for each condition at rest [V], as (what, required) pairs; `op` holds
+    the rest-point evaluations (role -> (i, gg, gd, gs))."""
+    iq = op["mn_out"][0]
     vb = bias["ib"] * bias["r_bias"]
     return [
         ("output pair cuts off", vb + devs["mn_out"].mos.vt0 + devs["mp_out"].mos.vt0),

@@ -308,16 +308,15 @@ def _edge_bracketed(devs, bias, vdd, nb2, pb2, driven_node, direction, bound, re
     return g_n, g_p, (ok_f | (m_rest <= 0)) & ok_h
 
 
-def requirements(devs, bias, vdd, nodes, vcomp):
+def requirements(devs, bias, vdd, nodes, op, vcomp):
     """Lowest supply each device or source needs at rest to keep its region [V].
 
     Gate-source voltages at rest hardly depend on the supply, so each condition turns
-    into a supply requirement at the solved point. Returns a list of (what, required).
+    into a supply requirement at the solved point; `op` holds the rest-point evaluations
+    (role -> (i, gg, gd, gs)). Returns a list of (what, required).
     """
-    out = 0.5 * vdd
     gn, gp = nodes["gn"], nodes["gp"]
-    iq = devs["mn_out"].current(gn, out, 0.0, 0.0)
-    _, _, _, i_nc, i_pc = _ctl_sum(devs, nodes["nb2"], nodes["pb2"], gn, gp, vdd)
+    iq, i_nc, i_pc = op["mn_out"][0], op["mn_ctl"][0], op["mp_ctl"][0]
     vgs_n = gn
     vsg_p = vdd - gp
     return [

@@ -103,16 +103,16 @@ def output(devs, gate_n, gate_p, vdd, v):
     return i_up, i_dn, us - ds
 
 
-def gm_output(devs, nodes, vdd):
-    """Output conductance of the followers at rest (gm plus body gm of both) [S]."""
-    _, _, d_net = output(devs, nodes["nb"], nodes["nt"], vdd, 0.5 * vdd)
-    return -d_net
+def gm_output(op):
+    """Output conductance of the followers at rest (gm plus body gm of both) [S], from
+    the rest-point evaluations `op` (role -> (i, gg, gd, gs))."""
+    return op["mp_f"][3] - op["mn_f"][3]
 
 
-def requirements(devs, bias, vdd, nodes, vcomp):
+def requirements(devs, bias, vdd, nodes, op, vcomp):
     """Lowest supply for each condition at rest [V], as (what, required) pairs."""
     out = 0.5 * vdd
-    iq = devs["mp_f"].current(nodes["nb"], np.zeros_like(vdd), out, vdd)
+    iq = op["mp_f"][0]
     return [
         ("ib top source loses compliance", 2.0 * (nodes["nt"] - out + vcomp)),
         ("ib bottom source loses compliance", 2.0 * (out - nodes["nb"] + vcomp)),
