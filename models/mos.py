@@ -336,21 +336,28 @@ def source_voltage_sat(m: Mos, w, l, i, vg, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0,
     return vb + p * (u * u - m.phi)
 
 
-def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6):
+def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6, partials=None):
     """Gate (= drain) voltage of a diode-connected device carrying `i`, full model.
 
     The saturation closed form is the start; a few Newton steps on the complete model
     (reverse term and length modulation with VDS = VGS included) make it exact to
     rounding. Arguments and shapes as in `gate_voltage_sat`; returns the physical voltage.
+    `partials`, if given, stands in for the model: partials(vg) -> (frame current, its
+    derivatives with respect to the physical gate and drain voltages) with the drain on
+    the gate (a caller with precomputed constants passes its own).
     """
     p = m.polarity
     vg = gate_voltage_sat(m, w, l, i, vs, vb, 0.0, dvt, dbeta)
     vg = gate_voltage_sat(m, w, l, i, vs, vb, np.asarray(vg) - vs, dvt, dbeta)  # with VDS = VGS in the CLM factor
+    if partials is None:
+        def partials(v):
+            i_now, gg, gd, _ = current_partials(m, w, l, v, v, vs, vb, dvt, dbeta)
+            return i_now, p * gg, p * gd
     done = np.zeros(np.shape(vg), dtype=bool)
     for _ in range(iterations):
-        i_now, gg, gd, _ = current_partials(m, w, l, vg, vg, vs, vb, dvt, dbeta)
-        # Along vd = vg the physical drain current p*i changes by gg + gd per volt.
-        step = p * (i_now - i) / (gg + gd)
+        i_now, gg, gd = partials(vg)
+        # Along vd = vg the frame current changes by gg + gd per volt.
+        step = (i_now - i) / (gg + gd)
         # Each element stops on its own (so a result never depends on its batch
         # neighbours); Newton is quadratic here, so after a step below 1e-8 V the error
         # is far below 1e-12 V.

@@ -140,7 +140,8 @@ class Device:
 
     def diode(self, i, vs, vb):
         """Gate = drain voltage of this device diode-connected, carrying frame current i."""
-        return _mos.diode_voltage(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, self.dvt, self.dbeta)
+        return _mos.diode_voltage(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, self.dvt, self.dbeta,
+                                  partials=lambda vg: self.eval(vg, vg, vs, vb)[:3])
 
     def gate_for(self, i, vs, vb, vds):
         """Gate voltage for frame current i in saturation (closed form)."""
