@@ -225,6 +225,15 @@ def devices_at(stage, design: Design, tech: Tech, shifts, temp, idx_design, dvt=
     return devs
 
 
+def _output_device(stage, devs, role, gate, vdd, v):
+    """Frame current of one output device (role) with its gate at `gate` and the output at
+    v, and the current's derivative with respect to v. Shapes (m,)."""
+    spec = stage.TOPOLOGY.spec(role)
+    volts = {"vdd": vdd, "0": 0.0, "out": v, spec.g: gate}
+    i, _, gd, gs = devs[role].eval(volts[spec.g], volts[spec.d], volts[spec.s], volts[spec.rail])
+    return i, gd if spec.d == "out" else gs
+
+
 def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     """Headroom, peak current and idle-device ratio on one side. Shapes (m,)."""
     gn, gp, limit, ok = stage.driven(devs, bias, vdd, nodes, direction, targets.drive, targets.vcomp)
@@ -239,14 +248,18 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
         return (u - dn) * direction - i_load, dd * direction
 
     can = peak >= i_load
+    active, idle_role = (stage.PULL_UP, stage.PULL_DOWN) if direction > 0 else (stage.PULL_DOWN, stage.PULL_UP)
+    gate_active, gate_idle = (gp, gn) if direction > 0 else (gn, gp)
     rail = vdd if direction > 0 else np.zeros_like(vdd)
-    # Start from the rail side: the active device's triode conductance at the rail gives
-    # the output voltage drop for the load current.
-    r_up, r_dn, d_rail = stage.output(devs, gn, gp, vdd, rail)
-    f_rail = (r_up - r_dn) * direction - i_load
-    x0 = rail - direction * np.clip((i_load + (r_dn if direction > 0 else r_up)) / np.maximum(np.abs(d_rail), 1e-30),
-                                    0.0, 0.5 * vdd)
+    # At the rail the active device has no drain-source voltage and carries nothing, so
+    # the function is -(i_load + idle current) < 0 there: only its sign is needed for the
+    # bracket. Start from the rail side: the active device's triode conductance at the
+    # rail gives the output voltage drop for the load plus the idle current.
+    _, d_rail = _output_device(stage, devs, active, gate_active, vdd, rail)
+    idle_mid = i_dn if direction > 0 else i_up
+    x0 = rail - direction * np.clip((i_load + idle_mid) / np.maximum(np.abs(d_rail), 1e-30), 0.0, 0.5 * vdd)
     f_mid = peak - i_load
+    f_rail = np.full_like(vdd, -i_load)
     # Output voltage to 0.1 uV: the last safeguarded Newton step leaves far less.
     if direction > 0:
         v_at, ok_v = solve_bracketed(fun, out, vdd.copy(), x0=x0, xtol=1e-7, flo=f_mid, fhi=f_rail)
@@ -254,8 +267,7 @@ def _driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
         v_at, ok_v = solve_bracketed(fun, np.zeros_like(vdd), out, x0=x0, xtol=1e-7, flo=f_rail, fhi=f_mid)
     v_at = np.where(can, v_at, out)
     headroom = np.where(direction > 0, vdd - v_at, v_at)
-    i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, v_at)
-    idle = i_dn if direction > 0 else i_up
+    idle, _ = _output_device(stage, devs, idle_role, gate_idle, vdd, v_at)
     with np.errstate(divide="ignore", invalid="ignore"):
         ab = np.where(iq > 0, idle / iq, 0.0)
     return headroom, peak, ab, limit, ok & (ok_v | ~can)
