@@ -289,7 +289,7 @@ def rest_point(stage, devs, bias, vdd, sensitivity=True):
         sens, r, op = system.iq_sensitivity(x, stage.PULL_DOWN)
     else:
         sens = None
-        r, _, _, op = system.assemble(x, np.arange(len(vdd)))
+        r, _, op = system.assemble(x, np.arange(len(vdd)))
     scale = np.maximum(stage.bias_total(bias), 1e-15)
     ok &= np.all(np.abs(r) <= 1e-6 * scale + 1e-15, axis=0) & np.all(np.isfinite(x), axis=0)
     if not ok.all():
@@ -304,7 +304,7 @@ def rest_point(stage, devs, bias, vdd, sensitivity=True):
             for role, (s_vt, s_beta) in sens_b.items():
                 sens[role][0][bad], sens[role][1][bad] = s_vt, s_beta
         else:
-            _, _, _, op_b = sub.assemble(xb, np.arange(len(bad)))
+            _, _, op_b = sub.assemble(xb, np.arange(len(bad)))
         for role, vals in op_b.items():
             op[role] = tuple(np.array(whole, dtype=float) for whole in op[role])
             for whole, part in zip(op[role], vals):

@@ -296,69 +296,72 @@ class NodalSystem:
                 v[node] = x[k]
         return v
 
-    def assemble(self, x, idx, want_theta=False):
-        """Residuals r (k, n), Jacobian (n, k, k), the parameter derivatives of r if asked
-        (dict role -> (dr/d dvt, dr/d dbeta), each (k, n), else empty) and every device's
-        evaluation at x (dict role -> (i, gg, gd, gs) as `Device.eval` gives them)."""
+    def _rows(self, spec):
+        """(row, sign) of the equations a device's drain current enters: it leaves the
+        drain node (-1) and enters the source node (+1); the output node's row is the
+        zero-output-current equation, which takes the drive's row."""
+        rows = []
+        for node, sign in ((spec.d, -1.0), (spec.s, 1.0)):
+            row = self.index["__drive__"] if node == "out" else self.index.get(node)
+            if row is not None and node != "__drive__":
+                rows.append((row, sign))
+        return rows
+
+    def assemble(self, x, idx):
+        """Residuals r (k, n), the Jacobian as its structurally non-zero entries (dict
+        (row, col) -> (n,)), and every device's evaluation at x (dict role -> (i, gg, gd,
+        gs) as `Device.eval` gives them)."""
         k, n = self.size, len(idx)
         v = self.voltages(x, idx)
         r = np.zeros((k, n))
-        jac = np.zeros((n, k, k))
-        row_of = dict(self.index)
-        row_of["out"] = self.index["__drive__"]  # zero output current takes the drive's row
-        theta, evals = {}, {}
+        jac: dict[tuple[int, int], np.ndarray] = {}
+
+        def add(row, col, val):
+            jac[row, col] = jac[row, col] + val if (row, col) in jac else val
+
+        evals = {}
         for spec in self.topo.devices:
             dev = _subset(self.devices[spec.role], idx)
             i, gg, gd, gs = evals[spec.role] = dev.eval(v[spec.g], v[spec.d], v[spec.s], v[spec.rail])
-            current_in = dev.p * i  # physical current entering the drain terminal
             p = dev.p
+            current_in = p * i  # physical current entering the drain terminal
             terms = ((spec.g, p * gg), (spec.d, p * gd), (spec.s, p * gs))
-            for node, sign in ((spec.d, -1.0), (spec.s, 1.0)):
-                row = row_of.get(node)
-                if row is None:
-                    continue
+            for row, sign in self._rows(spec):
                 r[row] += sign * current_in
                 for col_node, g in terms:
                     col = self.index.get(col_node)
-                    if col is not None and col_node != "__drive__":
-                        jac[:, row, col] += sign * g
-            if want_theta:
-                # d(current_in)/d dvt = p * (-p * gg) = -gg; d/d dbeta = current_in / (1 + dbeta)
-                d_vt = np.zeros((k, n))
-                d_beta = np.zeros((k, n))
-                for node, sign in ((spec.d, -1.0), (spec.s, 1.0)):
-                    row = row_of.get(node)
-                    if row is not None:
-                        d_vt[row] += sign * (-gg)
-                        d_beta[row] += sign * current_in / (1.0 + dev.dbeta)
-                theta[spec.role] = (d_vt, d_beta)
+                    if col is not None:
+                        add(row, col, sign * g)
         for src in self.topo.sources:
             val = self.bias[src.bias][idx]
             for node, sign in ((src.a, -1.0), (src.b, 1.0)):
-                row = row_of.get(node)
+                row = self.index["__drive__"] if node == "out" else self.index.get(node)
                 if row is not None:
                     r[row] += sign * val
         for res in self.topo.resistors:
             gval = 1.0 / self.bias[res.bias][idx]
             cur = (v[res.a] - v[res.b]) * gval
             for node, sign in ((res.a, -1.0), (res.b, 1.0)):
-                row = row_of.get(node)
+                row = self.index["__drive__"] if node == "out" else self.index.get(node)
                 if row is None:
                     continue
                 r[row] += sign * cur
                 for col_node, g in ((res.a, gval), (res.b, -gval)):
                     col = self.index.get(col_node)
                     if col is not None:
-                        jac[:, row, col] += sign * g
+                        add(row, col, sign * g)
         drive_col = self.index["__drive__"]
-        drive_row = row_of[self.topo.drive]
+        drive_row = self.index[self.topo.drive]
         r[drive_row] += x[drive_col]
-        jac[:, drive_row, drive_col] += 1.0
-        return r, jac, theta, evals
+        add(drive_row, drive_col, np.ones(n))
+        return r, jac, evals
 
     def solve(self, x0):
         """Damped Newton on the full system from x0 (k, m)."""
-        return newton(lambda x, idx: self.assemble(x, idx)[:2], x0)
+        def fun(x, idx):
+            r, jac, _ = self.assemble(x, idx)
+            return r, dense(jac, self.size, len(idx))
+        return newton(fun, x0)
 
     def iq_sensitivity(self, x, out_role):
         """d Iq / d dvt and d Iq / d dbeta for every device, by the adjoint of the exact
@@ -369,37 +372,141 @@ class NodalSystem:
         evaluations at x (as `assemble` gives them).
         """
         m = x.shape[1]
-        idx = np.arange(m)
-        r, jac, theta, evals = self.assemble(x, idx, want_theta=True)
+        k = self.size
+        r, jac, evals = self.assemble(x, np.arange(m))
         spec = self.topo.spec(out_role)
         dev = self.devices[out_role]
         i, gg, gd, gs = evals[out_role]
-        grad = np.zeros((m, self.size))
+        grad: dict[int, np.ndarray] = {}
         for node, g in ((spec.g, gg), (spec.d, gd), (spec.s, gs)):
             col = self.index.get(node)
             if col is not None:
-                grad[:, col] += g  # frame current derivative
-        jt = np.swapaxes(jac, 1, 2)
+                grad[col] = grad[col] + g if col in grad else g  # frame current derivative
+        # Adjoint: J^T lam = d Iq / dx.
+        lam, solved = solve_structured({(c, rw): a for (rw, c), a in jac.items()}, grad, k, m)
         singular = np.zeros(m, dtype=bool)
-        try:
-            lam = np.linalg.solve(jt, grad[:, :, None])[:, :, 0]  # (m, k)
-        except np.linalg.LinAlgError:
-            # A stage cut off entirely (every device off, Iq = 0) has a singular Jacobian
-            # and no sensitivity; swap in the identity there so the rest of the batch solves.
+        if not solved.all():
+            # The stragglers go to LAPACK. A stage cut off entirely (every device off,
+            # Iq = 0) has a singular Jacobian and no sensitivity; the identity stands in
+            # there so the rest of the batch solves.
+            bad = np.flatnonzero(~solved)
+            jt = np.swapaxes(dense({key: a[bad] for key, a in jac.items()}, k, bad.size), 1, 2)
+            g_bad = np.zeros((bad.size, k))
+            for col, g in grad.items():
+                g_bad[:, col] = g[bad]
             sign, _ = np.linalg.slogdet(jt)
-            singular = sign == 0
-            jt = np.where(singular[:, None, None], np.eye(self.size), jt)
-            grad = np.where(singular[:, None], 0.0, grad)
-            lam = np.linalg.solve(jt, grad[:, :, None])[:, :, 0]
+            singular[bad] = sign == 0
+            jt = np.where((sign == 0)[:, None, None], np.eye(k), jt)
+            g_bad = np.where((sign == 0)[:, None], 0.0, g_bad)
+            lam[:, bad] = np.linalg.solve(jt, g_bad[:, :, None])[:, :, 0].T
         out = {}
-        for role, (d_vt, d_beta) in theta.items():
-            s_vt = -np.einsum("mk,km->m", lam, d_vt)
-            s_beta = -np.einsum("mk,km->m", lam, d_beta)
+        for spec_d in self.topo.devices:
+            role = spec_d.role
+            d = self.devices[role]
+            i_d, gg_d = evals[role][0], evals[role][1]
+            # The device's current enters its rows with these signs; with
+            # d(current_in)/d dvt = -gg and d(current_in)/d dbeta = current_in / (1 + dbeta),
+            # dIq/dtheta = -lam . dr/dtheta.
+            w = np.zeros(m)
+            for row, sign in self._rows(spec_d):
+                w = w + sign * lam[row]
+            s_vt = gg_d * w
+            s_beta = -(d.p * i_d / (1.0 + d.dbeta)) * w
             if role == out_role:
                 s_vt = s_vt - dev.p * gg
                 s_beta = s_beta + i / (1.0 + dev.dbeta)
             out[role] = (np.where(singular, 0.0, s_vt), np.where(singular, 0.0, s_beta))
         return out, r, evals
+
+
+def dense(entries, k, n):
+    """The (n, k, k) batch of matrices whose non-zero entries are `entries`."""
+    a = np.zeros((n, k, k))
+    for (row, col), val in entries.items():
+        a[:, row, col] = val
+    return a
+
+
+def solve_structured(entries, rhs, k, m, rtol=1e-9):
+    """Solve a batch of small sparse systems that share one structure, A x = b.
+
+    Gaussian elimination over the structural non-zeros only: each step takes the pivot
+    with the fewest fill-ins (Markowitz), among entries that are not small against their
+    row on a sample of the batch, so one numpy operation covers a row update of the whole
+    batch. Elimination without per-element pivoting can lose accuracy on some element;
+    the residual of every element is checked, and those that fail are reported for a
+    dense solve with partial pivoting.
+
+    Parameters
+    ----------
+    entries : dict (row, col) -> ndarray (m,)
+        The structurally non-zero entries of A.
+    rhs : dict row -> ndarray (m,)
+        The non-zero rows of b.
+    k, m : int
+        System size and batch size.
+
+    Returns
+    -------
+    x : ndarray (k, m)
+    ok : ndarray of bool (m,)
+        False where a pivot vanished or the residual exceeds rtol of the row's scale.
+    """
+    a = dict(entries)
+    b = {row: np.asarray(v, dtype=float) for row, v in rhs.items()}
+    sample = slice(None, None, max(1, m // 256))
+    row_cols = {i: {j for (ii, j) in a if ii == i} for i in range(k)}  # remaining rows
+    col_rows = {j: {i for (i, jj) in a if jj == j} for j in range(k)}  # remaining columns
+    order = []
+    with np.errstate(all="ignore"):
+        for _ in range(k):
+            best, best_key = None, None
+            for i, cols in row_cols.items():
+                mags = {c: np.abs(a[i, c][sample]) for c in cols}
+                row_max = np.maximum(np.max(list(mags.values()), axis=0), 1e-300) if mags else None
+                for c in cols:
+                    strong = float(np.min(mags[c] / row_max))
+                    key = (strong < 0.01, (len(cols) - 1) * (len(col_rows[c]) - 1), -strong)
+                    if best_key is None or key < best_key:
+                        best, best_key = (i, c), key
+            if best is None:
+                return np.zeros((k, m)), np.zeros(m, dtype=bool)  # structurally singular
+            i, j = best
+            order.append(best)
+            cols = row_cols.pop(i)
+            for c in cols:
+                col_rows[c].discard(i)
+            for r in col_rows.pop(j):
+                f = a.pop((r, j)) / a[i, j]
+                row_cols[r].discard(j)
+                for c in cols - {j}:
+                    upd = f * a[i, c]
+                    if (r, c) in a:
+                        a[r, c] = a[r, c] - upd
+                    else:
+                        a[r, c] = -upd
+                        row_cols[r].add(c)
+                        col_rows[c].add(r)
+                if i in b:
+                    b[r] = b[r] - f * b[i] if r in b else -f * b[i]
+        x = np.zeros((k, m))
+        for i, j in reversed(order):
+            acc = b[i].copy() if i in b else np.zeros(m)
+            for (ii, c), val in a.items():
+                if ii == i and c != j:
+                    acc -= val * x[c]
+            x[j] = acc / a[i, j]
+        res = np.zeros((k, m))
+        scale = np.zeros((k, m))
+        for (i, j), val in entries.items():
+            t = val * x[j]
+            res[i] += t
+            scale[i] += np.abs(t)
+        for i, v in rhs.items():
+            res[i] -= v
+            scale[i] += np.abs(v)
+        ok = np.all(np.isfinite(x), axis=0) & np.all(np.abs(res) <= rtol * scale, axis=0)
+    return np.where(ok, x, 0.0), ok
 
 
 def _subset(dev: Device, idx) -> Device:
