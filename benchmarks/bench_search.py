@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from optimise.problem import StageProblem
+from optimise.runtime import keep_freed_memory
 from optimise.search import Progress, hypervolume, normaliser, run_search
 from optimise.space import load_search
 from optimise.study import load_study
@@ -45,6 +46,7 @@ def main() -> None:
     ap.add_argument("--study", default=str(ROOT / "studies" / "sensor-buffer.toml"))
     ap.add_argument("--factor", type=int, default=10)
     args = ap.parse_args()
+    keep_freed_memory()  # as the stagefront command does
     study = load_study(args.study)
     settings = load_search(study)
     box = normaliser(study, settings)

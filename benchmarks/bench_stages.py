@@ -7,6 +7,10 @@ x 3 supplies = 15 PVT points, on the invented demo350 process. Population sizes 
 around the demo designs (log-uniform factors), so the solver sees varied operating points.
 
     python3 benchmarks/bench_stages.py [--designs 10000] [--arch floating-loop] [--chunk 8192]
+                                       [--glibc-default]
+
+Like the stagefront command, the benchmark asks glibc to keep freed memory for reuse
+(optimise.runtime); --glibc-default measures without that.
 """
 from __future__ import annotations
 
@@ -21,6 +25,7 @@ import numpy as np
 from models.constants import ZERO_CELSIUS
 from models.evaluate import Conditions, Design, evaluate
 from models.tech import Corner
+from optimise.runtime import keep_freed_memory
 from optimise.study import load_design, load_study
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -41,7 +46,11 @@ def main() -> None:
     ap.add_argument("--arch", default="all")
     ap.add_argument("--chunk", type=int, default=16384)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--glibc-default", action="store_true",
+                    help="leave glibc's memory trimming as it is (the stagefront command changes it)")
     args = ap.parse_args()
+    if not args.glibc_default:
+        keep_freed_memory()
     study = load_study(ROOT / "studies" / "sensor-buffer.toml")
     cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 3.3, 2.7, 3.6)
     archs = study.architectures if args.arch == "all" else (args.arch,)

@@ -16,6 +16,7 @@ from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result, evaluate
 from . import CAUTION
 from .errors import InputError
 from .montecarlo import confirm_sigma
+from .runtime import keep_freed_memory
 from .study import load_design, load_study
 from .units import format_eng
 
@@ -333,6 +334,7 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    keep_freed_memory()
     try:
         return args.func(args)
     except InputError as err:

@@ -44,6 +44,7 @@ from pathlib import Path
 from .atomic import write_text
 from .errors import InputError
 from .grid import Grid, load_grid
+from .runtime import keep_freed_memory
 from .sweep_summary import CAUTION, cell_row, joint_front, knee_rows, write_summary
 
 
@@ -57,6 +58,7 @@ def run_cell(study_path: str, out: str) -> dict:
     """
     from .runner import optimise_study
 
+    keep_freed_memory()
     t0 = time.perf_counter()
     with contextlib.redirect_stderr(io.StringIO()):  # per-generation progress lines
         status = optimise_study(study_path, out, overwrite=True, stream=io.StringIO())
