@@ -12,6 +12,7 @@ values of such elements are not to be used.
 """
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -166,7 +167,8 @@ class Result:
 
     pvt: name -> (n, k) arrays (names of PVT_METRICS plus limit_source, limit_sink, and
     vdd_min_what, an index into `requirement_names`); summary: name -> (n,);
-    converged: (n, k) bool; violations: per design, a list of readable strings.
+    converged: (n, k) bool; violations: per design, a list of readable strings (a sequence
+    that words a design's entry when it is first read).
     """
 
     architecture: str
@@ -177,7 +179,7 @@ class Result:
     summary: dict
     converged: np.ndarray
     requirement_names: tuple
-    violations: list = field(default_factory=list)
+    violations: Sequence = field(default_factory=list)
     margins: dict = field(default_factory=dict)
 
     def take(self, idx) -> "Result":
@@ -378,8 +380,8 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     chunk : int
         Elements (design x PVT pairs) processed at a time; bounds the memory.
     explain : bool
-        Word the violations of every design (the search, which needs only the margins,
-        turns this off).
+        Keep what is needed to word each design's violations when they are read (the
+        search, which needs only the margins, turns this off).
 
     Returns
     -------

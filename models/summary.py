@@ -5,8 +5,10 @@ Used by `models.evaluate`; pure numpy, no solving here.
 """
 from __future__ import annotations
 
-import numpy as np
+import operator
+from collections.abc import Sequence
 
+import numpy as np
 
 
 def supply_sensitivity(pvt, cond, corner, temp, vdd):
@@ -100,22 +102,48 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
         "vdd_min": lambda i, j: f"at {where(corner, temp, vdd, j)}: {req_names[pvt['vdd_min_what'][i, j]]} "
                                 f"by {pvt['vdd_min_v'][i, j] - vdd[j]:.3g} V (needs {pvt['vdd_min_v'][i, j]:.3g} V)",
     }
-    violations = [[] for _ in range(n)]
-    margins = {}
+    margins, worst = {}, {}
     for key, arr in m.items():
         arr = np.where(converged, np.nan_to_num(arr, nan=-1.0), inf)
-        worst = arr.argmin(axis=1)
-        margins[key] = arr[np.arange(n), worst]
-        for i in np.flatnonzero(margins[key] < 0) if explain else ():
-            violations[i].append(labels[key](i, worst[i]))
+        worst[key] = arr.argmin(axis=1)
+        margins[key] = arr[np.arange(n), worst[key]]
     margins["area"] = np.full(n, inf) if not np.isfinite(targets.area_max) else \
         (targets.area_max * 1e12 - summary["area_um2"]) / (targets.area_max * 1e12)
     if not explain:
-        return violations, margins
-    for i in np.flatnonzero(margins["area"] < 0):
-        violations[i].append(f"area {summary['area_um2'][i]:.4g} um^2 exceeds {targets.area_max * 1e12:.4g} um^2")
-    for i in np.flatnonzero(~converged.all(axis=1)):
-        bad = np.flatnonzero(~converged[i])
-        violations[i].insert(0, f"operating point did not converge at {len(bad)} of {k} PVT points "
-                                f"(first: {where(corner, temp, vdd, bad[0])})")
-    return violations, margins
+        return [], margins
+
+    def word(i):
+        out = [labels[key](i, worst[key][i]) for key in m if margins[key][i] < 0]
+        if margins["area"][i] < 0:
+            out.append(f"area {summary['area_um2'][i]:.4g} um^2 exceeds {targets.area_max * 1e12:.4g} um^2")
+        if not converged[i].all():
+            bad = np.flatnonzero(~converged[i])
+            out.insert(0, f"operating point did not converge at {len(bad)} of {k} PVT points "
+                          f"(first: {where(corner, temp, vdd, bad[0])})")
+        return out
+
+    return Violations(n, word), margins
+
+
+class Violations(Sequence):
+    """The worded violations of n designs, one list of strings per design, worded when a
+    design's entry is first read (a search population has thousands of violating designs
+    whose text nobody reads)."""
+
+    def __init__(self, n, word):
+        self._n, self._word, self._cache = n, word, {}
+
+    def __len__(self) -> int:
+        return self._n
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return [self[j] for j in range(*i.indices(self._n))]
+        i = operator.index(i)
+        if i < 0:
+            i += self._n
+        if not 0 <= i < self._n:
+            raise IndexError(f"design {i} of {self._n}")
+        if i not in self._cache:
+            self._cache[i] = self._word(i)
+        return self._cache[i]
