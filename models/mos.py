@@ -368,16 +368,22 @@ def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6,
     return vg
 
 
-def saturation_voltage(m: Mos, w, l, i):
+def saturation_voltage(m: Mos, w, l, i, slope=False):
     """Drain-source voltage magnitude at which the device leaves saturation [V].
 
     EKV: VDSsat = UT (2 sqrt(IC) + 4), from weak (4 UT, about 0.1 V) to strong inversion
-    (Enz, Krummenacher, Vittoz 1995). Square law: VGS - VT = sqrt(2 I / beta).
+    (Enz, Krummenacher, Vittoz 1995). Square law: VGS - VT = sqrt(2 I / beta). With
+    `slope`, also its derivative with respect to the current magnitude [V/A] (the current
+    floored at 1e-18 A there, so the slope stays finite).
     """
+    i_abs = np.abs(i)
     if m.kind is ModelKind.EKV:
-        return m.ut * (2.0 * np.sqrt(inversion_coefficient(m, w, l, i)) + 4.0)
+        ispec = specific_current(m, w, l)
+        v = m.ut * (2.0 * np.sqrt(i_abs / ispec) + 4.0)
+        return (v, m.ut / np.sqrt(np.maximum(i_abs, 1e-18) * ispec)) if slope else v
     beta = m.kp * np.asarray(w) / np.asarray(l)
-    return np.sqrt(2.0 * np.abs(i) / beta)
+    v = np.sqrt(2.0 * i_abs / beta)
+    return (v, 1.0 / np.sqrt(2.0 * np.maximum(i_abs, 1e-18) * beta)) if slope else v
 
 
 def gate_capacitance(mt: MosTech, w, l, ic):

@@ -314,6 +314,17 @@ def test_saturation_voltage_square_law_is_overdrive():
     assert mos.saturation_voltage(m, W, L, i) == pytest.approx(vg - 0.7, rel=1e-12)
 
 
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_saturation_voltage_slope_matches_central_difference(kind):
+    m = device(kind)
+    i = np.array([1e-9, 1e-7, 1e-5, 1e-3])
+    v, dv = mos.saturation_voltage(m, W, L, i, slope=True)
+    assert np.array_equal(v, mos.saturation_voltage(m, W, L, i))
+    h = 1e-5 * i
+    fd = (mos.saturation_voltage(m, W, L, i + h) - mos.saturation_voltage(m, W, L, i - h)) / (2 * h)
+    np.testing.assert_allclose(dv, fd, rtol=1e-7)  # central difference, truncation ~1e-10
+
+
 # ---------------------------------------------------------------------------------------
 # Shapes
 # ---------------------------------------------------------------------------------------

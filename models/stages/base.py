@@ -7,6 +7,7 @@ flattens and chunks.
 """
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -151,8 +152,10 @@ class Device:
         """Source voltage for frame current i in saturation with the gate at vg."""
         return _mos.source_voltage_sat(self.mos, self.w, self.l, i, vg, vb, vds, self.dvt, self.dbeta, self.tied)
 
-    def vdsat(self, i):
-        return _mos.saturation_voltage(self.mos, self.w, self.l, i)
+    def vdsat(self, i, slope=False):
+        """Saturation voltage at frame current i [V] (see `mos.saturation_voltage`), with
+        its derivative with respect to |i| when `slope`."""
+        return _mos.saturation_voltage(self.mos, self.w, self.l, i, slope)
 
 
 def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fhi=None):
@@ -523,6 +526,26 @@ def _subset(dev: Device, idx) -> Device:
     return Device(mos_sub, pick(dev.w), pick(dev.l), dev.tied, pick(dev.dvt), pick(dev.dbeta))
 
 
-def subset(devices: dict[str, Device], idx) -> dict[str, Device]:
-    """All devices restricted to the batch elements idx."""
-    return {role: _subset(dev, idx) for role, dev in devices.items()}
+class DeviceSubset(Mapping):
+    """Devices restricted to the batch elements idx, each cut out when first used (a
+    solver step usually needs only a few of the stage's devices)."""
+
+    def __init__(self, devices, idx):
+        self._devices, self._idx, self._cut = devices, idx, {}
+
+    def __getitem__(self, role: str) -> Device:
+        dev = self._cut.get(role)
+        if dev is None:
+            dev = self._cut[role] = _subset(self._devices[role], self._idx)
+        return dev
+
+    def __iter__(self):
+        return iter(self._devices)
+
+    def __len__(self) -> int:
+        return len(self._devices)
+
+
+def subset(devices, idx) -> DeviceSubset:
+    """All devices restricted to the batch elements idx (cut out on first use)."""
+    return DeviceSubset(devices, idx)

@@ -230,9 +230,7 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
         g_n, g_p = x
         s, s_gn, s_gp, i_nc, i_pc, pn, pp = _ctl_sum(d, nb2[idx], pb2[idx], g_n, g_p, vdd[idx], partials=True)
         i_a, (da_gn, da_gp) = (i_nc, pn) if direction > 0 else (i_pc, pp)
-        sat = d[role].vdsat(i_a)
-        i_pos = np.maximum(np.abs(i_a), 1e-18)
-        dsat = (d[role].vdsat(i_pos * (1.0 + 1e-6)) - d[role].vdsat(i_pos)) / (i_pos * 1e-6)  # d VDSsat / d i
+        sat, dsat = d[role].vdsat(i_a, slope=True)  # and d VDSsat / d|i|
         r = np.stack([s - bias["ib_ctl"][idx], (g_p - g_n) - sat])
         jac = np.empty((len(idx), 2, 2))
         jac[:, 0, 0], jac[:, 0, 1] = s_gn, s_gp
