@@ -7,6 +7,7 @@ flattens and chunks.
 """
 from __future__ import annotations
 
+import threading
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
@@ -158,6 +159,33 @@ class Device:
         return _mos.saturation_voltage(self.mos, self.w, self.l, i, slope)
 
 
+class _WorkingSet:
+    """The batch elements an iteration hands to its function: all of them, as a slice
+    (so that indexing copies nothing and device subsets are the devices themselves),
+    until fewer than half are still iterating; from then on only those, as an index
+    array. Finished elements inside the set are evaluated but never updated, so every
+    element's iterates are the same whatever its batch neighbours do."""
+
+    def __init__(self, live):
+        self.idx = slice(None)
+        self.live = live  # per element of idx: still iterating
+
+    def refresh(self) -> int:
+        """Drop finished elements once they are the majority; the live count."""
+        n = int(np.count_nonzero(self.live))
+        if 0 < n < 0.5 * self.live.size:
+            self.idx = np.flatnonzero(self.live) if isinstance(self.idx, slice) else self.idx[self.live]
+            self.live = np.ones(n, dtype=bool)
+        return n
+
+    def mark(self, flags, mask):
+        """Set flags (one per batch element) where mask (one per set element) holds."""
+        if isinstance(self.idx, slice):
+            flags |= mask
+        else:
+            flags[self.idx[mask]] = True
+
+
 def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fhi=None):
     """Vectorised safeguarded Newton inside a bracket (Newton steps that leave the bracket
     or shrink it too slowly are replaced by bisection).
@@ -165,7 +193,8 @@ def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fh
     Parameters
     ----------
     fun : callable
-        fun(x, idx) -> (f, df) for the elements `idx` (integer index array) at points x.
+        fun(x, idx) -> (f, df) for the elements `idx` (a slice or an integer index array
+        into the batch) at points x.
     lo, hi : ndarray, shape (m,)
         Bracket ends; f(lo) and f(hi) must differ in sign (or one be zero).
     x0 : ndarray, shape (m,), optional
@@ -183,9 +212,9 @@ def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fh
     lo = np.array(lo, dtype=float)
     hi = np.array(hi, dtype=float)
     m = lo.shape[0]
-    allidx = np.arange(m)
-    flo = fun(lo, allidx)[0] if flo is None else np.asarray(flo, dtype=float)
-    fhi = fun(hi, allidx)[0] if fhi is None else np.asarray(fhi, dtype=float)
+    with np.errstate(all="ignore"):
+        flo = fun(lo, slice(None))[0] if flo is None else np.asarray(flo, dtype=float)
+        fhi = fun(hi, slice(None))[0] if fhi is None else np.asarray(fhi, dtype=float)
     ok = (np.sign(flo) * np.sign(fhi)) <= 0
     # Orient so that f(lo) <= 0 <= f(hi).
     swap = flo > 0
@@ -194,25 +223,27 @@ def solve_bracketed(fun, lo, hi, x0=None, xtol=1e-10, max_iter=100, flo=None, fh
     done = ~ok | (flo == 0) | (fhi == 0)
     x = np.where(flo == 0, np.where(swap, hi, lo), x)
     x = np.where(fhi == 0, np.where(swap, lo, hi), x)
-    act = np.flatnonzero(~done)
+    ws = _WorkingSet(~done)
     for _ in range(max_iter):
-        if act.size == 0:
+        if ws.refresh() == 0:
             break
-        xa, la, ha = x[act], lo[act], hi[act]
-        f, df = fun(xa, act)
-        neg = f < 0
-        la = np.where(neg, xa, la)
-        ha = np.where(neg, ha, xa)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        live, idx = ws.live, ws.idx
+        xa, la, ha = x[idx], lo[idx], hi[idx]
+        with np.errstate(all="ignore"):
+            f, df = fun(xa, idx)
+            neg = f < 0
+            la = np.where(neg & live, xa, la)
+            ha = np.where(neg | ~live, ha, xa)
             xn = xa - f / df
         bad = ~np.isfinite(xn) | ((xn - la) * (xn - ha) > 0)
         xn = np.where(bad, 0.5 * (la + ha), xn)
-        xn = np.where(f == 0, xa, xn)  # an exact root stays where it is (flat stretches included)
+        xn = np.where((f == 0) | ~live, xa, xn)  # an exact root stays where it is (flat stretches included)
         conv = (np.abs(xn - xa) < xtol) | (f == 0) | (np.abs(ha - la) < xtol)
-        x[act], lo[act], hi[act] = xn, la, ha
-        act = act[~conv]
-    ok &= np.isin(np.arange(m), act, invert=True)
-    return x, ok
+        x[idx], lo[idx], hi[idx] = xn, la, ha
+        ws.live = live & ~conv
+    unfinished = np.zeros(m, dtype=bool)
+    ws.mark(unfinished, ws.live)
+    return x, ok & ~unfinished
 
 
 def newton(fun, x0, step_max=0.25, xtol=1e-8, max_iter=60):
@@ -221,8 +252,9 @@ def newton(fun, x0, step_max=0.25, xtol=1e-8, max_iter=60):
     Parameters
     ----------
     fun : callable
-        fun(x, idx) -> (r, jac): residuals (k, n_idx) and Jacobian (n_idx, k, k) for the
-        elements `idx` at points x of shape (k, n_idx).
+        fun(x, idx) -> (r, jac): residuals (k, n) and Jacobian (n, k, k) for the n
+        elements `idx` (a slice or an integer index array into the batch) at points x of
+        shape (k, n).
     x0 : ndarray, shape (k, m)
         Starting point.
     step_max : float
@@ -241,13 +273,14 @@ def newton(fun, x0, step_max=0.25, xtol=1e-8, max_iter=60):
     x = np.array(x0, dtype=float)
     m = x.shape[1]
     ok = np.zeros(m, dtype=bool)
-    act = np.arange(m)
+    ws = _WorkingSet(np.ones(m, dtype=bool))
     for _ in range(max_iter):
-        if act.size == 0:
+        if ws.refresh() == 0:
             break
-        xa = x[:, act]
-        r, jac = fun(xa, act)
+        live, idx = ws.live, ws.idx
+        xa = x[:, idx]
         with np.errstate(all="ignore"):
+            r, jac = fun(xa, idx)
             if x.shape[0] == 2:  # Cramer's rule: far cheaper than a batched LAPACK call
                 det = jac[:, 0, 0] * jac[:, 1, 1] - jac[:, 0, 1] * jac[:, 1, 0]
                 dx = -np.stack([(jac[:, 1, 1] * r[0] - jac[:, 0, 1] * r[1]) / det,
@@ -258,13 +291,13 @@ def newton(fun, x0, step_max=0.25, xtol=1e-8, max_iter=60):
                 except np.linalg.LinAlgError:
                     dx = np.full_like(xa, np.nan)
         finite = np.all(np.isfinite(dx), axis=0)
-        dx = np.where(finite, dx, 0.0)
+        dx = np.where(finite & live, dx, 0.0)
         big = np.max(np.abs(dx), axis=0)
         scale = np.where(big > step_max, step_max / np.maximum(big, 1e-300), 1.0)
-        x[:, act] = xa + dx * scale
-        conv = finite & (big < xtol)
-        ok[act[conv]] = True
-        act = act[finite & ~conv]
+        x[:, idx] = xa + dx * scale
+        conv = live & finite & (big < xtol)
+        ws.mark(ok, conv)
+        ws.live = live & finite & ~conv
     return x, ok
 
 
@@ -293,7 +326,7 @@ class NodalSystem:
         return len(self.index)
 
     def voltages(self, x, idx):
-        v = {"vdd": self.vdd[idx], "0": np.zeros(len(idx)), "out": 0.5 * self.vdd[idx]}
+        v = {"vdd": self.vdd[idx], "0": np.zeros(x.shape[1]), "out": 0.5 * self.vdd[idx]}
         for node, k in self.index.items():
             if node != "__drive__":
                 v[node] = x[k]
@@ -314,7 +347,7 @@ class NodalSystem:
         """Residuals r (k, n), the Jacobian as its structurally non-zero entries (dict
         (row, col) -> (n,)), and every device's evaluation at x (dict role -> (i, gg, gd,
         gs) as `Device.eval` gives them)."""
-        k, n = self.size, len(idx)
+        k, n = self.size, x.shape[1]
         v = self.voltages(x, idx)
         r = np.zeros((k, n))
         jac: dict[tuple[int, int], np.ndarray] = {}
@@ -363,7 +396,7 @@ class NodalSystem:
         """Damped Newton on the full system from x0 (k, m)."""
         def fun(x, idx):
             r, jac, _ = self.assemble(x, idx)
-            return r, dense(jac, self.size, len(idx))
+            return r, dense(jac, self.size, x.shape[1])
         return newton(fun, x0)
 
     def iq_sensitivity(self, x, out_role):
@@ -376,7 +409,7 @@ class NodalSystem:
         """
         m = x.shape[1]
         k = self.size
-        r, jac, evals = self.assemble(x, np.arange(m))
+        r, jac, evals = self.assemble(x, slice(None))
         spec = self.topo.spec(out_role)
         dev = self.devices[out_role]
         i, gg, gd, gs = evals[out_role]
@@ -513,10 +546,12 @@ def solve_structured(entries, rhs, k, m, rtol=1e-9):
 
 
 def _subset(dev: Device, idx) -> Device:
-    """The same device restricted to the batch elements idx."""
+    """The same device restricted to the batch elements idx (a slice or index array)."""
+    if isinstance(idx, slice) and idx == slice(None):
+        return dev
     if isinstance(idx, np.ndarray) and idx.size == np.size(dev.w) and idx.size and idx[-1] == idx.size - 1 \
             and idx[0] == 0:
-        return dev  # idx is the whole batch (active sets are sorted, so first/last fix it)
+        return dev  # idx is the whole batch (index sets are sorted, so first/last fix it)
     def pick(a):
         a = np.asarray(a)
         return a[idx] if a.ndim else a
@@ -546,6 +581,18 @@ class DeviceSubset(Mapping):
         return len(self._devices)
 
 
+_recent = threading.local()
+
+
 def subset(devices, idx) -> DeviceSubset:
-    """All devices restricted to the batch elements idx (cut out on first use)."""
-    return DeviceSubset(devices, idx)
+    """All devices restricted to the batch elements idx (cut out on first use).
+
+    An iteration hands the same index array to its function step after step; the last
+    subset of each thread is kept, so those steps share one set of cut-out devices.
+    """
+    last = getattr(_recent, "last", None)
+    if last is not None and last[0] is devices and last[1] is idx:
+        return last[2]
+    sub = DeviceSubset(devices, idx)
+    _recent.last = (devices, idx, sub)
+    return sub

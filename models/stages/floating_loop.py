@@ -114,7 +114,7 @@ def quiescent(devs, bias, vdd):
         i_p, gp_g, _, _ = d["mp_out"].eval(gp, out[idx], vdd[idx], vdd[idx])
         s, s_gn, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], gn, gp, vdd[idx])
         ib = bias["ib_ctl"][idx]
-        jac = np.empty((len(idx), 2, 2))
+        jac = np.empty((x.shape[1], 2, 2))
         if logs:
             i_n, i_p, s = np.maximum(i_n, 1e-300), np.maximum(i_p, 1e-300), np.maximum(s, 1e-300)
             r = np.stack([np.log(i_n / i_p), np.log(s / ib)])
@@ -232,7 +232,7 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
         i_a, (da_gn, da_gp) = (i_nc, pn) if direction > 0 else (i_pc, pp)
         sat, dsat = d[role].vdsat(i_a, slope=True)  # and d VDSsat / d|i|
         r = np.stack([s - bias["ib_ctl"][idx], (g_p - g_n) - sat])
-        jac = np.empty((len(idx), 2, 2))
+        jac = np.empty((x.shape[1], 2, 2))
         jac[:, 0, 0], jac[:, 0, 1] = s_gn, s_gp
         jac[:, 1, 0], jac[:, 1, 1] = -1.0 - dsat * da_gn, 1.0 - dsat * da_gp
         return r, jac
