@@ -212,12 +212,14 @@ def corner_shifts(tech: Tech, corner):
 def devices_at(stage, design: Design, tech: Tech, shifts, temp, idx_design, dvt=None, dbeta=None):
     """The Device dict for flat elements: design index idx_design, per-element corner
     shifts (see `corner_shifts`) and temperature [K]."""
-    devs = {}
+    devs, mos = {}, {}
     for spec in stage.TOPOLOGY.devices:
-        dv, kp = shifts[spec.polarity]
-        m = at_conditions(tech.mos(spec.polarity), spec.polarity, tech.model, temp, tech.tnom, dv, kp)
+        if spec.polarity not in mos:  # one set of constants per polarity, shared by its devices
+            dv, kp = shifts[spec.polarity]
+            mos[spec.polarity] = at_conditions(tech.mos(spec.polarity), spec.polarity, tech.model, temp, tech.tnom,
+                                               dv, kp)
         devs[spec.role] = Device(
-            m,
+            mos[spec.polarity],
             np.asarray(design.w[spec.role], dtype=float)[idx_design],
             np.asarray(design.l[spec.role], dtype=float)[idx_design],
             spec.role in design.tied,

@@ -125,11 +125,13 @@ def ekv_f_prime(x):
 
 
 def ekv_f_inverse(ic):
-    """Inverse of F: x = 2 ln(exp(sqrt(ic)) - 1), stable from ic = 1e-12 to 1e12."""
+    """Inverse of F: x = 2 ln(exp(sqrt(ic)) - 1), stable from ic = 1e-12 to 1e12.
+
+    Written as 2 (s + ln(1 - exp(-s))), s = sqrt(ic): expm1 keeps 1 - exp(-s) exact for
+    small s, and for large s the logarithm tends to 0 without overflow.
+    """
     s = np.sqrt(np.asarray(ic, dtype=float))
-    big = s > 20.0
-    small_s = np.where(big, 1.0, s)
-    return np.where(big, 2.0 * (s + np.log1p(-np.exp(-np.where(big, s, 20.0)))), 2.0 * np.log(np.expm1(small_s)))
+    return 2.0 * (s + np.log(-np.expm1(-s)))
 
 
 def specific_current(m: Mos, w, l, dbeta=0.0):
@@ -298,16 +300,20 @@ def gate_voltage_sat(m: Mos, w, l, i, vs, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0):
     """
     p = m.polarity
     vsb = p * (np.asarray(vs) - vb)
-    c = 1.0 + np.abs(vds) / early_voltage(m, l)
     if m.kind is ModelKind.EKV:
-        ic = i / (specific_current(m, w, l, dbeta) * c)
-        vp = vsb + m.ut * ekv_f_inverse(ic)
-        vgb = m.vt0 + dvt + m.n * vp
-    else:
-        vth, _ = _threshold(m, vsb, dvt)
-        beta = m.kp * (1.0 + dbeta) * np.asarray(w) / np.asarray(l)
-        vgb = vsb + vth + np.sqrt(2.0 * i / (beta * c))
-    return vb + p * vgb
+        return vb + p * ekv_gate_sat(m, vsb, i, vds, *ekv_constants(m, w, l, dvt, dbeta))
+    c = 1.0 + np.abs(vds) / early_voltage(m, l)
+    vth, _ = _threshold(m, vsb, dvt)
+    beta = m.kp * (1.0 + dbeta) * np.asarray(w) / np.asarray(l)
+    return vb + p * (vsb + vth + np.sqrt(2.0 * i / (beta * c)))
+
+
+def ekv_gate_sat(m: Mos, vsb, i, vds, vt, inv_n, half_inv_ut, ispec, inv_va):
+    """Bulk-referenced frame gate voltage VGB for frame current i in saturation (EKV,
+    reverse term neglected), from the constants of `ekv_constants`; vsb is the frame
+    source voltage and vds the drain-source magnitude of the length-modulation factor."""
+    ic = i / (ispec * (1.0 + np.abs(vds) * inv_va))
+    return vt + m.n * (vsb + m.ut * ekv_f_inverse(ic))
 
 
 def source_voltage_sat(m: Mos, w, l, i, vg, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0, tied=False):
@@ -336,23 +342,28 @@ def source_voltage_sat(m: Mos, w, l, i, vg, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0,
     return vb + p * (u * u - m.phi)
 
 
-def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6, partials=None):
+def diode_voltage(m: Mos, w, l, i, vs, vb=0.0, dvt=0.0, dbeta=0.0, iterations=6):
     """Gate (= drain) voltage of a diode-connected device carrying `i`, full model.
 
     The saturation closed form is the start; a few Newton steps on the complete model
     (reverse term and length modulation with VDS = VGS included) make it exact to
     rounding. Arguments and shapes as in `gate_voltage_sat`; returns the physical voltage.
-    `partials`, if given, stands in for the model: partials(vg) -> (frame current, its
-    derivatives with respect to the physical gate and drain voltages) with the drain on
-    the gate (a caller with precomputed constants passes its own).
     """
     p = m.polarity
     vg = gate_voltage_sat(m, w, l, i, vs, vb, 0.0, dvt, dbeta)
     vg = gate_voltage_sat(m, w, l, i, vs, vb, np.asarray(vg) - vs, dvt, dbeta)  # with VDS = VGS in the CLM factor
-    if partials is None:
-        def partials(v):
-            i_now, gg, gd, _ = current_partials(m, w, l, v, v, vs, vb, dvt, dbeta)
-            return i_now, p * gg, p * gd
+
+    def partials(v):
+        i_now, gg, gd, _ = current_partials(m, w, l, v, v, vs, vb, dvt, dbeta)
+        return i_now, p * gg, p * gd
+
+    return refine_diode(vg, i, partials, iterations)
+
+
+def refine_diode(vg, i, partials, iterations=6):
+    """Newton steps on a diode-connected device's gate (= drain) voltage vg until its
+    frame current is i. partials(vg) -> (frame current, its derivatives with respect to
+    the physical gate and drain voltages) with the drain on the gate."""
     done = np.zeros(np.shape(vg), dtype=bool)
     for _ in range(iterations):
         i_now, gg, gd = partials(vg)

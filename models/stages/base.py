@@ -142,11 +142,18 @@ class Device:
 
     def diode(self, i, vs, vb):
         """Gate = drain voltage of this device diode-connected, carrying frame current i."""
-        return _mos.diode_voltage(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, self.dvt, self.dbeta,
-                                  partials=lambda vg: self.eval(vg, vg, vs, vb)[:3])
+        if self.ekv is None:
+            return _mos.diode_voltage(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, self.dvt, self.dbeta)
+        vg = self.gate_for(i, vs, vb, 0.0)
+        vg = self.gate_for(i, vs, vb, vg - vs)  # with VDS = VGS in the length-modulation factor
+        return _mos.refine_diode(vg, i, lambda v: self.eval(v, v, vs, vb)[:3])
 
     def gate_for(self, i, vs, vb, vds):
         """Gate voltage for frame current i in saturation (closed form)."""
+        if self.ekv is not None:
+            vb_eff = vs if self.tied else vb
+            p = self.p
+            return vb_eff + p * _mos.ekv_gate_sat(self.mos, p * (vs - vb_eff), i, vds, *self.ekv)
         return _mos.gate_voltage_sat(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, vds, self.dvt, self.dbeta)
 
     def source_for(self, i, vg, vb, vds):
