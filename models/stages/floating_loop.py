@@ -93,11 +93,11 @@ def quiescent(devs, bias, vdd):
     nb1, nb2, pb1, pb2 = _stacks(devs, bias, vdd)
     dn, dp = devs["mn_out"], devs["mp_out"]
 
-    def s(role):
+    def aspect(role):
         return devs[role].w / devs[role].l
 
-    a_n = bias["ib_n"] ** 2 * s("mn_ctl") * s("mn_out") / (s("mn_d1") * s("mn_d2"))
-    a_p = bias["ib_p"] ** 2 * s("mp_ctl") * s("mp_out") / (s("mp_d1") * s("mp_d2"))
+    a_n = bias["ib_n"] ** 2 * aspect("mn_ctl") * aspect("mn_out") / (aspect("mn_d1") * aspect("mn_d2"))
+    a_p = bias["ib_p"] ** 2 * aspect("mp_ctl") * aspect("mp_out") / (aspect("mp_d1") * aspect("mp_d2"))
     iq0 = (a_n + a_p) / bias["ib_ctl"]
     gn0 = dn.gate_for(iq0, 0.0, 0.0, out)
     gp0 = dp.gate_for(iq0, vdd, vdd, out)
