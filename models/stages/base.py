@@ -352,12 +352,14 @@ class NodalSystem:
         return rows
 
     def assemble(self, x, idx):
-        """Residuals r (k, n), the Jacobian as its structurally non-zero entries (dict
-        (row, col) -> (n,)), and every device's evaluation at x (dict role -> (i, gg, gd,
-        gs) as `Device.eval` gives them)."""
+        """Residuals r (k, n); the scale of each equation (k, n), the sum of the
+        magnitudes of the currents it balances, to judge r against; the Jacobian as its
+        structurally non-zero entries (dict (row, col) -> (n,)); and every device's
+        evaluation at x (dict role -> (i, gg, gd, gs) as `Device.eval` gives them)."""
         k, n = self.size, x.shape[1]
         v = self.voltages(x, idx)
         r = np.zeros((k, n))
+        scale = np.zeros((k, n))
         jac: dict[tuple[int, int], np.ndarray] = {}
 
         def add(row, col, val):
@@ -372,6 +374,7 @@ class NodalSystem:
             terms = ((spec.g, p * gg), (spec.d, p * gd), (spec.s, p * gs))
             for row, sign in self._rows(spec):
                 r[row] += sign * current_in
+                scale[row] += np.abs(current_in)
                 for col_node, g in terms:
                     col = self.index.get(col_node)
                     if col is not None:
@@ -382,6 +385,7 @@ class NodalSystem:
                 row = self.index["__drive__"] if node == "out" else self.index.get(node)
                 if row is not None:
                     r[row] += sign * val
+                    scale[row] += np.abs(val)
         for res in self.topo.resistors:
             gval = 1.0 / self.bias[res.bias][idx]
             cur = (v[res.a] - v[res.b]) * gval
@@ -390,6 +394,7 @@ class NodalSystem:
                 if row is None:
                     continue
                 r[row] += sign * cur
+                scale[row] += np.abs(cur)
                 for col_node, g in ((res.a, gval), (res.b, -gval)):
                     col = self.index.get(col_node)
                     if col is not None:
@@ -398,12 +403,12 @@ class NodalSystem:
         drive_row = self.index[self.topo.drive]
         r[drive_row] += x[drive_col]
         add(drive_row, drive_col, np.ones(n))
-        return r, jac, evals
+        return r, scale, jac, evals
 
     def solve(self, x0):
         """Damped Newton on the full system from x0 (k, m)."""
         def fun(x, idx):
-            r, jac, _ = self.assemble(x, idx)
+            r, _, jac, _ = self.assemble(x, idx)
             return r, dense(jac, self.size, x.shape[1])
         return newton(fun, x0)
 
@@ -412,12 +417,12 @@ class NodalSystem:
         Jacobian at the solved point x (k, m). Iq is the frame current of `out_role`.
 
         Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,), the
-        residuals (k, m) at x, so the caller can check the point it passed, and the device
-        evaluations at x (as `assemble` gives them).
+        residuals (k, m) at x and their scales, so the caller can check the point it passed,
+        and the device evaluations at x (as `assemble` gives them).
         """
         m = x.shape[1]
         k = self.size
-        r, jac, evals = self.assemble(x, slice(None))
+        r, scale, jac, evals = self.assemble(x, slice(None))
         spec = self.topo.spec(out_role)
         dev = self.devices[out_role]
         i, gg, gd, gs = evals[out_role]
@@ -460,7 +465,7 @@ class NodalSystem:
                 s_vt = s_vt - dev.p * gg
                 s_beta = s_beta + i / (1.0 + dev.dbeta)
             out[role] = (np.where(singular, 0.0, s_vt), np.where(singular, 0.0, s_beta))
-        return out, r, evals
+        return out, (r, scale), evals
 
 
 def dense(entries, k, n):

@@ -101,10 +101,12 @@ def quiescent(devs, bias, vdd):
     iq0 = (a_n + a_p) / bias["ib_ctl"]
     gn0 = dn.gate_for(iq0, 0.0, 0.0, out)
     gp0 = dp.gate_for(iq0, vdd, vdd, out)
-    # With EKV every current is positive and its logarithm nearly linear in the gate
-    # voltages (exactly so in weak inversion), so Newton on the logarithms of both
-    # balances converges in a few steps where Newton on the currents crawls down the
-    # exponentials; the square law has cut-off (zero current) and keeps the plain form.
+    # With EKV the currents are positive near the answer and their logarithms nearly
+    # linear in the gate voltages (exactly so in weak inversion), so Newton on the
+    # logarithms of both balances converges in a few steps where Newton on the currents
+    # crawls down the exponentials. Both forms have the same root; an element whose
+    # currents are not all positive at an iterate (a control device driven backwards on
+    # the way, or any square-law device in cut-off) takes the plain step there.
     logs = dn.ekv is not None
 
     def fun(x, idx):
@@ -114,20 +116,22 @@ def quiescent(devs, bias, vdd):
         i_p, gp_g, _, _ = d["mp_out"].eval(gp, out[idx], vdd[idx], vdd[idx])
         s, s_gn, s_gp, _, _ = _ctl_sum(d, nb2[idx], pb2[idx], gn, gp, vdd[idx])
         ib = bias["ib_ctl"][idx]
+        r = np.stack([i_n - i_p, s - ib])
         jac = np.empty((x.shape[1], 2, 2))
+        jac[:, 0, 0], jac[:, 0, 1] = gn_g, -gp_g
+        jac[:, 1, 0], jac[:, 1, 1] = s_gn, s_gp
         if logs:
-            i_n, i_p, s = np.maximum(i_n, 1e-300), np.maximum(i_p, 1e-300), np.maximum(s, 1e-300)
-            r = np.stack([np.log(i_n / i_p), np.log(s / ib)])
-            jac[:, 0, 0], jac[:, 0, 1] = gn_g / i_n, -gp_g / i_p
-            jac[:, 1, 0], jac[:, 1, 1] = s_gn / s, s_gp / s
-        else:
-            r = np.stack([i_n - i_p, s - ib])
-            jac[:, 0, 0], jac[:, 0, 1] = gn_g, -gp_g
-            jac[:, 1, 0], jac[:, 1, 1] = s_gn, s_gp
+            pos = (i_n > 1e-300) & (i_p > 1e-300) & (s > 1e-300)
+            i_n, i_p, s = (np.where(pos, a, 1.0) for a in (i_n, i_p, s))
+            r = np.where(pos, np.stack([np.log(i_n / i_p), np.log(s / ib)]), r)
+            jac = np.where(pos[:, None, None], jac / np.stack([np.stack([i_n, i_p], -1), np.stack([s, s], -1)], 1),
+                           jac)
         return r, jac
 
     # Newton is quadratic here (the next step would be about step^2 per volt), so a last
-    # step below 1 uV leaves the gates within about 1e-12 V.
+    # step below 1 uV leaves the gates within about 1e-12 V. Where a current is far
+    # steeper than that (a control device in deep triode), the residual check of
+    # evaluate.rest_point finds the imbalance and the full nodal Newton finishes the job.
     x, ok = newton(fun, np.stack([gn0, gp0]), xtol=1e-6)
     gn, gp = x
     if not ok.all():
