@@ -116,3 +116,23 @@ def test_newton_answers_do_not_depend_on_batch_neighbours():
     for i in (0, 45, 59):
         xi, _ = newton(lambda x, idx: fun(x, np.array([i])), start[:, i:i + 1], xtol=1e-12)
         assert np.array_equal(xi[:, 0], x[:, i])
+
+
+def test_newton_keeps_solving_a_batch_with_a_singular_jacobian():
+    # Three unknowns (the dense LAPACK path): A x = b with A regular except for element 2,
+    # whose A is singular. LAPACK refuses a batch holding a singular matrix; the others
+    # must still converge, and element 2 must be reported, not solved.
+    m = 6
+    rng = np.random.default_rng(3)
+    a = rng.uniform(-1, 1, (m, 3, 3)) + 4 * np.eye(3)
+    a[2] = [[1, 2, 3], [2, 4, 6], [0, 1, 1]]
+    b = rng.normal(size=(3, m))
+
+    def fun(x, idx):
+        aa = a[idx]
+        return np.einsum("nij,jn->in", aa, x) - b[:, idx], aa
+
+    x, ok = newton(fun, np.zeros((3, m)))
+    assert ok.tolist() == [True, True, False, True, True, True]
+    for i in np.flatnonzero(ok):
+        np.testing.assert_allclose(x[:, i], np.linalg.solve(a[i], b[:, i]), rtol=1e-12)

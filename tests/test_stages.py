@@ -24,6 +24,7 @@ from models.evaluate import (
 from models.stages import floating_loop, get_stage
 from models.tech import Corner, ModelKind
 from optimise.study import load_design, load_study
+from optimise.techfile import load_tech
 
 from stage_helpers import (
     FLOAT_ROLES, NO_CLM, STACKED, T_TEST, device_currents, floating_sizes, gate_source, make_design, make_tech,
@@ -503,15 +504,21 @@ def kirchhoff_imbalance(stage, devs, bias, vdd, nodes):
             net[node] = net.get(node, 0.0) + sign * current
             flow[node] = flow.get(node, 0.0) + np.abs(current)
     checked = [n for n in net if n not in ("vdd", "0")]
-    return np.max([np.abs(net[n]) / np.maximum(flow[n], 1e-30) for n in checked], axis=0)
+    # Imbalances below 1e-18 A count as balanced: a stage in cut-off carries almost nothing.
+    return np.max([np.where(np.abs(net[n]) <= 1e-18, 0.0, np.abs(net[n]) / np.maximum(flow[n], 1e-30))
+                   for n in checked], axis=0)
 
 
+@pytest.mark.parametrize("model", ["ekv", "square-law"])
 @pytest.mark.parametrize("architecture", ["floating-loop", "fixed-bias", "follower"])
-def test_every_accepted_rest_point_balances_kirchhoff(demo, architecture):
+def test_every_accepted_rest_point_balances_kirchhoff(demo, architecture, model):
     # Sizes over three decades, lengths over 30x, bias currents over four decades, half the
     # floating loops with their stacked and control devices in their own wells: operating
     # points from deep weak inversion to strong, and control devices driven into deep triode.
+    # The square law runs on the Allen-Holberg level-1 technology, cut-off and kinks included.
     study, _ = demo
+    if model == "square-law":
+        study = dataclasses.replace(study, tech=load_tech(STUDIES / "tech" / "ah02-level1.toml"))
     stage = get_stage(architecture)
     rng = np.random.default_rng(11)
     n = 300
@@ -531,9 +538,10 @@ def test_every_accepted_rest_point_balances_kirchhoff(demo, architecture):
                           temp[idx_p], idx_d)
         b_flat = {key: v[idx_d] for key, v in bias.items()}
         nodes, ok, _, _ = rest_point(stage, devs, b_flat, vdd[idx_p])
-        # A wide population still solves almost everywhere (0.5 % of these points are
-        # reported as not converged, by the flags, never as numbers).
-        assert ok.mean() > 0.95
+        # A wide population still solves almost everywhere: with EKV 0.5 % of these points
+        # are reported as not converged (by the flags, never as numbers); with the square
+        # law, whose stages cut off entirely at low bias, 12 %.
+        assert ok.mean() > (0.95 if model == "ekv" else 0.85)
         # Kirchhoff to 1e-8 of the currents meeting at each node: the acceptance test of
         # rest_point is 1e-9 (its own assembly), this is an independent re-assembly.
         assert kirchhoff_imbalance(stage, devs, b_flat, vdd[idx_p], nodes)[ok].max() < 1e-8

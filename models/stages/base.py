@@ -166,6 +166,22 @@ class Device:
         return _mos.saturation_voltage(self.mos, self.w, self.l, i, slope)
 
 
+def _solve_each(jac, r):
+    """-jac^-1 r for a batch of dense systems, jac (n, k, k) and r (k, n); NaN columns
+    where a matrix is singular (LAPACK refuses the whole batch when one is)."""
+    try:
+        return -np.linalg.solve(jac, r.T[:, :, None])[:, :, 0].T
+    except np.linalg.LinAlgError:
+        sign, _ = np.linalg.slogdet(jac)
+        dx = np.full(r.shape, np.nan)
+        regular = sign != 0
+        try:
+            dx[:, regular] = -np.linalg.solve(jac[regular], r.T[regular][:, :, None])[:, :, 0].T
+        except np.linalg.LinAlgError:
+            pass
+        return dx
+
+
 class _WorkingSet:
     """The batch elements an iteration hands to its function: all of them, as a slice
     (so that indexing copies nothing and device subsets are the devices themselves),
@@ -294,10 +310,7 @@ def newton(fun, x0, step_max=0.25, xtol=1e-8, max_iter=60):
                 dx = -np.stack([(jac[:, 1, 1] * r[0] - jac[:, 0, 1] * r[1]) / det,
                                 (jac[:, 0, 0] * r[1] - jac[:, 1, 0] * r[0]) / det])
             else:
-                try:
-                    dx = -np.linalg.solve(jac, r.T[:, :, None])[:, :, 0].T
-                except np.linalg.LinAlgError:
-                    dx = np.full_like(xa, np.nan)
+                dx = _solve_each(jac, r)
         finite = np.all(np.isfinite(dx), axis=0)
         dx = np.where(finite & live, dx, 0.0)
         big = np.max(np.abs(dx), axis=0)

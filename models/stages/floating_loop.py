@@ -96,9 +96,13 @@ def quiescent(devs, bias, vdd):
     def aspect(role):
         return devs[role].w / devs[role].l
 
-    a_n = bias["ib_n"] ** 2 * aspect("mn_ctl") * aspect("mn_out") / (aspect("mn_d1") * aspect("mn_d2"))
-    a_p = bias["ib_p"] ** 2 * aspect("mp_ctl") * aspect("mp_out") / (aspect("mp_d1") * aspect("mp_d2"))
-    iq0 = (a_n + a_p) / bias["ib_ctl"]
+    logs = dn.ekv is not None
+    if logs:
+        a_n = bias["ib_n"] ** 2 * aspect("mn_ctl") * aspect("mn_out") / (aspect("mn_d1") * aspect("mn_d2"))
+        a_p = bias["ib_p"] ** 2 * aspect("mp_ctl") * aspect("mp_out") / (aspect("mp_d1") * aspect("mp_d2"))
+        iq0 = (a_n + a_p) / bias["ib_ctl"]
+    else:  # no weak inversion in the square law: the matched-density estimate, geometric mean of both loops
+        iq0 = np.sqrt(bias["ib_n"] * aspect("mn_out") / aspect("mn_d1") * bias["ib_p"] * aspect("mp_out") / aspect("mp_d1"))
     gn0 = dn.gate_for(iq0, 0.0, 0.0, out)
     gp0 = dp.gate_for(iq0, vdd, vdd, out)
     # With EKV the currents are positive near the answer and their logarithms nearly
@@ -106,8 +110,7 @@ def quiescent(devs, bias, vdd):
     # logarithms of both balances converges in a few steps where Newton on the currents
     # crawls down the exponentials. Both forms have the same root; an element whose
     # currents are not all positive at an iterate (a control device driven backwards on
-    # the way, or any square-law device in cut-off) takes the plain step there.
-    logs = dn.ekv is not None
+    # the way) takes the plain step there. The square law keeps the plain form throughout.
 
     def fun(x, idx):
         d = subset(devs, idx)
@@ -128,11 +131,13 @@ def quiescent(devs, bias, vdd):
                            jac)
         return r, jac
 
-    # Newton is quadratic here (the next step would be about step^2 per volt), so a last
-    # step below 1 uV leaves the gates within about 1e-12 V. Where a current is far
-    # steeper than that (a control device in deep triode), the residual check of
-    # evaluate.rest_point finds the imbalance and the full nodal Newton finishes the job.
-    x, ok = newton(fun, np.stack([gn0, gp0]), xtol=1e-6)
+    # With EKV, Newton is quadratic here (the next step would be about step^2 per volt),
+    # so a last step below 1 uV leaves the gates within about 1e-12 V. The square law has
+    # kinks (cut-off, the saturation edge) that spoil that, so it asks for steps below
+    # 10 nV. Where a current is far steeper than usual (a control device in deep triode),
+    # the residual check of evaluate.rest_point finds the imbalance and the full nodal
+    # Newton finishes the job.
+    x, ok = newton(fun, np.stack([gn0, gp0]), xtol=1e-6 if logs else 1e-8)
     gn, gp = x
     if not ok.all():
         bad = np.flatnonzero(~ok)
@@ -250,8 +255,11 @@ def driven(devs, bias, vdd, nodes, direction, drive, vcomp):
     else:
         gp0 = devs["mp_ctl"].source_for(ib_ctl, pb2, vdd, sat0)
         x0 = np.stack([gp0 - sat0, gp0])
-    # A last step below 10 uV leaves the gates within about 1e-9 V (quadratic convergence).
-    x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-5, max_iter=80)
+    # With EKV, a last step below 10 uV leaves the gates within about 1e-9 V (quadratic
+    # convergence). The square law has its saturation kink right at this edge, so Newton
+    # converges more slowly there: it asks for steps below 1 uV.
+    ekv = devs[role].ekv is not None
+    x, ok_edge = newton(fun, x0, step_max=0.2, xtol=1e-5 if ekv else 1e-6, max_iter=80)
     gn, gp = x[0].copy(), x[1].copy()
     v_edge = gp if driven_node == "gp" else gn
     # The edge comes first when the driven gate meets it before its compliance bound.
