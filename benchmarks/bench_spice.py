@@ -30,6 +30,7 @@ from models.tech import Corner
 from optimise import ngspice
 from optimise import testbench as tb
 from optimise import verify
+from optimise.runtime import keep_freed_memory
 from optimise.space import load_search
 from optimise.study import load_study
 
@@ -55,6 +56,7 @@ def main() -> None:
     ap.add_argument("--level1", action="store_true", help="level-1 cards from the technology instead of the card")
     ap.add_argument("--seed", type=int, default=0)
     args = ap.parse_args()
+    keep_freed_memory()  # as the stagefront command does
     tb.require_ngspice()
     study = load_study(ROOT / "studies" / "sensor-buffer-180.toml")
     vdd, temp = study.conditions.vdd_nom, study.conditions.temps[0]
