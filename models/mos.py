@@ -310,8 +310,9 @@ def gate_voltage_sat(m: Mos, w, l, i, vs, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0):
 
 def ekv_gate_sat(m: Mos, vsb, i, vds, vt, inv_n, half_inv_ut, ispec, inv_va):
     """Bulk-referenced frame gate voltage VGB for frame current i in saturation (EKV,
-    reverse term neglected), from the constants of `ekv_constants`; vsb is the frame
-    source voltage and vds the drain-source magnitude of the length-modulation factor."""
+    reverse term neglected), from the constants of `ekv_constants` (the slope factor and UT
+    themselves come from m); vsb is the frame source voltage and vds the drain-source
+    magnitude of the length-modulation factor."""
     ic = i / (ispec * (1.0 + np.abs(vds) * inv_va))
     return vt + m.n * (vsb + m.ut * ekv_f_inverse(ic))
 

@@ -110,7 +110,7 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
     margins["area"] = np.full(n, inf) if not np.isfinite(targets.area_max) else \
         (targets.area_max * 1e12 - summary["area_um2"]) / (targets.area_max * 1e12)
     if not explain:
-        return [], margins
+        return [[] for _ in range(n)], margins
 
     def word(i):
         out = [labels[key](i, worst[key][i]) for key in m if margins[key][i] < 0]

@@ -514,6 +514,8 @@ def solve_structured(entries, rhs, k, m, rtol=1e-9):
     ok : ndarray of bool (m,)
         False where a pivot vanished or the residual exceeds rtol of the row's scale.
     """
+    if m == 0:
+        return np.zeros((k, 0)), np.zeros(0, dtype=bool)
     a = dict(entries)
     b = {row: np.asarray(v, dtype=float) for row, v in rhs.items()}
     sample = slice(None, None, max(1, m // 256))
