@@ -82,10 +82,12 @@ def quiescent(devs, bias, vdd):
     """Operating point at rest, output held at VDD/2 with zero output current.
 
     Diode stacks are closed form; the two gate nodes follow from a damped Newton on
-    [i(MN_OUT) - i(MP_OUT), i(MN_CTL) + i(MP_CTL) - ib_ctl] (on their logarithms with EKV),
-    started from the weak-inversion estimate of the two product laws: each loop gives
+    [i(MN_OUT) - i(MP_OUT), i(MN_CTL) + i(MP_CTL) - ib_ctl] (on their logarithms with EKV).
+    EKV starts from the weak-inversion estimate of the two product laws: each loop gives
     i_ctl Iq = ib^2 S_ctl S_out / (S_d1 S_d2) (S = W/L), and the two control currents add up
-    to ib_ctl. A nested bracketed solve takes the stragglers.
+    to ib_ctl. The square law starts from the matched-density estimate
+    Iq = ib (W/L)_out / (W/L)_d1 (geometric mean of both loops). A nested bracketed solve
+    takes the stragglers.
 
     Returns (nodes, ok): node voltages (each shape (m,)) and the convergence flags.
     """
