@@ -353,16 +353,16 @@ class NodalSystem:
                 v[node] = x[k]
         return v
 
+    def _row(self, node):
+        """The equation of a node: its KCL for an internal node, the zero-output-current
+        equation (which takes the drive's row) for the output, None for a rail."""
+        return self.index["__drive__"] if node == "out" else self.index.get(node)
+
     def _rows(self, spec):
         """(row, sign) of the equations a device's drain current enters: it leaves the
-        drain node (-1) and enters the source node (+1); the output node's row is the
-        zero-output-current equation, which takes the drive's row."""
-        rows = []
-        for node, sign in ((spec.d, -1.0), (spec.s, 1.0)):
-            row = self.index["__drive__"] if node == "out" else self.index.get(node)
-            if row is not None and node != "__drive__":
-                rows.append((row, sign))
-        return rows
+        drain node (-1) and enters the source node (+1)."""
+        return [(self._row(node), sign) for node, sign in ((spec.d, -1.0), (spec.s, 1.0))
+                if self._row(node) is not None]
 
     def assemble(self, x, idx):
         """Residuals r (k, n); the scale of each equation (k, n), the sum of the
@@ -395,7 +395,7 @@ class NodalSystem:
         for src in self.topo.sources:
             val = self.bias[src.bias][idx]
             for node, sign in ((src.a, -1.0), (src.b, 1.0)):
-                row = self.index["__drive__"] if node == "out" else self.index.get(node)
+                row = self._row(node)
                 if row is not None:
                     r[row] += sign * val
                     scale[row] += np.abs(val)
@@ -403,7 +403,7 @@ class NodalSystem:
             gval = 1.0 / self.bias[res.bias][idx]
             cur = (v[res.a] - v[res.b]) * gval
             for node, sign in ((res.a, -1.0), (res.b, 1.0)):
-                row = self.index["__drive__"] if node == "out" else self.index.get(node)
+                row = self._row(node)
                 if row is None:
                     continue
                 r[row] += sign * cur
@@ -449,18 +449,15 @@ class NodalSystem:
         singular = np.zeros(m, dtype=bool)
         if not solved.all():
             # The stragglers go to LAPACK. A stage cut off entirely (every device off,
-            # Iq = 0) has a singular Jacobian and no sensitivity; the identity stands in
-            # there so the rest of the batch solves.
+            # Iq = 0) has a singular Jacobian and no sensitivity (zero).
             bad = np.flatnonzero(~solved)
             jt = np.swapaxes(dense({key: a[bad] for key, a in jac.items()}, k, bad.size), 1, 2)
-            g_bad = np.zeros((bad.size, k))
+            g_bad = np.zeros((k, bad.size))
             for col, g in grad.items():
-                g_bad[:, col] = g[bad]
-            sign, _ = np.linalg.slogdet(jt)
-            singular[bad] = sign == 0
-            jt = np.where((sign == 0)[:, None, None], np.eye(k), jt)
-            g_bad = np.where((sign == 0)[:, None], 0.0, g_bad)
-            lam[:, bad] = np.linalg.solve(jt, g_bad[:, :, None])[:, :, 0].T
+                g_bad[col] = g[bad]
+            lam_bad = _solve_each(jt, -g_bad)  # jt^-1 g, NaN where jt is singular
+            singular[bad] = ~np.all(np.isfinite(lam_bad), axis=0)
+            lam[:, bad] = np.where(singular[bad], 0.0, lam_bad)
         out = {}
         for spec_d in self.topo.devices:
             role = spec_d.role
