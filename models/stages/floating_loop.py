@@ -125,12 +125,13 @@ def quiescent(devs, bias, vdd):
         jac = np.empty((x.shape[1], 2, 2))
         jac[:, 0, 0], jac[:, 0, 1] = gn_g, -gp_g
         jac[:, 1, 0], jac[:, 1, 1] = s_gn, s_gp
-        if logs:
+        if logs:  # each row over its current where all are positive (over 1 elsewhere)
             pos = (i_n > 1e-300) & (i_p > 1e-300) & (s > 1e-300)
-            i_n, i_p, s = (np.where(pos, a, 1.0) for a in (i_n, i_p, s))
-            r = np.where(pos, np.stack([np.log(i_n / i_p), np.log(s / ib)]), r)
-            jac = np.where(pos[:, None, None], jac / np.stack([np.stack([i_n, i_p], -1), np.stack([s, s], -1)], 1),
-                           jac)
+            d_n, d_p, d_s = (np.where(pos, a, 1.0) for a in (i_n, i_p, s))
+            r = np.where(pos, np.stack([np.log(d_n / d_p), np.log(d_s / ib)]), r)
+            jac[:, 0, 0] /= d_n
+            jac[:, 0, 1] /= d_p
+            jac[:, 1] /= d_s[:, None]
         return r, jac
 
     # With EKV, Newton is quadratic here (the next step would be about step^2 per volt),
