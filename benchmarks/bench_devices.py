@@ -1,4 +1,4 @@
-"""Throughput of models.mos.current_partials over a population of 10^6 devices.
+"""Throughput of models.devices.mos.current_partials over a population of 10^6 devices.
 
 Run by hand (not a test): ``python benchmarks/bench_devices.py``. Prints devices per
 second for the EKV and the square-law equations, best of a few repeats, so the figure is
@@ -12,8 +12,8 @@ import time
 
 import numpy as np
 
-from models import mos
-from models.tech import ModelKind, MosTech, Polarity
+from models.devices import mos
+from models.devices.tech import ModelKind, MosTech, Polarity
 
 N_DEVICES = 1_000_000
 REPEATS = 5
@@ -33,7 +33,7 @@ def main() -> None:
     vg = rng.uniform(0.3, 3.0, N_DEVICES)  # V
     vd = rng.uniform(0.0, 3.0, N_DEVICES)  # V
     vs = rng.uniform(0.0, 0.5, N_DEVICES)  # V
-    print(f"models.mos.current_partials, {N_DEVICES:.0e} devices, best of {REPEATS}"
+    print(f"models.devices.mos.current_partials, {N_DEVICES:.0e} devices, best of {REPEATS}"
           f" (numpy {np.__version__}, Python {platform.python_version()}, {platform.machine()})")
     for kind in (ModelKind.EKV, ModelKind.SQUARE_LAW):
         m = mos.at_conditions(mt, Polarity.N, kind, 300.15, 300.15)

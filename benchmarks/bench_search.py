@@ -12,16 +12,15 @@ from __future__ import annotations
 
 import argparse
 import time
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
-from optimise.problem import StageProblem
-from optimise.runtime import keep_freed_memory
-from optimise.search import Progress, hypervolume, normaliser, run_search
-from optimise.space import load_search
-from optimise.study import load_study
+from optimise.files.space import load_search
+from optimise.files.study import load_study
+from optimise.search.nsga import Progress, hypervolume, normaliser, run_search
+from optimise.search.problem import StageProblem
+from optimise.search.runtime import keep_freed_memory
 
 ROOT = Path(__file__).resolve().parent.parent
 

@@ -3,7 +3,7 @@
 One ngspice design evaluation is what `stagefront verify` simulates per design and PVT
 point: the rest point (.op with the feedback emulation) and both drive-limit sweeps (driven
 gate at the model's limit, output swept from VDD/2 to the rail, 100 points each). It is
-timed two ways: one ngspice process per design, and `optimise.verify.BATCH` designs per
+timed two ways: one ngspice process per design, and `optimise.spice.verify.BATCH` designs per
 process (one deck, one .op and one .dc). stagefront's full evaluation is `models.evaluate`
 (rest point, mismatch sigma, both drive limits, headroom, peak currents, supply
 requirements, output pole) of the same designs at the same PVT point, timed on the designs
@@ -25,14 +25,13 @@ from pathlib import Path
 
 import numpy as np
 
+from models.devices.tech import Corner
 from models.evaluate import Conditions, Design, evaluate
-from models.tech import Corner
-from optimise import ngspice
-from optimise import testbench as tb
-from optimise import verify
-from optimise.runtime import keep_freed_memory
-from optimise.space import load_search
-from optimise.study import load_study
+from optimise.files.space import load_search
+from optimise.files.study import load_study
+from optimise.search.runtime import keep_freed_memory
+from optimise.spice import ngspice, verify
+from optimise.spice import testbench as tb
 
 ROOT = Path(__file__).resolve().parent.parent
 

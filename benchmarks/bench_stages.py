@@ -10,7 +10,7 @@ around the demo designs (log-uniform factors), so the solver sees varied operati
                                        [--glibc-default]
 
 Like the stagefront command, the benchmark asks glibc to keep freed memory for reuse
-(optimise.runtime); --glibc-default measures without that.
+(optimise.search.runtime); --glibc-default measures without that.
 """
 from __future__ import annotations
 
@@ -22,11 +22,11 @@ from pathlib import Path
 
 import numpy as np
 
-from models.constants import ZERO_CELSIUS
+from models.devices.constants import ZERO_CELSIUS
+from models.devices.tech import Corner
 from models.evaluate import Conditions, Design, evaluate
-from models.tech import Corner
-from optimise.runtime import keep_freed_memory
-from optimise.study import load_design, load_study
+from optimise.files.study import load_design, load_study
+from optimise.search.runtime import keep_freed_memory
 
 ROOT = Path(__file__).resolve().parent.parent
 

@@ -1,4 +1,9 @@
-"""stagefront's edges: study files, search, export, plots, SPICE hand-off, command line."""
+"""stagefront's edges, by user action, lowest floor first: `files` (reading what people hand
+in), `search` (NSGA-II and run folders), `review` (pick, compare, Monte Carlo), `report`,
+`spice` (the SPICE hand-off), `sweep` (Dask), and `cli.py` on top.
+
+This module holds constants only and imports nothing, so every folder may import it.
+"""
 
 __version__ = "0.1.0"
 

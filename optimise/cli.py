@@ -7,19 +7,17 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
 
-from models.constants import ZERO_CELSIUS
-from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result, evaluate
+from models.evaluate import evaluate
 
 from . import CAUTION
-from .errors import InputError
-from .montecarlo import confirm_sigma
-from .runtime import keep_freed_memory
-from .study import load_design, load_study
-from .units import format_eng
-
+from .files.errors import InputError
+from .files.study import load_design, load_study
+from .files.units import format_eng
+from .review.evaluation import result_to_dict
+from .review.montecarlo import confirm_sigma
+from .search.runtime import keep_freed_memory
 
 SUMMARY_UNITS = {
     "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",
@@ -44,33 +42,6 @@ SUMMARY_MEANING = {
     "fp2_hz": "lowest output pole gm_out / (2 pi C_load)",
     "c_drive_f": "gate capacitance the stage loads its driver with",
 }
-
-
-def _finite(x):
-    """JSON-safe number: finite floats as they are, anything else as null."""
-    x = float(x)
-    return x if math.isfinite(x) else None
-
-
-def result_to_dict(res: Result, i: int = 0) -> dict:
-    """The evaluate JSON object of design i (DESIGN contract keys)."""
-    pvt = []
-    for j in range(len(res.vdd)):
-        row = {"corner": res.corners[j].value, "temp_c": round(float(res.temps[j]) - ZERO_CELSIUS, 6),
-               "vdd_v": float(res.vdd[j]), "converged": bool(res.converged[i, j])}
-        for name in PVT_METRICS:
-            row[name] = _finite(res.pvt[name][i, j])
-        row["limit_source"] = LIMIT_NAMES[int(res.pvt["limit_source"][i, j])]
-        row["limit_sink"] = LIMIT_NAMES[int(res.pvt["limit_sink"][i, j])]
-        row["vdd_min_set_by"] = res.requirement_names[int(res.pvt["vdd_min_what"][i, j])]
-        pvt.append(row)
-    return {
-        "architecture": res.architecture,
-        "feasible": bool(res.feasible[i]),
-        "violations": list(res.violations[i]),
-        "summary": {name: _finite(v[i]) for name, v in res.summary.items()},
-        "pvt": pvt,
-    }
 
 
 def _print_table(out: dict, mc: dict | None) -> None:
@@ -129,32 +100,32 @@ def cmd_evaluate(args) -> int:
 
 
 def cmd_optimise(args) -> int:
-    from .runner import optimise_study
+    from .search.runner import optimise_study
 
     return optimise_study(args.study, args.out, args.seed, args.population, args.generations, args.resume,
                           args.overwrite)
 
 
 def cmd_compare(args) -> int:
-    from .compare import compare_runs
+    from .review.compare_render import compare_runs
 
     return compare_runs(args.runs, args.out, args.overwrite)
 
 
 def cmd_pick(args) -> int:
-    from .pick import pick_designs
+    from .review.pick import pick_designs
 
     return pick_designs(args.run, args.where, args.by, args.count, args.format)
 
 
 def cmd_sweep(args) -> int:
-    from .sweep import run_sweep
+    from .sweep.runner import run_sweep
 
     return run_sweep(args.grid, args.out, args.scheduler, args.workers, args.overwrite, args.montecarlo)
 
 
 def cmd_report(args) -> int:
-    from .report import write_report
+    from .report.build import write_report
 
     return write_report(args.run, args.out, args.count)
 
@@ -162,7 +133,7 @@ def cmd_report(args) -> int:
 # --- SPICE hand-off: netlist, verify, calibrate -----------------------------------------
 def _ngspice_guard(run):
     """Run a hand-off command; ngspice failures print its message and give exit status 1."""
-    from .ngspice import NgspiceError
+    from .spice.ngspice import NgspiceError
 
     try:
         return run()
@@ -172,20 +143,20 @@ def _ngspice_guard(run):
 
 
 def cmd_netlist(args) -> int:
-    from .handoff import write_netlist
+    from .spice.deck import write_netlist
 
     return _ngspice_guard(lambda: write_netlist(args.run, args.row, args.models, args.nmos, args.pmos, args.out,
                                                 args.corner))
 
 
 def cmd_verify(args) -> int:
-    from .verify import verify_run
+    from .spice.verify import verify_run
 
     return _ngspice_guard(lambda: verify_run(args.run, args.rows, args.all, args.models, args.nmos, args.pmos))
 
 
 def cmd_calibrate(args) -> int:
-    from .calibrate import calibrate_command
+    from .spice.calibrate import calibrate_command
 
     return _ngspice_guard(lambda: calibrate_command(args))
 

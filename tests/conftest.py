@@ -6,7 +6,7 @@ When what a marker needs is absent its tests are skipped, unless the marker's en
 variable is set to 1 (CI sets both): then each of them fails, so a missing program can never
 pass as a green run.
 
-- ngspice: found by `optimise.ngspice.find_executable` (PATH, or STAGEFRONT_NGSPICE);
+- ngspice: found by `optimise.spice.ngspice.find_executable` (PATH, or STAGEFRONT_NGSPICE);
   STAGEFRONT_REQUIRE_NGSPICE=1 makes its absence a failure.
 - browser: Chromium from STAGEFRONT_CHROMIUM or `chromium` / `chromium-browser` on PATH,
   the driver from STAGEFRONT_CHROMEDRIVER or `chromedriver` on PATH (Debian packages
@@ -21,7 +21,7 @@ import shutil
 
 import pytest
 
-from optimise import ngspice
+from optimise.spice import ngspice
 
 REQUIRE_ENV = "STAGEFRONT_REQUIRE_NGSPICE"
 BROWSER_REQUIRE_ENV = "STAGEFRONT_REQUIRE_BROWSER"

@@ -10,9 +10,9 @@ import math
 
 import numpy as np
 
-from models.evaluate import Design, devices_at, corner_shifts
+from models.devices.tech import Corner, ModelKind, MosTech, Tech
+from models.evaluate import Design, corner_shifts, devices_at
 from models.stages import get_stage
-from models.tech import Corner, ModelKind, MosTech, Tech
 
 UM = 1e-6
 T_TEST = 300.0  # K, temperature of every solve here (the techs below hold at it: tnom = T_TEST)

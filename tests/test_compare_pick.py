@@ -15,8 +15,8 @@ import pandas as pd
 import pytest
 
 from optimise.cli import main
-from optimise.compare import compare_runs
-from optimise.pick import knee_distance
+from optimise.review.compare_render import compare_runs
+from optimise.review.pick import knee_distance
 
 ROOT = Path(__file__).resolve().parent.parent
 STUDY = ROOT / "studies" / "sensor-buffer.toml"
@@ -120,7 +120,7 @@ def test_knee_pick_is_a_non_dominated_front_member(capsys, run):
     top = picked(out)["id"].iloc[0]
     assert top in front.index
     assert bool(front.loc[top, "overall_front"])
-    # the knee as defined in optimise.pick.knee_distance, recomputed here by hand:
+    # the knee as defined in optimise.review.pick.knee_distance, recomputed here by hand:
     # objectives as minimised, scaled to the front's own [min, max], smallest largest coordinate
     run_json = json.loads((run / "run.json").read_text())
     F = np.stack([(-1 if s == "max" else 1) * np.abs(front[n].to_numpy()) if n == "supply_sens_pct_per_v"

@@ -1,4 +1,4 @@
-"""Pelgrom area law of models.mismatch: hand values and Monte Carlo.
+"""Pelgrom area law of models.devices.mismatch: hand values and Monte Carlo.
 
 Reference keys as in /work/shared/CHECK-VALUES.md, section 8: [Pel89] is Pelgrom,
 Duinmaijer, Welbers, IEEE JSSC 24(5), 1989.
@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models import mismatch
+from models.devices import mismatch
 
 UM = 1e-6
 A_VT = 5e-3 * UM  # V*m, 5 mV*um

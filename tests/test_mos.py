@@ -1,4 +1,4 @@
-"""Device equations of models.mos against published values, hand calculations and themselves.
+"""Device equations of models.devices.mos against published values, hand calculations and themselves.
 
 Reference keys ([AH02], [EKV95], ...) are those of /work/shared/CHECK-VALUES.md, section 8.
 Only rows with status S (seen in the source) or D (derived by arithmetic) are asserted as
@@ -11,9 +11,9 @@ import math
 import numpy as np
 import pytest
 
-from models import mos
-from models.constants import thermal_voltage
-from models.tech import ModelKind, MosTech, Polarity
+from models.devices import mos
+from models.devices.constants import thermal_voltage
+from models.devices.tech import ModelKind, MosTech, Polarity
 
 EKV = ModelKind.EKV
 SQ = ModelKind.SQUARE_LAW

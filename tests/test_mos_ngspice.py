@@ -1,11 +1,11 @@
-"""The square law of models.mos against ngspice running SPICE level 1 with the same constants.
+"""The square law of models.devices.mos against ngspice running SPICE level 1 with the same constants.
 
 Every bias point is its own device with its own four voltage sources, so one ngspice
 process per polarity evaluates them all at one operating point; no node is solved for,
 and the comparison sees the device equations only. Process constants: [AH02] Table 3.1-2
 (CHECK-VALUES.md sec. 4, S). Simulator settings follow DESIGN.md sec. 7.
 
-What ngspice adds that models.mos does not: default bulk junctions (IS = 1e-14 A) with
+What ngspice adds that models.devices.mos does not: default bulk junctions (IS = 1e-14 A) with
 GMIN = 1e-12 S across them, so a few pA flow through a reverse-biased drain junction.
 The smallest channel current below is about 50 nA, so that is under 1e-4 of it.
 """
@@ -16,10 +16,10 @@ import math
 import numpy as np
 import pytest
 
-from models import mos
-from models.constants import ZERO_CELSIUS
-from models.tech import ModelKind, MosTech, Polarity
-from optimise import ngspice
+from models.devices import mos
+from models.devices.constants import ZERO_CELSIUS
+from models.devices.tech import ModelKind, MosTech, Polarity
+from optimise.spice import ngspice
 
 pytestmark = pytest.mark.ngspice
 

@@ -1,4 +1,4 @@
-"""optimise.ngspice: rawfile parsing, executable lookup, error reporting, model cards, and
+"""optimise.spice.ngspice: rawfile parsing, executable lookup, error reporting, model cards, and
 the ngspice marker policy of tests/conftest.py.
 
 Tests without the `ngspice` marker use synthetic rawfiles or a stand-in shell script, so
@@ -17,9 +17,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from models.mos import at_conditions
-from models.tech import ModelKind, MosTech, Polarity
-from optimise import ngspice
+from models.devices.mos import at_conditions
+from models.devices.tech import ModelKind, MosTech, Polarity
+from optimise.spice import ngspice
 
 CONFTEST = Path(__file__).with_name("conftest.py")
 posix_only = pytest.mark.skipif(os.name != "posix", reason="stand-in executable is a shell script")

@@ -11,14 +11,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from models.constants import ZERO_CELSIUS
+from models.devices.constants import ZERO_CELSIUS
 from models.evaluate import evaluate
 from optimise.cli import main
-from optimise.errors import InputError
-from optimise.export import design_from_row, read_front
-from optimise.pick import rank
-from optimise.report import CAUTION, CLOSE, SECTIONS, TIGHT, write_report
-from optimise.study import load_study
+from optimise.files.errors import InputError
+from optimise.files.study import load_study
+from optimise.report.build import CAUTION, CLOSE, SECTIONS, TIGHT, write_report
+from optimise.review.pick import rank
+from optimise.search.export import design_from_row, read_front
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "studies" / "sensor-buffer.toml"

@@ -7,9 +7,9 @@ given). Needs no network: the page has no outside resource and background networ
 from __future__ import annotations
 
 import pytest
-
-from optimise.report import write_report
 from test_report import make_run
+
+from optimise.report.build import write_report
 
 pytestmark = pytest.mark.browser
 

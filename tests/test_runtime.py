@@ -1,4 +1,4 @@
-"""optimise.runtime.keep_freed_memory: with it, a repeated evaluation reuses freed heap
+"""optimise.search.runtime.keep_freed_memory: with it, a repeated evaluation reuses freed heap
 memory instead of faulting fresh pages in (glibc's default trims the heap and maps large
 blocks anew; see the module notes). Each case runs in a fresh interpreter, since the
 setting is process-wide and cannot be undone."""
@@ -15,11 +15,11 @@ REPO = Path(__file__).resolve().parents[1]
 PROBE = """
 import resource, sys
 import numpy as np
-from optimise.runtime import keep_freed_memory
+from optimise.search.runtime import keep_freed_memory
 if sys.argv[1] == "keep":
     assert keep_freed_memory() and keep_freed_memory()  # idempotent
 from models.evaluate import Design, evaluate
-from optimise.study import load_design, load_study
+from optimise.files.study import load_design, load_study
 study = load_study("studies/sensor-buffer.toml")
 base = load_design("studies/sensor-buffer-floating-loop.toml", study.tech)
 n = 400

@@ -12,13 +12,13 @@ import pytest
 from pymoo.problems import get_problem
 
 from models.evaluate import evaluate
-from optimise import search
 from optimise.cli import main
-from optimise.export import design_from_row, read_front, write_front
-from optimise.runner import optimise_study
-from optimise.search import Progress, hypervolume, non_dominated, run_search
-from optimise.space import load_search
-from optimise.study import load_study
+from optimise.files.space import load_search
+from optimise.files.study import load_study
+from optimise.search import nsga as search
+from optimise.search.export import design_from_row, read_front, write_front
+from optimise.search.nsga import Progress, hypervolume, non_dominated, run_search
+from optimise.search.runner import optimise_study
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "studies" / "sensor-buffer.toml"

@@ -1,12 +1,12 @@
-"""The batch solvers of models.stages.base against numpy's LAPACK solve and closed forms:
+"""The batch solvers of models.numerics against numpy's LAPACK solve and closed forms:
 sparse elimination over a batch (solve_structured), and the working set of the Newton and
 bracketed solvers (finished elements leave the set without changing anyone's answer)."""
 from __future__ import annotations
 
 import numpy as np
-import pytest
 
-from models.stages.base import dense, newton, solve_bracketed, solve_structured
+from models.numerics.linear import dense, solve_structured
+from models.numerics.roots import newton, solve_bracketed
 
 # The structure of the floating loop's Kirchhoff Jacobian, transposed (the adjoint solves
 # with it): 7 unknowns, 19 structural non-zeros, and a zero where natural-order elimination

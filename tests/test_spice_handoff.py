@@ -25,11 +25,11 @@ import numpy as np
 import pytest
 
 from models.stages import get_stage
-from optimise import ngspice
-from optimise import testbench as tb
 from optimise.cli import main
-from optimise.export import read_front
-from optimise.techfile import load_tech
+from optimise.files.techfile import load_tech
+from optimise.search.export import read_front
+from optimise.spice import ngspice
+from optimise.spice import testbench as tb
 
 ROOT = Path(__file__).resolve().parent.parent
 AH02 = ROOT / "studies" / "tech" / "ah02-level1.toml"

@@ -16,20 +16,36 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from stage_helpers import (
+    FLOAT_ROLES,
+    NO_CLM,
+    STACKED,
+    T_TEST,
+    device_currents,
+    floating_sizes,
+    gate_source,
+    make_design,
+    make_tech,
+    mos_tech,
+    solve_rest,
+    w_over_l,
+)
 
-from models import mos
+from models.devices import mos
+from models.devices.tech import Corner, ModelKind
 from models.evaluate import (
-    Conditions, Design, Targets, corner_shifts, devices_at, evaluate, monte_carlo_iq, rest_point,
+    Conditions,
+    Design,
+    Targets,
+    corner_shifts,
+    devices_at,
+    evaluate,
+    monte_carlo_iq,
+    rest_point,
 )
 from models.stages import floating_loop, get_stage
-from models.tech import Corner, ModelKind
-from optimise.study import load_design, load_study
-from optimise.techfile import load_tech
-
-from stage_helpers import (
-    FLOAT_ROLES, NO_CLM, STACKED, T_TEST, device_currents, floating_sizes, gate_source, make_design, make_tech,
-    mos_tech, solve_rest, w_over_l,
-)
+from optimise.files.study import load_design, load_study
+from optimise.files.techfile import load_tech
 
 EKV = ModelKind.EKV
 SQ = ModelKind.SQUARE_LAW
@@ -375,7 +391,7 @@ def test_class_ab_ratio_weak_inversion_is_one_half():
 
 def test_class_ab_ratio_weak_inversion_at_the_control_saturation_edge():
     # vcomp tiny: the drive now stops where MN_CTL leaves saturation, VDS = VDSsat = 4 UT in weak
-    # inversion ([EKV95] VDSsat/UT = 2 sqrt(IC) + 4, as models.mos uses it).
+    # inversion ([EKV95] VDSsat/UT = 2 sqrt(IC) + 4, as models.devices.ekv uses it).
     ratio, limit, at_limit, _ = _driven_ratio(EKV, WI_AB, IB_WI, VDD_AB_WI, vcomp=1e-3)
     assert limit == 1  # control-device saturation edge
     assert at_limit["mp_ctl"][0] < 1e-20 * IB_WI  # the other control device is off

@@ -1,7 +1,7 @@
 """Rest-point Iq of every architecture: stagefront's square-law solve against ngspice.
 
-Both sides run the same equations: models.mos's square law is SPICE level 1 with LD = 0,
-and optimise.spice writes one level-1 card per device from the same technology, with no
+Both sides run the same equations: models.devices.mos's square law is SPICE level 1 with LD = 0,
+and optimise.spice.netlist writes one level-1 card per device from the same technology, with no
 temperature scaling left to ngspice (DESIGN.md sec. 6 and 7). The netlists come from each
 architecture's TOPOLOGY, so the check covers the netlist writer as well as the solver.
 
@@ -23,12 +23,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from models.constants import ZERO_CELSIUS
+from models.devices.constants import ZERO_CELSIUS
+from models.devices.tech import Corner, ModelKind
 from models.evaluate import Conditions, Design, Targets, evaluate
 from models.stages import get_stage
-from models.tech import Corner, ModelKind
-from optimise import spice
-from optimise.techfile import load_tech
+from optimise.files.techfile import load_tech
+from optimise.spice import netlist as spice
 
 TECH = load_tech(Path(__file__).resolve().parents[1] / "studies" / "tech" / "ah02-level1.toml")
 VDD = 5.0  # V
@@ -39,7 +39,7 @@ TARGETS = Targets(i_load=100e-6, c_load=10e-12)
 # DESIGN.md sec. 6: Iq within 1 % of ngspice. The equations are the same on both sides, so
 # the residual is the simulator's own (reltol 1e-7) and the junction leakage below; the
 # largest difference seen over these designs is about 1e-5 (the follower's output sits
-# tens of microvolts from VDD/2, see optimise.spice), a thousand times under the bound.
+# tens of microvolts from VDD/2, see optimise.spice.netlist), a thousand times under the bound.
 RTOL = 0.01
 # A cut-off pair still carries the drain-junction leakage ngspice adds: IS + GMIN |VDB| =
 # 1e-14 A + 1e-12 S * 2.5 V, about 2.5 pA. 100 pA bounds it with margin and is still 1e-4

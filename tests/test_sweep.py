@@ -15,12 +15,12 @@ import pandas as pd
 import pytest
 
 from optimise.cli import main
-from optimise.errors import InputError
-from optimise.export import read_front
-from optimise.grid import dumps, load_grid
-from optimise.runner import optimise_study
-from optimise.study import load_study
-from optimise.sweep import montecarlo_on_cluster, montecarlo_task, run_sweep
+from optimise.files.errors import InputError
+from optimise.files.study import load_study
+from optimise.search.export import read_front
+from optimise.search.runner import optimise_study
+from optimise.sweep.grid import dumps, load_grid
+from optimise.sweep.runner import montecarlo_on_cluster, montecarlo_task, run_sweep
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO = ROOT / "studies" / "sensor-buffer.toml"

@@ -9,11 +9,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from models.constants import T_NOMINAL
-from models.mos import at_conditions, current
-from models.tech import Corner, CornerShift, ModelKind, MosTech, Polarity, Tech
-from optimise.errors import InputError
-from optimise.techfile import MOS_UNITS, load_tech, tech_from_dict
+from models.devices.constants import T_NOMINAL
+from models.devices.mos import at_conditions, current
+from models.devices.tech import Corner, CornerShift, ModelKind, MosTech, Polarity, Tech
+from optimise.files.errors import InputError
+from optimise.files.techfile import MOS_UNITS, load_tech, tech_from_dict
 
 TECH_DIR = Path(__file__).resolve().parents[1] / "studies" / "tech"
 SHIPPED = ("demo180-invented", "demo350-invented", "ah02-level1")

@@ -3,7 +3,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from optimise.units import format_eng, parse_quantity
+from optimise.files.units import format_eng, parse_quantity
 
 
 def test_numbers_pass_through_as_float():

@@ -1,4 +1,5 @@
 """Output-stage architectures: one module each, behind one explicit registry.
+Imports `models.circuit`, `models.devices` and `models.numerics`; imported by `models.evaluate`.
 
 Every architecture module exposes the same names: NAME, ROLES, BIAS (bias name -> unit),
 PULL_DOWN and PULL_UP (output roles to ground and to the supply), TOPOLOGY, and the functions

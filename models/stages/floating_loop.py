@@ -24,8 +24,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..tech import Polarity
-from .base import DeviceSpec, SourceSpec, Topology, newton, solve_bracketed, subset
+from ..circuit.topology import DeviceSpec, SourceSpec, Topology
+from ..devices.device import subset
+from ..devices.tech import Polarity
+from ..numerics.roots import newton, solve_bracketed
 from .common_source import gates, gm_output, output  # noqa: F401 (the stage interface)
 
 NAME = "floating-loop"

@@ -15,8 +15,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..tech import Polarity
-from .base import DeviceSpec, SourceSpec, Topology, solve_bracketed, subset
+from ..circuit.topology import DeviceSpec, SourceSpec, Topology
+from ..devices.device import subset
+from ..devices.tech import Polarity
+from ..numerics.roots import solve_bracketed
 
 NAME = "follower"
 ROLES = ("mn_f", "mp_f", "mn_b", "mp_b")

@@ -1,0 +1,218 @@
+"""Study and design files: TOML in, checked model objects out.
+
+A study names the technology, the supply range, temperatures and corners, the load, the
+driver and the targets; a design file gives one candidate's sizes and bias. Every problem
+is an InputError naming the file, the key, the value and what is allowed.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from models.devices.constants import ZERO_CELSIUS
+from models.devices.tech import Corner, Tech
+from models.evaluate import Conditions, Design, Targets
+from models.stages import STAGES, get_stage
+
+from .errors import InputError
+from .tables import build, check_keys, closest, number, read_toml, show, sub_table
+from .techfile import load_tech
+
+STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
+              "driver", "targets", "objectives", "bounds", "ties", "search")
+SUPPLY_KEYS = ("nominal", "min", "max")
+CONDITION_KEYS = ("temperatures_c", "corners")
+LOAD_KEYS = ("current", "capacitance")
+DRIVER_KEYS = ("compliance", "drive")
+TARGET_UNITS = {"iq_min": "A", "iq_max": "A", "iq_sigmas": "", "headroom_max": "V", "ab_min": "",
+                "area_max_um2": "", "fp2_min": "Hz", "layout_factor": ""}
+
+
+@dataclass(frozen=True)
+class Study:
+    """A checked study: where it came from, its technology and the evaluation settings."""
+
+    path: Path
+    name: str
+    tech: Tech
+    tech_path: Path
+    conditions: Conditions
+    targets: Targets
+    architectures: tuple[str, ...]
+    seed: int
+    raw: dict = field(repr=False, default_factory=dict)
+
+
+def _list(where, table, key, value, kind=str):
+    if not isinstance(value, list) or not value or not all(isinstance(v, kind) and not isinstance(v, bool)
+                                                          for v in value):
+        raise InputError(where, f"[{table}] {key} = {show(value)} is not a non-empty array of "
+                                f"{'strings' if kind is str else 'numbers'}")
+    return value
+
+
+def load_study(path) -> Study:
+    """Read and check a study file (see studies/*.toml for the format)."""
+    path = Path(path)
+    return study_from_dict(read_toml(path), path)
+
+
+def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
+    """Check and convert the parsed contents of a study file.
+
+    Parameters
+    ----------
+    data : dict
+        The table `tomllib` returns for a study file.
+    path : str or Path
+        The study file: error messages start with it, a relative technology path is taken
+        relative to it, and the study's name defaults to its stem.
+    tech : Tech, optional
+        The technology to use instead of reading the file the study names (e.g. the copy a
+        run folder keeps); the study must still name one.
+
+    Returns
+    -------
+    Study
+
+    Raises
+    ------
+    InputError
+        Naming `path`, the key and the value.
+    """
+    path = Path(path)
+    where = str(path)
+    check_keys(where, "", data, STUDY_KEYS, ("technology", "supply", "load"))
+
+    tech_ref = data["technology"]
+    if not isinstance(tech_ref, str):
+        raise InputError(where, f"technology = {show(tech_ref)} is not a file path",
+                         "a path to a technology TOML file, relative to the study file")
+    tech_path = (path.parent / tech_ref) if not Path(tech_ref).is_absolute() else Path(tech_ref)
+    if tech is None:
+        tech = load_tech(tech_path)
+
+    supply = sub_table(where, "", "supply", data["supply"])
+    check_keys(where, "supply", supply, SUPPLY_KEYS, ("nominal",))
+    vnom = number(where, "supply", "nominal", supply["nominal"], "V")
+    vmin = number(where, "supply", "min", supply.get("min", vnom), "V")
+    vmax = number(where, "supply", "max", supply.get("max", vnom), "V")
+    if not vmin <= vnom <= vmax:
+        raise InputError(where, f"[supply] min = {vmin:g} V, nominal = {vnom:g} V, max = {vmax:g} V is not in order",
+                         "min <= nominal <= max", "the supply range looks inverted")
+
+    cond_table = sub_table(where, "", "conditions", data.get("conditions", {}))
+    check_keys(where, "conditions", cond_table, CONDITION_KEYS)
+    temps_c = _list(where, "conditions", "temperatures_c", cond_table.get("temperatures_c", [27]), (int, float))
+    corner_names = _list(where, "conditions", "corners", cond_table.get("corners", ["tt"]))
+    corners = []
+    for name in corner_names:
+        allowed = [c.value for c in Corner]
+        if name not in allowed:
+            raise InputError(where, f"[conditions] corners: {name!r} is not a corner", ", ".join(allowed),
+                             closest(name, allowed))
+        if Corner(name) not in tech.corners:
+            raise InputError(where, f"[conditions] corners: {name!r} is not defined by the technology {tech_path}",
+                             ", ".join(c.value for c in tech.corners))
+        corners.append(Corner(name))
+    try:
+        conditions = Conditions(tuple(corners), tuple(t + ZERO_CELSIUS for t in temps_c), vnom, vmin, vmax)
+    except ValueError as err:
+        raise InputError(where, f"[supply]/[conditions] {err}") from None
+
+    load = sub_table(where, "", "load", data["load"])
+    check_keys(where, "load", load, LOAD_KEYS, LOAD_KEYS)
+    driver = sub_table(where, "", "driver", data.get("driver", {}))
+    check_keys(where, "driver", driver, DRIVER_KEYS)
+    targets_t = sub_table(where, "", "targets", data.get("targets", {}))
+    check_keys(where, "targets", targets_t, tuple(TARGET_UNITS))
+    kw = {k: number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
+    if "area_max_um2" in kw:
+        kw["area_max"] = kw.pop("area_max_um2") * 1e-12
+    drive = driver.get("drive", "both")
+    if drive not in ("both", "p", "n"):
+        raise InputError(where, f"[driver] drive = {show(drive)} is not allowed", "both, p, n",
+                         "both: the driver moves the active gate; p or n: one gate only")
+    kw.update(
+        i_load=number(where, "load", "current", load["current"], "A"),
+        c_load=number(where, "load", "capacitance", load["capacitance"], "F"),
+        vcomp=number(where, "driver", "compliance", driver.get("compliance", 0.2), "V"),
+        drive=drive,
+    )
+    targets = build(where, "targets", Targets, kw)
+
+    archs = _list(where, "", "architectures", data.get("architectures", list(STAGES)))
+    for a in archs:
+        if a not in STAGES:
+            raise InputError(where, f"architectures: {a!r} is not known", ", ".join(STAGES), closest(a, STAGES))
+    seed = data.get("seed", 1)
+    if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
+        raise InputError(where, f"seed = {show(seed)} is not allowed", "a non-negative integer")
+    return Study(path, str(data.get("name", path.stem)), tech, tech_path, conditions, targets, tuple(archs), seed, data)
+
+
+def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
+    """Check one design's tables (sizes in micrometres) and build a one-element Design."""
+    if not isinstance(arch, str) or arch not in STAGES:
+        raise InputError(where, f"architecture = {show(arch)} is not known", ", ".join(STAGES),
+                         closest(arch, STAGES) if isinstance(arch, str) else "")
+    stage = get_stage(arch)
+    devices = sub_table(where, "", "devices", devices)
+    bias = sub_table(where, "", "bias", bias)
+    for role in devices:
+        if role not in stage.ROLES:
+            raise InputError(where, f"[devices.{role}] is not a role of {arch}", ", ".join(stage.ROLES),
+                             closest(role, stage.ROLES))
+    missing = [r for r in stage.ROLES if r not in devices]
+    if missing:
+        raise InputError(where, f"[devices] {arch} needs every role; missing {', '.join(missing)}",
+                         ", ".join(stage.ROLES))
+    w, l, tied = {}, {}, set()
+    for role in stage.ROLES:
+        table = f"devices.{role}"
+        dev = sub_table(where, "devices", role, devices[role])
+        check_keys(where, table, dev, ("w", "l", "bulk"), ("w", "l"))
+        polarity = stage.TOPOLOGY.spec(role).polarity
+        mt = tech.mos(polarity)
+        for key, store, minimum in (("w", w, mt.w_min), ("l", l, mt.l_min)):
+            value = _micrometres(where, table, key, dev[key])
+            if not value >= minimum * (1 - 1e-9):
+                raise InputError(where, f"[{table}] {key} = {value * 1e6:g} um is below the technology minimum",
+                                 f">= {minimum * 1e6:g} um ({tech.name})")
+            store[role] = np.array([value])
+        bulk = dev.get("bulk", "rail")
+        if bulk not in ("rail", "source"):
+            raise InputError(where, f"[{table}] bulk = {show(bulk)} is not allowed",
+                             "\"rail\" (default) or \"source\" (own well, no body effect)")
+        if bulk == "source":
+            tied.add(role)
+    for name in bias:
+        if name not in stage.BIAS:
+            raise InputError(where, f"[bias] {name} is not a bias of {arch}", ", ".join(stage.BIAS),
+                             closest(name, stage.BIAS))
+    values = {}
+    for name, unit in stage.BIAS.items():
+        if name not in bias:
+            raise InputError(where, f"[bias] missing {name}", f"{arch} needs {', '.join(stage.BIAS)}")
+        v = number(where, "bias", name, bias[name], unit)
+        if not v > 0:
+            raise InputError(where, f"[bias] {name} = {v:g} {unit} must be positive", f"> 0 {unit}")
+        values[name] = np.array([v])
+    return Design(arch, w, l, values, frozenset(tied))
+
+
+def _micrometres(where, table, key, value) -> float:
+    """A size: a plain number is micrometres; a string with a scale letter is metres."""
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return float(value) * 1e-6
+    return number(where, table, key, value, "m")
+
+
+def load_design(path, tech: Tech) -> Design:
+    """Read a design file (architecture, [devices.ROLE] w/l in um, [bias])."""
+    where = str(path)
+    data = read_toml(path)
+    check_keys(where, "", data, ("architecture", "devices", "bias", "name"), ("architecture", "devices", "bias"))
+    return design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech)

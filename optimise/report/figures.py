@@ -1,0 +1,90 @@
+"""The report's figures as PNG bytes: every front on the same axes with the picks marked, the
+knee's Monte Carlo histogram against the linear estimate, and Iq against the supply.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from models.devices.constants import ZERO_CELSIUS
+
+from ..search.plots import png_bytes
+from .data import ReportData
+
+
+def fronts_figure(data: ReportData) -> bytes:
+    """The objective matrix of every architecture's front; the knee as a star, other picks circled."""
+    from ..search import plots
+
+    fig = plots.objective_matrix(data.table, data.objectives)
+    names = list(data.objectives)
+    m = max(len(names), 2)
+    for r in range(1, len(names)):
+        for c in range(min(r, m - 1)):
+            ax = fig.axes[(r - 1) * (m - 1) + c]
+            others = data.picks.iloc[1:]
+            ax.scatter(plots.scaled(others, names[c]), plots.scaled(others, names[r]), s=70, facecolors="none",
+                       edgecolors="#222222", linewidths=0.9, zorder=3)
+            knee = data.picks.iloc[:1]
+            ax.scatter(plots.scaled(knee, names[c]), plots.scaled(knee, names[r]), s=160, marker="*",
+                       color="#d1495b", edgecolors="black", linewidths=0.6, zorder=4)
+    return png_bytes(fig, dpi=100)
+
+
+def mismatch_figure(data: ReportData) -> bytes:
+    """Histogram of the knee's Monte Carlo Iq with the linear estimate's Gaussian and its +-1, +-3 sigma."""
+    from ..search.plots import _plt
+
+    plt, mc = _plt(), data.mc
+    fig, ax = plt.subplots(figsize=(7, 3.8))
+    iq = mc.iq * 1e6
+    counts, edges, _ = ax.hist(iq, bins=60, color="#7fa7c9", edgecolor="white", linewidth=0.4,
+                               label=f"Monte Carlo, {len(iq)} samples")
+    mu, s = mc.iq_nom * 1e6, mc.iq_nom * 1e6 * mc.linear_sigma_pct / 100.0
+    if s > 0:
+        x = np.linspace(min(edges[0], mu - 4 * s), max(edges[-1], mu + 4 * s), 300)
+        ax.plot(x, len(iq) * (edges[1] - edges[0]) * np.exp(-0.5 * ((x - mu) / s) ** 2) / (s * np.sqrt(2 * np.pi)),
+                color="#1d3557", lw=1.4, label=f"linear estimate, sigma {mc.linear_sigma_pct:.3g} %")
+        for k, style in ((1, "--"), (3, ":")):
+            for sign in (-1, 1):
+                ax.axvline(mu + sign * k * s, color="#d1495b", ls=style, lw=1.1,
+                           label=f"linear +-{k} sigma" if sign > 0 else None)
+    ax.set_xlabel("Iq [uA]")
+    ax.set_ylabel("samples per bin")
+    ax.set_title(f"Iq under mismatch: {data.picks['id'].iloc[0]}, {mc.corner.value}, "
+                 f"{mc.temp - ZERO_CELSIUS:g} C, {mc.vdd:g} V")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    return png_bytes(fig, dpi=100)
+
+
+def supply_figure(data: ReportData) -> bytes:
+    """Iq against VDD (left, with the targets' Iq window) and its change from nominal (right)."""
+    from ..search.plots import _plt
+
+    plt, t, c = _plt(), data.study.targets, data.study.conditions
+    fig, (ax, rel) = plt.subplots(1, 2, figsize=(11, 4))
+    for k, (rid, pick) in enumerate(zip(data.picks["id"], data.picks["pick"])):
+        v, iq = data.sweep[rid]
+        i_nom = iq[np.argmin(np.abs(v - c.vdd_nom))]
+        style = dict(marker="o" if k == 0 else ".", lw=2.2 if k == 0 else 1.0, ms=4, zorder=3 if k == 0 else 2)
+        ax.plot(v, iq * 1e6, label=f"{rid} ({pick})", **style)
+        if i_nom > 0:
+            rel.plot(v, 100 * (iq / i_nom - 1), **style)
+    for limit, name in ((t.iq_min, "Iq window min"), (t.iq_max, "Iq window max")):
+        if 0 < limit < np.inf:
+            ax.axhline(limit * 1e6, color="#555555", ls="--", lw=0.9)
+            ax.text(0.01, limit * 1e6, name, transform=ax.get_yaxis_transform(), fontsize=7, va="bottom",
+                    color="#555555")
+    for a in (ax, rel):
+        a.axvline(c.vdd_nom, color="#999999", ls=":", lw=0.9)
+        a.set_xlabel("VDD [V]")
+        a.grid(alpha=0.3)
+    ax.set_ylabel("Iq [uA]")
+    rel.set_ylabel("Iq change from nominal supply [%]")
+    where = f"{c.typical.value}, {c.temps[0] - ZERO_CELSIUS:g} C"
+    ax.set_title(f"Iq against supply ({where})")
+    rel.set_title("Relative to Iq at the nominal supply")
+    ax.legend(fontsize=7, loc="best")
+    fig.tight_layout()
+    return png_bytes(fig, dpi=100)

@@ -1,0 +1,36 @@
+"""The evaluate JSON object of one design (DESIGN contract keys), for `stagefront evaluate
+--json` and the report.
+"""
+from __future__ import annotations
+
+import math
+
+from models.devices.constants import ZERO_CELSIUS
+from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result
+
+
+def _finite(x):
+    """JSON-safe number: finite floats as they are, anything else as null."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def result_to_dict(res: Result, i: int = 0) -> dict:
+    """The evaluate JSON object of design i (DESIGN contract keys)."""
+    pvt = []
+    for j in range(len(res.vdd)):
+        row = {"corner": res.corners[j].value, "temp_c": round(float(res.temps[j]) - ZERO_CELSIUS, 6),
+               "vdd_v": float(res.vdd[j]), "converged": bool(res.converged[i, j])}
+        for name in PVT_METRICS:
+            row[name] = _finite(res.pvt[name][i, j])
+        row["limit_source"] = LIMIT_NAMES[int(res.pvt["limit_source"][i, j])]
+        row["limit_sink"] = LIMIT_NAMES[int(res.pvt["limit_sink"][i, j])]
+        row["vdd_min_set_by"] = res.requirement_names[int(res.pvt["vdd_min_what"][i, j])]
+        pvt.append(row)
+    return {
+        "architecture": res.architecture,
+        "feasible": bool(res.feasible[i]),
+        "violations": list(res.violations[i]),
+        "summary": {name: _finite(v[i]) for name, v in res.summary.items()},
+        "pvt": pvt,
+    }

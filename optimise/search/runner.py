@@ -1,0 +1,137 @@
+"""`stagefront optimise`: search every architecture of a study and write the run folder.
+
+The folder holds front.csv, run.json, three plots and checkpoint/ (one pickled search state
+per architecture). An existing folder is never overwritten unless asked (--overwrite);
+--resume continues a stopped run from its checkpoints with the settings it was started with.
+Ctrl-C stops the search, writes the front found so far and says so.
+
+Checkpoints are Python pickles: resume only run folders you made yourself, since
+unpickling a file from elsewhere can run code.
+"""
+from __future__ import annotations
+
+import json
+import pickle
+import shutil
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+
+from .. import CAUTION
+from ..files.atomic import write_bytes
+from ..files.errors import InputError
+from ..files.space import load_search
+from ..files.study import load_study
+from .export import (
+    closest_design_report,
+    front_table,
+    run_record,
+    write_front,
+    write_json,
+)
+from .nsga import Progress, collect, run_architecture
+
+PLOTS = ("objectives.png", "hypervolume.png", "parallel.png")
+
+
+def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict) -> dict:
+    """Create or reopen the run folder; returns the settings the run goes on with."""
+    meta_path = out / "checkpoint" / "meta.json"
+    if resume:
+        if not meta_path.exists():
+            raise InputError(str(out), "has no checkpoint to resume from",
+                             hint="start a new run without --resume")
+        saved = json.loads(meta_path.read_text())
+        for key in ("seed", "population", "generations", "study_toml"):
+            if key in meta and meta[key] is not None and saved.get(key) != meta[key]:
+                shown = "the study file changed" if key == "study_toml" else f"{key} {meta[key]} != {saved[key]}"
+                raise InputError(str(out), f"cannot resume: {shown} since the run started",
+                                 hint="resume with the original settings, or start a new run folder")
+        return saved
+    if out.exists() and any(out.iterdir()):
+        if not overwrite:
+            raise InputError(str(out), "run folder exists and is not empty",
+                             hint="choose another --out, continue it with --resume, or replace it with --overwrite")
+        shutil.rmtree(out)
+    (out / "checkpoint").mkdir(parents=True, exist_ok=True)
+    write_bytes(meta_path, json.dumps(meta).encode())
+    return meta
+
+
+def _plots(out: Path, table, objectives, hv) -> None:
+    from . import plots
+
+    for name, make in (("objectives.png", lambda: plots.objective_matrix(table, objectives)),
+                       ("hypervolume.png", lambda: plots.hypervolume_curve(hv)),
+                       ("parallel.png", lambda: plots.parallel_coordinates(table, objectives))):
+        write_bytes(out / name, plots.png_bytes(make()))
+
+
+def optimise_study(study_path, out=None, seed=None, population=None, generations=None, resume=False,
+                   overwrite=False, stream=None) -> int:
+    """Run the search and write the run folder. Returns the exit status (130 if interrupted)."""
+    stream = stream or sys.stdout
+    study = load_study(study_path)
+    settings = load_search(study)
+    out = Path(out) if out else Path("runs") / Path(study_path).stem
+    meta = {"seed": seed, "population": population, "generations": generations,
+            "study_toml": Path(study_path).read_text()}
+    if not resume:
+        meta = {"seed": study.seed if seed is None else seed,
+                "population": settings.population if population is None else population,
+                "generations": settings.generations if generations is None else generations,
+                "study_toml": meta["study_toml"]}
+    for key in ("population", "generations"):
+        if meta.get(key) is not None and meta[key] < (4 if key == "population" else 1):
+            raise InputError(f"--{key}", f"{meta[key]} is too small", ">= 4" if key == "population" else ">= 1")
+    meta = _prepare(out, resume, overwrite, meta)
+    settings = replace(settings, population=meta["population"], generations=meta["generations"])
+    progress = Progress()
+    runs, status, t0 = [], "finished", time.perf_counter()
+    try:
+        for arch in study.architectures:
+            runs.append(run_architecture(study, settings, arch, meta["seed"], out / "checkpoint" / f"{arch}.pkl",
+                                         resume, progress, meta["population"], meta["generations"]))
+    except KeyboardInterrupt:
+        status = "interrupted"
+        runs = []
+        for arch in study.architectures:
+            ck = out / "checkpoint" / f"{arch}.pkl"
+            if ck.exists():
+                with ck.open("rb") as fh:
+                    state = pickle.load(fh)
+                if state["hv"]:
+                    runs.append(collect(arch, state))
+    wall = time.perf_counter() - t0
+    table, _ = front_table(study, settings, runs)
+    blocked = {}
+    for r in runs:
+        if not r.feasible.any():
+            blocked[r.architecture] = closest_design_report(study, settings, r)
+    write_front(out / "front.csv", table)
+    sizes = table["architecture"].value_counts().to_dict() if len(table) else {}
+    record = run_record(study, settings, runs, meta["seed"], meta["population"], meta["generations"], status,
+                        blocked, wall, sizes)
+    write_json(out / "run.json", record)
+    _plots(out, table, settings.objectives, {r.architecture: r.hypervolume for r in runs})
+
+    p = lambda s="": print(s, file=stream)  # noqa: E731
+    if status == "interrupted":
+        p(f"interrupted: the front found so far is in {out / 'front.csv'}; continue with --resume")
+    for r in runs:
+        n = int((table["architecture"] == r.architecture).sum()) if len(table) else 0
+        hv = r.hypervolume[-1] if r.hypervolume else 0.0
+        p(f"{r.architecture:14s} {n:4d} front designs   {r.evaluations:6d} evaluations   "
+          f"hypervolume {hv:.4f}   {r.wall_time_s:.1f} s")
+        if r.architecture in blocked:
+            b = blocked[r.architecture]
+            p(f"  no feasible design: '{b['blocking_constraint']}' blocks the closest design "
+              f"(worst margin {b['closest_margin']:.3g}):")
+            for v in b["closest_violations"][:4]:
+                p(f"    - {v}")
+    p(f"front:  {out / 'front.csv'}")
+    p(f"plots:  {', '.join(str(out / n) for n in PLOTS)}")
+    p(f"record: {out / 'run.json'}")
+    p(CAUTION)
+    return 130 if status == "interrupted" else 0
