@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import json
 import pickle
-import shutil
 import sys
 import time
 from dataclasses import replace
@@ -21,6 +20,7 @@ from pathlib import Path
 from .. import CAUTION
 from ..files.atomic import write_bytes
 from ..files.errors import InputError
+from ..files.folders import clear, mark
 from ..files.space import load_search
 from ..files.study import load_study
 from .export import (
@@ -35,7 +35,7 @@ from .nsga import Progress, collect, run_architecture
 PLOTS = ("objectives.png", "hypervolume.png", "parallel.png")
 
 
-def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict) -> dict:
+def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict, inputs=()) -> dict:
     """Create or reopen the run folder; returns the settings the run goes on with."""
     meta_path = out / "checkpoint" / "meta.json"
     if resume:
@@ -49,12 +49,15 @@ def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict) -> dict:
                 raise InputError(str(out), f"cannot resume: {shown} since the run started",
                                  hint="resume with the original settings, or start a new run folder")
         return saved
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out {out}", "exists and is not a folder", "a new folder or a run folder")
     if out.exists() and any(out.iterdir()):
         if not overwrite:
             raise InputError(str(out), "run folder exists and is not empty",
                              hint="choose another --out, continue it with --resume, or replace it with --overwrite")
-        shutil.rmtree(out)
+        clear(out, "run", inputs)
     (out / "checkpoint").mkdir(parents=True, exist_ok=True)
+    mark(out, "run")
     write_bytes(meta_path, json.dumps(meta).encode())
     return meta
 
@@ -85,7 +88,7 @@ def optimise_study(study_path, out=None, seed=None, population=None, generations
     for key in ("population", "generations"):
         if meta.get(key) is not None and meta[key] < (4 if key == "population" else 1):
             raise InputError(f"--{key}", f"{meta[key]} is too small", ">= 4" if key == "population" else ">= 1")
-    meta = _prepare(out, resume, overwrite, meta)
+    meta = _prepare(out, resume, overwrite, meta, (study_path, study.tech_path))
     settings = replace(settings, population=meta["population"], generations=meta["generations"])
     progress = Progress()
     runs, status, t0 = [], "finished", time.perf_counter()

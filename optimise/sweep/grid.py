@@ -53,6 +53,7 @@ from models.stages import STAGES
 
 from .. import CAUTION
 from ..files.errors import InputError
+from ..files.folders import component
 from ..files.study import (
     CONDITION_KEYS,
     DRIVER_KEYS,
@@ -131,7 +132,7 @@ def label(value) -> str:
         text = "+".join(f"{k}-{label(v)}" for k, v in value.items())
     else:
         text = str(value)
-    return re.sub(r"[^A-Za-z0-9.+_-]+", "-", text).strip("-") or "x"
+    return component(text)
 
 
 def _axis_labels(keys) -> dict:
@@ -248,7 +249,7 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
         values = dict(zip(keys, combo))
         parts = []
         for k, v in values.items():
-            text = Path(v).stem if k == "technology" else label(v)
+            text = label(Path(v).stem) if k == "technology" else label(v)
             parts.append(words[k] + text)
         cname = "_".join(parts)
         if cname in used:  # two values that only differ in characters a folder name cannot hold

@@ -34,7 +34,6 @@ import contextlib
 import io
 import json
 import logging
-import shutil
 import sys
 import time
 import traceback
@@ -43,6 +42,7 @@ from pathlib import Path
 
 from ..files.atomic import write_text
 from ..files.errors import InputError
+from ..files.folders import clear, component, mark
 from ..search.runtime import keep_freed_memory
 from .grid import Grid, load_grid
 from .summary import CAUTION, cell_row, joint_front, knee_rows, write_summary
@@ -167,18 +167,19 @@ def cluster_client(scheduler: str | None = None, workers: int = 2):
 
 
 # ---------------------------------------------------------------------------- folder
-def _prepare(out: Path, overwrite: bool) -> None:
+def _prepare(out: Path, overwrite: bool, inputs=()) -> None:
     if out.exists() and not out.is_dir():
         raise InputError(f"--out {out}", "exists and is not a folder", "a new folder or a sweep folder")
     if out.exists() and any(out.iterdir()):
         if overwrite:
-            shutil.rmtree(out)
+            clear(out, "sweep", inputs)
         elif not (out / "sweep.json").is_file():
             raise InputError(f"--out {out}", "folder exists, is not empty and holds no sweep (no sweep.json)",
                              "a new folder, or the folder of an earlier sweep (its finished cells are reused)",
                              "choose another --out, or clear it with --overwrite")
     (out / "studies").mkdir(parents=True, exist_ok=True)
     (out / "cells").mkdir(exist_ok=True)
+    mark(out, "sweep")
 
 
 def _reusable(study_file: Path, run: Path) -> bool:
@@ -234,8 +235,8 @@ def run_sweep(grid_path, out=None, scheduler: str | None = None, workers: int | 
     if montecarlo and montecarlo < 2:
         raise InputError("--montecarlo", f"{montecarlo} samples is too few", ">= 2")
     grid = load_grid(grid_path)
-    out = Path(out) if out else Path("runs") / grid.name
-    _prepare(out, overwrite)
+    out = Path(out) if out else Path("runs") / component(grid.name)
+    _prepare(out, overwrite, (grid.path, grid.base))
     t0 = time.perf_counter()
     record = {"grid": str(grid.path), "grid_toml": grid.path.read_text(), "name": grid.name, "base": str(grid.base),
               "cluster": scheduler or f"local: {workers} worker process(es), 1 thread each"}
