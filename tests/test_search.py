@@ -48,7 +48,7 @@ def test_zdt1_front_and_hypervolume_through_the_runner(tmp_path):
     # Zitzler, Deb and Thiele 2000: ZDT1 (n = 30) has the convex front f2 = 1 - sqrt(f1),
     # f1 in [0, 1]; its hypervolume with reference point (1, 1) is 2/3 (integral of sqrt).
     problem = get_problem("zdt1")
-    state = run_search(problem, seed=1, population=60, generations=150, checkpoint=tmp_path / "zdt1.pkl",
+    state = run_search(problem, seed=1, population=60, generations=150, checkpoint=tmp_path / "zdt1.npz",
                        resume=False, progress=Quiet(), label="zdt1", box=(np.zeros(2), np.ones(2)),
                        checkpoint_every=50)
     X, F, _ = state["archive"]

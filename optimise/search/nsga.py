@@ -2,8 +2,8 @@
 
 Each architecture gets its own NSGA-II run (its own variables) with the same budget and the
 same objectives, so the fronts land on the same axes. The algorithm object, which carries
-its own seeded random generator, is pickled every few generations: a resumed run
-continues bit for bit where the stopped one was.
+its own seeded random generator, is written as arrays every few generations
+(`checkpoint`, no pickle): a resumed run continues bit for bit where the stopped one was.
 
 References
 ----------
@@ -14,7 +14,6 @@ comparative case study", PPSN V, 1998 (hypervolume).
 """
 from __future__ import annotations
 
-import pickle
 import sys
 import time
 from dataclasses import dataclass, field
@@ -22,12 +21,12 @@ from pathlib import Path
 
 import moocore
 import numpy as np
-from pymoo.algorithms.moo.nsga2 import NSGA2
 from pymoo.indicators.hv import HV
 
 from ..files.atomic import write_bytes
 from ..files.space import SearchSettings
 from ..files.study import Study
+from . import checkpoint as ckpt
 from .problem import StageProblem
 
 
@@ -136,33 +135,33 @@ class Progress:
 
 
 def run_search(problem, seed: int, population: int, generations: int, checkpoint: Path, resume: bool,
-               progress: Progress, label: str, box, checkpoint_every: int) -> dict:
+               progress: Progress, label: str, box, checkpoint_every: int, inputs_hash: str = "") -> dict:
     """NSGA-II on any pymoo problem, with an archive, hypervolume per generation and
     checkpoints. Returns the search state (algorithm, archive, hv, feasible, wall, finished).
 
     The state is snapshotted after every completed generation; the snapshot (never a
     half-done generation) goes to `checkpoint` every `checkpoint_every` generations and
     when the loop ends for any reason, KeyboardInterrupt included (which propagates).
+    `inputs_hash` (of the study and technology text) is stored in the checkpoint, and a
+    resume from a checkpoint with another hash is refused.
     """
     ideal, ref = box
     state = None
     if resume and checkpoint.exists():
-        with checkpoint.open("rb") as fh:
-            state = pickle.load(fh)
+        state = ckpt.load(checkpoint, problem, population, generations, seed, inputs_hash)
     if state is None:
-        algorithm = NSGA2(pop_size=population, eliminate_duplicates=True)
-        algorithm.setup(problem, termination=("n_gen", generations), seed=seed, verbose=False)
+        algorithm = ckpt.new_algorithm(problem, population, generations, seed)
         empty = (np.empty((0, problem.n_var)), np.empty((0, problem.n_obj)), np.empty((0, problem.n_ieq_constr)))
         state = {"algorithm": algorithm, "archive": empty, "hv": [], "feasible": [], "wall": 0.0,
                  "finished": False}
-    snapshot = pickle.dumps(state)
+    snapshot = ckpt.encode(state, inputs_hash)
     t0 = time.perf_counter() - state["wall"]
     try:
         while not state["finished"]:
             algorithm = state["algorithm"]
             if not algorithm.has_next():
                 state["finished"] = True
-                snapshot = pickle.dumps(state)
+                snapshot = ckpt.encode(state, inputs_hash)
                 break
             algorithm.next()
             state["archive"] = update_archive(state["archive"], algorithm.pop)
@@ -170,7 +169,7 @@ def run_search(problem, seed: int, population: int, generations: int, checkpoint
             state["hv"].append(hypervolume(state["archive"][1], ideal, ref))
             state["feasible"].append(feas)
             state["wall"] = time.perf_counter() - t0
-            snapshot = pickle.dumps(state)
+            snapshot = ckpt.encode(state, inputs_hash)
             gen = len(state["hv"])
             progress.update(label, gen, generations, algorithm.evaluator.n_eval, feas, state["hv"][-1])
             if gen % checkpoint_every == 0:
@@ -179,15 +178,16 @@ def run_search(problem, seed: int, population: int, generations: int, checkpoint
         write_bytes(checkpoint, snapshot)
     if progress.tty:
         progress.stream.write("\n")
-    return pickle.loads(snapshot)
+    return state
 
 
 def run_architecture(study: Study, settings: SearchSettings, arch: str, seed: int, checkpoint: Path,
-                     resume: bool, progress: Progress, population: int, generations: int) -> ArchRun:
+                     resume: bool, progress: Progress, population: int, generations: int,
+                     inputs_hash: str = "") -> ArchRun:
     """Search one architecture of a study (see `run_search`)."""
     problem = StageProblem(study, settings.spaces[arch], settings.objectives)
     state = run_search(problem, seed, population, generations, checkpoint, resume, progress, arch,
-                       normaliser(study, settings), settings.checkpoint_every)
+                       normaliser(study, settings), settings.checkpoint_every, inputs_hash)
     return collect(arch, state)
 
 

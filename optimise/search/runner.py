@@ -1,17 +1,16 @@
 """`stagefront optimise`: search every architecture of a study and write the run folder.
 
-The folder holds front.csv, run.json, three plots and checkpoint/ (one pickled search state
-per architecture). An existing folder is never overwritten unless asked (--overwrite);
+The folder holds front.csv, run.json, three plots and checkpoint/ (one search state per
+architecture, as arrays: `checkpoint`). An existing folder is never overwritten unless asked (--overwrite);
 --resume continues a stopped run from its checkpoints with the settings it was started with.
 Ctrl-C stops the search, writes the front found so far and says so.
 
-Checkpoints are Python pickles: resume only run folders you made yourself, since
-unpickling a file from elsewhere can run code.
+Checkpoints are arrays and JSON, never pickles: resuming a run folder from elsewhere reads
+data only, and refuses when the study or technology text differs from the run's start.
 """
 from __future__ import annotations
 
 import json
-import pickle
 import sys
 import time
 from dataclasses import replace
@@ -30,7 +29,9 @@ from .export import (
     write_front,
     write_json,
 )
+from . import checkpoint as ckpt
 from .nsga import Progress, collect, run_architecture
+from .problem import StageProblem
 
 PLOTS = ("objectives.png", "hypervolume.png", "parallel.png")
 
@@ -42,10 +43,18 @@ def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict, inputs=()) ->
         if not meta_path.exists():
             raise InputError(str(out), "has no checkpoint to resume from",
                              hint="start a new run without --resume")
-        saved = json.loads(meta_path.read_text())
-        for key in ("seed", "population", "generations", "study_toml"):
+        try:
+            saved = json.loads(meta_path.read_text())
+            if not isinstance(saved, dict):
+                raise ValueError("not a JSON object")
+        except (OSError, ValueError) as exc:
+            raise InputError(str(meta_path), f"is not a readable checkpoint record ({exc})",
+                             hint="start a new run folder")
+        for key in ("seed", "population", "generations", "study_toml", "inputs_sha256"):
             if key in meta and meta[key] is not None and saved.get(key) != meta[key]:
-                shown = "the study file changed" if key == "study_toml" else f"{key} {meta[key]} != {saved[key]}"
+                shown = {"study_toml": "the study file changed",
+                         "inputs_sha256": "the study or technology file changed"}.get(
+                    key, f"{key} {meta[key]} != {saved.get(key)}")
                 raise InputError(str(out), f"cannot resume: {shown} since the run started",
                                  hint="resume with the original settings, or start a new run folder")
         return saved
@@ -78,13 +87,14 @@ def optimise_study(study_path, out=None, seed=None, population=None, generations
     study = load_study(study_path)
     settings = load_search(study)
     out = Path(out) if out else Path("runs") / Path(study_path).stem
+    digest = ckpt.text_hash(Path(study_path).read_text(), study.tech_path.read_text())
     meta = {"seed": seed, "population": population, "generations": generations,
-            "study_toml": Path(study_path).read_text()}
+            "study_toml": Path(study_path).read_text(), "inputs_sha256": digest}
     if not resume:
         meta = {"seed": study.seed if seed is None else seed,
                 "population": settings.population if population is None else population,
                 "generations": settings.generations if generations is None else generations,
-                "study_toml": meta["study_toml"]}
+                "study_toml": meta["study_toml"], "inputs_sha256": digest}
     for key in ("population", "generations"):
         if meta.get(key) is not None and meta[key] < (4 if key == "population" else 1):
             raise InputError(f"--{key}", f"{meta[key]} is too small", ">= 4" if key == "population" else ">= 1")
@@ -94,16 +104,16 @@ def optimise_study(study_path, out=None, seed=None, population=None, generations
     runs, status, t0 = [], "finished", time.perf_counter()
     try:
         for arch in study.architectures:
-            runs.append(run_architecture(study, settings, arch, meta["seed"], out / "checkpoint" / f"{arch}.pkl",
-                                         resume, progress, meta["population"], meta["generations"]))
+            runs.append(run_architecture(study, settings, arch, meta["seed"], out / "checkpoint" / f"{arch}.npz",
+                                         resume, progress, meta["population"], meta["generations"], digest))
     except KeyboardInterrupt:
         status = "interrupted"
         runs = []
         for arch in study.architectures:
-            ck = out / "checkpoint" / f"{arch}.pkl"
+            ck = out / "checkpoint" / f"{arch}.npz"
             if ck.exists():
-                with ck.open("rb") as fh:
-                    state = pickle.load(fh)
+                problem = StageProblem(study, settings.spaces[arch], settings.objectives)
+                state = ckpt.load(ck, problem, meta["population"], meta["generations"], meta["seed"], digest)
                 if state["hv"]:
                     runs.append(collect(arch, state))
     wall = time.perf_counter() - t0
