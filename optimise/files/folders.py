@@ -7,8 +7,13 @@ stems, axis values) become single safe path components with `component`.
 """
 from __future__ import annotations
 
+import contextlib
+import json
+import os
 import re
 import shutil
+import socket
+import time
 from pathlib import Path
 
 from .atomic import write_text
@@ -67,4 +72,79 @@ def clear(folder, kind: str, inputs=(), where: str | None = None) -> None:
         raise InputError(where, f"--overwrite refused: {reason}; nothing was deleted",
                          f"a {kind} folder stagefront wrote, or a new folder",
                          "choose another --out, or remove the folder yourself if you mean it")
-    shutil.rmtree(folder)
+    for child in folder.iterdir():  # the folder itself (and a lock in it) stays
+        if child.name == LOCK:
+            continue
+        if child.is_dir() and not child.is_symlink():
+            shutil.rmtree(child)
+        else:
+            child.unlink()
+
+
+def is_empty(folder: Path) -> bool:
+    """Whether `folder` holds nothing but a lock file."""
+    return not any(child.name != LOCK for child in Path(folder).iterdir())
+
+
+# ---------------------------------------------------------------------------- lock
+LOCK = ".stagefront-lock"
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # another user's process
+        return True
+    return True
+
+
+def _holder(path: Path) -> dict:
+    try:
+        data = json.loads(path.read_text())
+        return data if isinstance(data, dict) and isinstance(data.get("pid"), int) else {}
+    except (OSError, ValueError):
+        return {}
+
+
+@contextlib.contextmanager
+def locked(folder, command: str):
+    """Hold `folder` for one writer: a lock file with this process's id, removed on exit.
+
+    The folder is created when missing. A lock whose process no longer runs on this host
+    (a killed run) is stale and taken over; a live one gives InputError naming its process.
+    """
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"--out {folder}", "exists and is not a folder", "a new folder or a run folder")
+    created = not folder.exists()
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / LOCK
+    mine = {"pid": os.getpid(), "host": socket.gethostname(), "command": command, "started": time.time()}
+    for _ in range(3):
+        try:
+            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+        except FileExistsError:
+            other = _holder(path)
+            stale = other and other.get("host") == mine["host"] and not _alive(other["pid"])
+            if stale or (not other and time.time() - path.stat().st_mtime > 60):
+                path.unlink(missing_ok=True)
+                continue
+            raise InputError(str(folder), f"is in use by another stagefront process "
+                                          f"(pid {other.get('pid', '?')}, {other.get('command', '?')})",
+                             "one writer per run or sweep folder",
+                             f"wait for it to finish, or choose another --out; if no such process runs, "
+                             f"remove {path}")
+        with os.fdopen(fd, "w") as fh:
+            fh.write(json.dumps(mine))
+        break
+    else:
+        raise InputError(str(folder), "its lock file keeps changing", hint=f"remove {path} and try again")
+    try:
+        yield folder
+    finally:
+        if _holder(path).get("pid") == os.getpid():
+            path.unlink(missing_ok=True)
+        if created and not any(folder.iterdir()):  # nothing was written: leave no trace
+            folder.rmdir()

@@ -19,7 +19,7 @@ from pathlib import Path
 from .. import CAUTION
 from ..files.atomic import write_bytes
 from ..files.errors import InputError
-from ..files.folders import clear, mark
+from ..files.folders import clear, component, is_empty, locked, mark
 from ..files.space import load_search
 from ..files.study import load_study
 from .export import (
@@ -60,7 +60,7 @@ def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict, inputs=()) ->
         return saved
     if out.exists() and not out.is_dir():
         raise InputError(f"--out {out}", "exists and is not a folder", "a new folder or a run folder")
-    if out.exists() and any(out.iterdir()):
+    if out.exists() and not is_empty(out):
         if not overwrite:
             raise InputError(str(out), "run folder exists and is not empty",
                              hint="choose another --out, continue it with --resume, or replace it with --overwrite")
@@ -82,11 +82,19 @@ def _plots(out: Path, table, objectives, hv) -> None:
 
 def optimise_study(study_path, out=None, seed=None, population=None, generations=None, resume=False,
                    overwrite=False, stream=None) -> int:
-    """Run the search and write the run folder. Returns the exit status (130 if interrupted)."""
+    """Run the search and write the run folder. Returns the exit status (130 if interrupted).
+
+    The run folder is locked for the whole run: a second writer gets InputError.
+    """
+    out = Path(out) if out else Path("runs") / component(Path(study_path).stem)
+    with locked(out, "optimise"):
+        return _optimise(study_path, out, seed, population, generations, resume, overwrite, stream)
+
+
+def _optimise(study_path, out: Path, seed, population, generations, resume, overwrite, stream) -> int:
     stream = stream or sys.stdout
     study = load_study(study_path)
     settings = load_search(study)
-    out = Path(out) if out else Path("runs") / Path(study_path).stem
     digest = ckpt.text_hash(Path(study_path).read_text(), study.tech_path.read_text())
     meta = {"seed": seed, "population": population, "generations": generations,
             "study_toml": Path(study_path).read_text(), "inputs_sha256": digest}

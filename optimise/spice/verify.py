@@ -34,6 +34,7 @@ from models.stages import get_stage
 
 from .. import CAUTION
 from ..files.atomic import write_text
+from ..files.folders import locked
 from ..files.errors import InputError
 from ..search import runfolder
 from . import ngspice
@@ -196,6 +197,12 @@ def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmo
     err_stream = err_stream or sys.stderr
     log = lambda s: print(s, file=err_stream, flush=True)  # noqa: E731
     study, front, folder = load_run(run)
+    with locked(folder, "verify"):
+        return _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log)
+
+
+def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log) -> int:
+    """The body of `verify_run`, with the run folder locked."""
     ids = choose_rows(front, rows, all_rows)
     models = tb.load_models(models_path, nmos, pmos) if models_path else tb.ModelSource()
     tb.require_ngspice()

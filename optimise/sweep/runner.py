@@ -42,7 +42,7 @@ from pathlib import Path
 
 from ..files.atomic import write_text
 from ..files.errors import InputError
-from ..files.folders import clear, component, mark
+from ..files.folders import clear, component, is_empty, locked, mark
 from ..search.runtime import keep_freed_memory
 from .grid import Grid, load_grid
 from .summary import CAUTION, cell_row, joint_front, knee_rows, write_summary
@@ -170,7 +170,7 @@ def cluster_client(scheduler: str | None = None, workers: int = 2):
 def _prepare(out: Path, overwrite: bool, inputs=()) -> None:
     if out.exists() and not out.is_dir():
         raise InputError(f"--out {out}", "exists and is not a folder", "a new folder or a sweep folder")
-    if out.exists() and any(out.iterdir()):
+    if out.exists() and not is_empty(out):
         if overwrite:
             clear(out, "sweep", inputs)
         elif not (out / "sweep.json").is_file():
@@ -236,6 +236,13 @@ def run_sweep(grid_path, out=None, scheduler: str | None = None, workers: int | 
         raise InputError("--montecarlo", f"{montecarlo} samples is too few", ">= 2")
     grid = load_grid(grid_path)
     out = Path(out) if out else Path("runs") / component(grid.name)
+    with locked(out, "sweep"):
+        return _sweep(grid, out, overwrite, scheduler, workers, montecarlo, mc_seed, p)
+
+
+def _sweep(grid: Grid, out: Path, overwrite: bool, scheduler, workers: int, montecarlo: int, mc_seed: int,
+           p) -> int:
+    """The body of `run_sweep`, with the sweep folder locked."""
     _prepare(out, overwrite, (grid.path, grid.base))
     t0 = time.perf_counter()
     record = {"grid": str(grid.path), "grid_toml": grid.path.read_text(), "name": grid.name, "base": str(grid.base),
