@@ -146,13 +146,14 @@ def cmd_netlist(args) -> int:
     from .spice.deck import write_netlist
 
     return _ngspice_guard(lambda: write_netlist(args.run, args.row, args.models, args.nmos, args.pmos, args.out,
-                                                args.corner))
+                                                args.corner, trust=args.trust_card))
 
 
 def cmd_verify(args) -> int:
     from .spice.verify import verify_run
 
-    return _ngspice_guard(lambda: verify_run(args.run, args.rows, args.all, args.models, args.nmos, args.pmos))
+    return _ngspice_guard(lambda: verify_run(args.run, args.rows, args.all, args.models, args.nmos, args.pmos,
+                                             trust=args.trust_card))
 
 
 def cmd_calibrate(args) -> int:
@@ -166,6 +167,9 @@ def add_handoff_commands(sub) -> None:
     models = argparse.ArgumentParser(add_help=False)
     models.add_argument("--nmos", default="nch", metavar="NAME", help="NMOS model name in the card (default nch)")
     models.add_argument("--pmos", default="pch", metavar="NAME", help="PMOS model name in the card (default pch)")
+    models.add_argument("--trust-card", action="store_true",
+                        help="accept a model card holding .control blocks or shell commands (they run in ngspice); "
+                             "only for cards you wrote or whose author you trust")
     p = sub.add_parser(
         "netlist", parents=[models], help="write one front.csv row as a SPICE netlist with its test bench",
         description="One subcircuit from the architecture's topology (devices named by role, W/L on the "

@@ -250,7 +250,7 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
     out = Path(args.out)
     if out.exists() and not args.overwrite:
         raise InputError(f"--out {out}", "exists", hint="choose another file or add --overwrite")
-    models = tb.load_models(args.models, args.nmos, args.pmos)
+    models = tb.load_models(args.models, args.nmos, args.pmos, trust=getattr(args, "trust_card", False))
     corner = args.corner
     if corner not in tb.CORNERS:
         raise InputError("--corner", f"{corner!r} is not a corner", ", ".join(tb.CORNERS))

@@ -26,6 +26,7 @@ from ..files.study import Study, load_study
 from ..search import runfolder
 from ..search.export import design_from_row
 from . import testbench as tb
+from .cards import comment_safe
 
 
 def load_run(run) -> tuple[Study, "object", Path]:
@@ -109,7 +110,7 @@ def netlist_text(study: Study, row_id: str, design: Design, models: tb.ModelSour
     lines = tb.header(f"stagefront netlist: design {row_id} ({mod.NAME}), {corner.value}, {t_c:g} degC, "
                       f"VDD = {vdd:g} V", models, corner, temp)
     lines[1:1] = [
-        f"* Study {study.name} ({study.path}); technology {tech.name}; models: {models.describe()}.",
+        comment_safe(f"* Study {study.name} ({study.path}); technology {tech.name}; models: {models.describe()}."),
         f"* {CAUTION}",
         "*",
         f"* What stagefront's {tech.model.value} model predicts at these conditions:",
@@ -163,11 +164,11 @@ def netlist_text(study: Study, row_id: str, design: Design, models: tb.ModelSour
 
 
 def write_netlist(run, row_id: str, models_path=None, nmos: str = "nch", pmos: str = "pch", out=None,
-                  corner: str = "tt", stream=None) -> int:
+                  corner: str = "tt", stream=None, trust: bool = False) -> int:
     """`stagefront netlist`: write the netlist of one row to `out` (atomically) or `stream`."""
     study, front, _ = load_run(run)
     _, design = row_design(front, row_id)
-    models = tb.load_models(models_path, nmos, pmos) if models_path else tb.ModelSource()
+    models = tb.load_models(models_path, nmos, pmos, trust=trust) if models_path else tb.ModelSource()
     try:
         c = Corner(corner)
     except ValueError:

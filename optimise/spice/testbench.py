@@ -53,6 +53,7 @@ from models.evaluate import Design, Targets, corner_shifts, devices_at, rest_poi
 from models.stages import get_stage
 
 from ..files.errors import InputError
+from .cards import check_card_path, check_model_name, comment_safe, scan_card
 from . import netlist, ngspice
 from .netlist import common_source, gate_nodes, stage_module
 from .ngspice import number, vector
@@ -109,7 +110,8 @@ _REFERENCE = re.compile(r"^\s*\.(lib|include|inc)\s+\S+", re.IGNORECASE)
 _MODEL = re.compile(r"^\s*\.model\s+(\S+)", re.IGNORECASE)
 
 
-def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--models") -> ModelSource:
+def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--models",
+                trust: bool = False) -> ModelSource:
     """Check a user's model file and find its corner sections.
 
     Parameters
@@ -120,6 +122,8 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
         Model names used for the NMOS and PMOS devices.
     where : str
         Option name for messages.
+    trust : bool
+        Accept a card holding ``.control`` or ``shell`` lines (``--trust-card``).
 
     Returns
     -------
@@ -132,7 +136,10 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
         define the model names (binned names such as ``nch.1`` count as ``nch``). A file
         that itself includes other files is not searched for names; ngspice reports those.
     """
+    check_model_name("--nmos", nmos)
+    check_model_name("--pmos", pmos)
     p = Path(path)
+    check_card_path(where, p.resolve())
     try:
         text = p.read_text()
     except FileNotFoundError:
@@ -142,6 +149,7 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
         raise InputError(f"{where} {p}", "is a folder, not a model file") from None
     except (OSError, UnicodeDecodeError) as err:
         raise InputError(f"{where} {p}", f"cannot be read as text ({err})") from None
+    scan_card(where, p, text, trust)
     sections, models, refs = [], set(), False
     for line in text.splitlines():
         m = _SECTION.match(line)
@@ -185,7 +193,7 @@ def header(title: str, models: ModelSource, corner: Corner, temp: float) -> list
     """Title, options, temperature and the card reference of a deck at one corner and temperature [K]."""
     t_c = round(float(temp) - ZERO_CELSIUS, 9)
     opts = f".options {netlist.OPTIONS}" + (f" tnom={t_c!r}" if models.level1 else "")
-    lines = [title, opts, f".temp {t_c!r}"]
+    lines = [comment_safe(title), opts, f".temp {t_c!r}"]
     if not models.level1:
         lines.append(models.reference(corner))
     return lines

@@ -191,20 +191,20 @@ def _error(metric: str, model: float, sim: float) -> float:
 
 
 def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmos="pch", stream=None,
-               err_stream=None) -> int:
-    """`stagefront verify`. Returns 0 when at least one point was verified, 1 when none was."""
+               err_stream=None, trust: bool = False) -> int:
+    """`stagefront verify` (`trust`: accept a card with control lines, ``--trust-card``). Returns 0 when at least one point was verified, 1 when none was."""
     stream = stream or sys.stdout
     err_stream = err_stream or sys.stderr
     log = lambda s: print(s, file=err_stream, flush=True)  # noqa: E731
     study, front, folder = load_run(run)
     with locked(folder, "verify"):
-        return _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log)
+        return _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log, trust)
 
 
-def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log) -> int:
+def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log, trust=False) -> int:
     """The body of `verify_run`, with the run folder locked."""
     ids = choose_rows(front, rows, all_rows)
-    models = tb.load_models(models_path, nmos, pmos) if models_path else tb.ModelSource()
+    models = tb.load_models(models_path, nmos, pmos, trust=trust) if models_path else tb.ModelSource()
     tb.require_ngspice()
     cond = study.conditions
     corners = [c for c in cond.corners if c in models.corners(study.tech)]
