@@ -31,7 +31,7 @@ from models.stages import get_stage
 
 from .errors import InputError
 from .study import Study
-from .tables import check_keys, closest, number, show, sub_table
+from .tables import check_keys, closest, micrometres, number, show, sub_table
 
 # Objective name -> (unit, default sense). swing_v is maximised; supply sensitivity is
 # minimised in magnitude.
@@ -145,9 +145,7 @@ def _pair(where, table, key, value, unit, sizes=False):
 
 
 def _size(where, table, key, value) -> float:
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
-        return float(value) * 1e-6
-    return number(where, table, key, value, "m")
+    return micrometres(where, table, key, value)
 
 
 def load_search(study: Study) -> SearchSettings:

@@ -17,7 +17,7 @@ from models.evaluate import Conditions, Design, Targets
 from models.stages import STAGES, get_stage
 
 from .errors import InputError
-from .tables import build, check_keys, closest, number, read_toml, show, sub_table
+from .tables import build, check_keys, closest, micrometres, number, read_toml, show, sub_table
 from .techfile import load_tech
 
 STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
@@ -28,6 +28,14 @@ LOAD_KEYS = ("current", "capacitance")
 DRIVER_KEYS = ("compliance", "drive")
 TARGET_UNITS = {"iq_min": "A", "iq_max": "A", "iq_sigmas": "", "headroom_max": "V", "ab_min": "",
                 "area_max_um2": "", "fp2_min": "Hz", "layout_factor": ""}
+
+# The lowest value each target may take, and whether it must lie strictly above it.
+TARGET_FLOOR = {"iq_min": (0.0, False), "iq_max": (0.0, True), "iq_sigmas": (0.0, False),
+                "headroom_max": (0.0, True), "ab_min": (0.0, False), "area_max_um2": (0.0, True),
+                "fp2_min": (0.0, False), "layout_factor": (1.0, False)}
+# The highest supply a study may name [V]: integrated class-AB output stages run from a few
+# volts; anything far above is a typing or unit error ("common practice, no source").
+SUPPLY_CEILING_V = 60.0
 
 
 @dataclass(frozen=True)
@@ -99,6 +107,13 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     vnom = number(where, "supply", "nominal", supply["nominal"], "V")
     vmin = number(where, "supply", "min", supply.get("min", vnom), "V")
     vmax = number(where, "supply", "max", supply.get("max", vnom), "V")
+    if not 0 < vmin:
+        raise InputError(where, f"[supply] min = {vmin:g} V must be positive", f"0 < min <= nominal <= max <= "
+                         f"{SUPPLY_CEILING_V:g} V")
+    if vmax > SUPPLY_CEILING_V:
+        raise InputError(where, f"[supply] max = {vmax:g} V is above {SUPPLY_CEILING_V:g} V",
+                         f"0 < min <= nominal <= max <= {SUPPLY_CEILING_V:g} V",
+                         "an integrated output stage of this tool's scope runs from a few volts")
     if not vmin <= vnom <= vmax:
         raise InputError(where, f"[supply] min = {vmin:g} V, nominal = {vnom:g} V, max = {vmax:g} V is not in order",
                          "min <= nominal <= max", "the supply range looks inverted")
@@ -106,6 +121,10 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     cond_table = sub_table(where, "", "conditions", data.get("conditions", {}))
     check_keys(where, "conditions", cond_table, CONDITION_KEYS)
     temps_c = _list(where, "conditions", "temperatures_c", cond_table.get("temperatures_c", [27]), (int, float))
+    for t in temps_c:
+        if not -273.15 < t <= 400.0:  # also refuses nan and inf
+            raise InputError(where, f"[conditions] temperatures_c: {t!r} is not allowed",
+                             "finite temperatures in degC above absolute zero, up to 400")
     corner_names = _list(where, "conditions", "corners", cond_table.get("corners", ["tt"]))
     corners = []
     for name in corner_names:
@@ -129,6 +148,13 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     targets_t = sub_table(where, "", "targets", data.get("targets", {}))
     check_keys(where, "targets", targets_t, tuple(TARGET_UNITS))
     kw = {k: number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
+    for k, v in kw.items():
+        low, strict = TARGET_FLOOR[k]
+        if v < low or (strict and v == low):
+            unit = TARGET_UNITS[k] or "(no unit)"
+            raise InputError(where, f"[targets] {k} = {show(targets_t[k])} is not allowed",
+                             f"{'>' if strict else '>='} {low:g} {unit}",
+                             "a limit below zero reverses its check" if low == 0 else "")
     if "area_max_um2" in kw:
         kw["area_max"] = kw.pop("area_max_um2") * 1e-12
     drive = driver.get("drive", "both")
@@ -204,10 +230,8 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
 
 
 def _micrometres(where, table, key, value) -> float:
-    """A size: a plain number is micrometres; a string with a scale letter is metres."""
-    if isinstance(value, (int, float)) and not isinstance(value, bool):
-        return float(value) * 1e-6
-    return number(where, table, key, value, "m")
+    """A size: a plain number (also "60") is micrometres; a string with a scale letter is metres."""
+    return micrometres(where, table, key, value)
 
 
 def load_design(path, tech: Tech) -> Design:

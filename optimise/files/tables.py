@@ -6,6 +6,8 @@ from __future__ import annotations
 
 import datetime
 import difflib
+import math
+import re
 import tomllib
 from pathlib import Path
 
@@ -73,9 +75,32 @@ def number(where: str, table: str, key: str, value, unit: str) -> float:
         allowed = f"a number{unit_text}, or a string with a scale letter (f p n u m k meg g t) such as \"2.5u\""
         raise InputError(where, f"{table_prefix(table)}{key} = {show(value)} is not a number", allowed)
     try:
-        return parse_quantity(value, unit)
+        result = parse_quantity(value, unit)
     except (TypeError, ValueError) as err:
         raise InputError(where, f"{table_prefix(table)}{key}: {err}") from None
+    if not math.isfinite(result):
+        raise InputError(where, f"{table_prefix(table)}{key} = {show(value)} is not a finite number",
+                         "a finite number (nan and inf are never allowed: they would switch a check off)")
+    return result
+
+
+def plain_number(value) -> bool:
+    """Whether `value` is a number written without scale letter or unit (a TOML number, or
+    a string such as "60"): such a size is micrometres whichever way it is written."""
+    if isinstance(value, bool):
+        return False
+    if isinstance(value, (int, float)):
+        return True
+    return isinstance(value, str) and re.fullmatch(r"\s*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?\s*",
+                                                    value) is not None
+
+
+def micrometres(where: str, table: str, key: str, value) -> float:
+    """A size in metres: a plain number (also as a string) is micrometres; a string with a
+    scale letter ("60u", "0.35u") is metres."""
+    if plain_number(value):
+        return number(where, table, key, value, "") * 1e-6
+    return number(where, table, key, value, "m")
 
 
 def build(where: str, table: str, cls, kwargs: dict):
