@@ -68,8 +68,9 @@ def sub_table(where: str, parent: str, key: str, value) -> dict:
     return value
 
 
-def number(where: str, table: str, key: str, value, unit: str) -> float:
-    """One numeric value: a TOML number or a suffixed string, in `unit`."""
+def number(where: str, table: str, key: str, value, unit: str, allow_inf: bool = False) -> float:
+    """One numeric value: a TOML number or a suffixed string, in `unit`; nan is always
+    refused, +-inf unless `allow_inf` (a field whose docs give inf a meaning)."""
     if isinstance(value, (bool, dict, list, datetime.date, datetime.time)):
         unit_text = f" in {unit}" if unit else ""
         allowed = f"a number{unit_text}, or a string with a scale letter (f p n u m k meg g t) such as \"2.5u\""
@@ -78,7 +79,7 @@ def number(where: str, table: str, key: str, value, unit: str) -> float:
         result = parse_quantity(value, unit)
     except (TypeError, ValueError) as err:
         raise InputError(where, f"{table_prefix(table)}{key}: {err}") from None
-    if not math.isfinite(result):
+    if math.isnan(result) or (math.isinf(result) and not allow_inf):
         raise InputError(where, f"{table_prefix(table)}{key} = {show(value)} is not a finite number",
                          "a finite number (nan and inf are never allowed: they would switch a check off)")
     return result

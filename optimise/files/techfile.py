@@ -44,7 +44,9 @@ CORNERS = tuple(c.value for c in Corner)
 def _mos(where: str, table: str, data) -> MosTech:
     data = sub_table(where, "", table, data)
     check_keys(where, table, data, MOS_KEYS, MOS_KEYS)
-    values = {k: number(where, table, k, data[k], MOS_UNITS.get(k, "")) for k in MOS_KEYS}
+    # va_per_l = inf is the documented way to switch length modulation off.
+    values = {k: number(where, table, k, data[k], MOS_UNITS.get(k, ""), allow_inf=k == "va_per_l")
+              for k in MOS_KEYS}
     return build(where, table, MosTech, values)
 
 
