@@ -15,9 +15,13 @@ from . import CAUTION
 from .files.errors import InputError
 from .files.study import load_design, load_study
 from .files.units import format_eng
-from .review.evaluation import result_to_dict
+from .review.evaluation import json_safe, result_to_dict
 from .review.montecarlo import confirm_sigma
 from .search.runtime import keep_freed_memory
+
+# The most Monte Carlo samples one command draws: far beyond what a sigma needs, and below
+# what exhausts memory on a laptop ("common practice, no source").
+MAX_MONTECARLO = 1_000_000
 
 SUMMARY_UNITS = {
     "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",
@@ -87,12 +91,18 @@ def cmd_evaluate(args) -> int:
     out = result_to_dict(res)
     mc = None
     if args.montecarlo:
-        if args.montecarlo < 2:
-            raise InputError("--montecarlo", f"{args.montecarlo} samples is too few", ">= 2")
+        if not 2 <= args.montecarlo <= MAX_MONTECARLO:
+            raise InputError("--montecarlo", f"{args.montecarlo} samples is not allowed", f"2 to {MAX_MONTECARLO}",
+                             "10000 samples give the sigma to about 1 %")
         mc = confirm_sigma(design, study, args.montecarlo, args.seed, result=res)
         out["montecarlo"] = mc
     if args.json:
-        json.dump(out, sys.stdout, indent=1)
+        notes: list = []
+        out = json_safe(out, notes=notes)
+        if notes:  # the reason beside the null, where a reader of violations looks
+            out["violations"] = out["violations"] + [f"Monte Carlo: {n}" if n.startswith("montecarlo") else n
+                                                     for n in notes]
+        json.dump(out, sys.stdout, indent=1, allow_nan=False)
         print()
     else:
         _print_table(out, mc)

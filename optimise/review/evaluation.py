@@ -34,3 +34,17 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
         "summary": {name: _finite(v[i]) for name, v in res.summary.items()},
         "pvt": pvt,
     }
+
+
+def json_safe(obj, path: str = "", notes: list | None = None):
+    """A copy of `obj` with every nan or inf float replaced by null (JSON has neither),
+    each replacement listed in `notes` as "KEY is not a number (VALUE)"."""
+    if isinstance(obj, dict):
+        return {k: json_safe(v, f"{path}.{k}" if path else str(k), notes) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_safe(v, f"{path}[{i}]", notes) for i, v in enumerate(obj)]
+    if isinstance(obj, float) and not math.isfinite(obj):
+        if notes is not None:
+            notes.append(f"{path} is not a number ({obj}): written as null")
+        return None
+    return obj
