@@ -86,3 +86,10 @@ def test_grid_name_and_technology_stem_stay_inside_the_sweep(tmp_path, capsys, m
     for cell in loaded.cells:
         assert Path(cell.name).name == cell.name and cell.name not in (".", "..")
         assert ".." not in Path(cell.name).parts
+
+
+def test_negative_seed_is_refused(tmp_path, capsys):
+    study = tiny_study(tmp_path)
+    assert main(["optimise", str(study), "--out", str(tmp_path / "r"), "--seed", "-1"]) == 2
+    err = capsys.readouterr().err
+    assert "--seed" in err and "Traceback" not in err and not (tmp_path / "r").exists()

@@ -103,6 +103,8 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
                 "population": settings.population if population is None else population,
                 "generations": settings.generations if generations is None else generations,
                 "study_toml": meta["study_toml"], "inputs_sha256": digest}
+    if seed is not None and (not isinstance(seed, int) or seed < 0):
+        raise InputError("--seed", f"{seed} is not allowed", "a non-negative integer")
     for key in ("population", "generations"):
         if meta.get(key) is not None and meta[key] < (4 if key == "population" else 1):
             raise InputError(f"--{key}", f"{meta[key]} is too small", ">= 4" if key == "population" else ">= 1")
