@@ -95,9 +95,10 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
     stream = stream or sys.stdout
     study = load_study(study_path)
     settings = load_search(study)
-    digest = ckpt.text_hash(Path(study_path).read_text(), study.tech_path.read_text())
+    study_text = Path(study_path).read_text()
+    digest = ckpt.text_hash(study_text, study.tech_path.read_text())
     meta = {"seed": seed, "population": population, "generations": generations,
-            "study_toml": Path(study_path).read_text(), "inputs_sha256": digest}
+            "study_toml": study_text, "inputs_sha256": digest}
     if not resume:
         meta = {"seed": study.seed if seed is None else seed,
                 "population": settings.population if population is None else population,
