@@ -16,6 +16,7 @@ import numpy as np
 
 from .devices import mismatch as _mm
 from .devices.mos import gate_capacitance, inversion_coefficient
+from .devices.table import gate_capacitance_from, outside_table
 from .devices.tech import Corner, Tech
 from .operating import (
     corner_shifts,
@@ -34,7 +35,7 @@ __all__ = ["LIMIT_NAMES", "PVT_METRICS", "Conditions", "Design", "Result", "Targ
 
 def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     shifts_all, temp_all, vdd_all = cond_arrays
-    shifts = {p: (dv[idx_pvt], kp[idx_pvt]) for p, (dv, kp) in shifts_all.items()}
+    shifts = {p: tuple(a[idx_pvt] for a in v) for p, v in shifts_all.items()}
     temp = temp_all[idx_pvt]
     vdd = vdd_all[idx_pvt]
     devs = devices_at(stage, design, tech, shifts, temp, idx_design)
@@ -66,7 +67,19 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     for role in (stage.PULL_DOWN, stage.PULL_UP):
         dev = devs[role]
         mt = tech.mos(stage.TOPOLOGY.spec(role).polarity)
-        c_drive += gate_capacitance(mt, dev.w, dev.l, inversion_coefficient(dev.mos, dev.w, dev.l, iq))
+        if dev.tab is not None:  # the card's own cgg from the tables
+            c_drive += gate_capacitance_from(dev.tab, dev.mos, dev.w, dev.l, iq)
+        else:
+            c_drive += gate_capacitance(mt, dev.w, dev.l, inversion_coefficient(dev.mos, dev.w, dev.l, iq))
+    if tech.tables is not None:
+        # A rest point whose device voltages leave the tables would be an extrapolation, so
+        # it counts as not solved.
+        volts = {"out": 0.5 * vdd, **nodes, "vdd": vdd, "0": np.zeros_like(vdd)}
+        for spec in stage.TOPOLOGY.devices:
+            dev = devs[spec.role]
+            vb = volts[spec.s] if dev.tied else volts[spec.rail]
+            ok = ok & ~outside_table(dev.tab.table, *(spec.polarity * (volts[x] - vb) for x in (spec.g, spec.d, spec.s)),
+                                    dev.tab.dvt)
 
     res = {
         "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,

@@ -11,17 +11,27 @@ import numpy as np
 from .circuit.nodal import NodalSystem
 from .devices.device import Device, subset
 from .devices.mos import at_conditions
-from .devices.tech import CornerShift, Polarity, Tech
+from .devices.table_data import TableSelect
+from .devices.tech import Corner, CornerShift, Polarity, Tech
 from .numerics.roots import solve_bracketed
 from .records import Design
 
 
 def corner_shifts(tech: Tech, corner):
-    """Corner shifts per element: dict (polarity -> (dvt, kp factor)) of arrays (len(corner),)."""
+    """Corner shifts per element: dict (polarity -> (dvt, kp factor, table slot)) of arrays
+    (len(corner),); the slot is the corner's section in a table technology (else 0)."""
     table = {c: tech.corners.get(c, CornerShift()) for c in set(corner)}
+
+    def slots(pol):
+        if tech.tables is None:
+            return np.zeros(len(corner), dtype=np.int64)
+        return np.array([tech.tables[pol].slots[Corner(c).value] for c in corner], dtype=np.int64)
+
     return {
-        Polarity.N: (np.array([table[c].dvt_n for c in corner]), np.array([table[c].kp_n for c in corner])),
-        Polarity.P: (np.array([table[c].dvt_p for c in corner]), np.array([table[c].kp_p for c in corner])),
+        Polarity.N: (np.array([table[c].dvt_n for c in corner]), np.array([table[c].kp_n for c in corner]),
+                     slots(Polarity.N)),
+        Polarity.P: (np.array([table[c].dvt_p for c in corner]), np.array([table[c].kp_p for c in corner]),
+                     slots(Polarity.P)),
     }
 
 
@@ -31,9 +41,12 @@ def devices_at(stage, design: Design, tech: Tech, shifts, temp, idx_design, dvt=
     devs, mos = {}, {}
     for spec in stage.TOPOLOGY.devices:
         if spec.polarity not in mos:  # one set of constants per polarity, shared by its devices
-            dv, kp = shifts[spec.polarity]
+            dv, kp, *slot = shifts[spec.polarity]
+            select = None
+            if tech.tables is not None:
+                select = TableSelect(tech.tables[spec.polarity], slot[0] if slot else 0, temp)
             mos[spec.polarity] = at_conditions(tech.mos(spec.polarity), spec.polarity, tech.model, temp, tech.tnom,
-                                               dv, kp)
+                                               dv, kp, select)
         devs[spec.role] = Device(
             mos[spec.polarity],
             np.asarray(design.w[spec.role], dtype=float)[idx_design],

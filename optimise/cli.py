@@ -224,6 +224,18 @@ def add_handoff_commands(sub) -> None:
                                                        "sizes, grid and (without corner sections) corners from")
     p.add_argument("--name", help="technology name (default: the --out file's stem)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing --out file")
+    p.add_argument("--tables", action="store_true",
+                   help="write a table technology (model = \"table\"): the card tabulated by ngspice at every "
+                        "length, corner section and temperature, arrays in TECH.npz beside --out (recommended "
+                        "when a card is available: lengths may then differ per role)")
+    p.add_argument("--lmax", metavar="VALUE", help="with --tables: longest length tabulated (default 10 x lmin)")
+    p.add_argument("--table-lengths", metavar="L,...",
+                   help="with --tables: the lengths tabulated (default 12 log-spaced from lmin to lmax)")
+    p.add_argument("--temps", metavar="C,...", help="with --tables: temperatures in degC (default -40,27,125)")
+    p.add_argument("--wref", default="10u", metavar="VALUE",
+                   help="with --tables: reference width (default 10u); a narrow width (--wnarrow, default 1u) "
+                        "gives the narrow-width correction")
+    p.add_argument("--wnarrow", default="1u", metavar="VALUE", help="with --tables: the narrow width (default 1u)")
     p.set_defaults(func=cmd_calibrate)
 
 

@@ -29,6 +29,7 @@ class Mos:
     phi: float  # V                  surface potential (square law)
     ut: np.ndarray | float  # V      thermal voltage kT/q
     va_per_l: float  # V/m           Early voltage per metre of length
+    table: object = None  # table kind: `table_data.TableSelect` (corner slot, temperature)
 
 
 def at_conditions(
@@ -39,6 +40,7 @@ def at_conditions(
     tnom: float,
     dvt=0.0,
     kp_scale=1.0,
+    table=None,
 ) -> Mos:
     """Apply temperature and a corner shift to one polarity's constants.
 
@@ -58,6 +60,8 @@ def at_conditions(
         Corner shift added to the threshold magnitude [V].
     kp_scale : float or ndarray
         Corner factor on KP [1].
+    table : TableSelect, optional
+        Table kind: the tabulated device with each element's corner slot and temperature.
 
     Returns
     -------
@@ -80,6 +84,7 @@ def at_conditions(
         phi=mt.phi,
         ut=thermal_voltage(temp),
         va_per_l=mt.va_per_l,
+        table=table,
     )
 
 

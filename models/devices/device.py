@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import mos as _mos
+from . import table as _table
 from .tech import ModelKind
 
 
@@ -31,10 +32,22 @@ class Device:
     dvt: np.ndarray | float = 0.0
     dbeta: np.ndarray | float = 0.0
     ekv: tuple | None = field(init=False, repr=False, default=None)
+    tab: object = field(init=False, repr=False, default=None)  # table kind: TableConstants
 
     def __post_init__(self) -> None:
         if self.mos.kind is ModelKind.EKV:
             self.ekv = _mos.ekv_constants(self.mos, self.w, self.l, self.dvt, self.dbeta)
+        elif self.mos.kind is ModelKind.TABLE:
+            self._flat_table()
+
+    def _flat_table(self) -> None:
+        """Table kind: flatten every per-element field to the batch length and work out the
+        blending of the table slices once."""
+        arrays = [self.w, self.l, self.dvt, self.dbeta]
+        shape = _table._shape(self.mos, *arrays)
+        self.w, self.l, self.dvt, self.dbeta = _table._flat(shape, *arrays)
+        self.mos = _table._flat_mos(self.mos, shape)
+        self.tab = _table.constants(self.mos, self.w, self.l, self.dvt, self.dbeta)
 
     @property
     def p(self) -> int:
@@ -45,7 +58,10 @@ class Device:
         source voltages (source derivative includes the bulk when tied). Shape (m,)."""
         vb_eff = vs if self.tied else vb
         p = self.p
-        if self.ekv is None:
+        if self.tab is not None:
+            vb_b = np.broadcast_to(vb_eff, np.shape(self.w))
+            i, gg, gd, gs = _table.partials_from(self.tab, p * (vg - vb_b), p * (vd - vb_b), p * (vs - vb_b))
+        elif self.ekv is None:
             i, gg, gd, gs = _mos.current_partials(self.mos, self.w, self.l, vg, vd, vs, vb_eff, self.dvt, self.dbeta)
         elif p == 1:
             i, gg, gd, gs = _mos.ekv_terms(vg - vb_eff, vd - vb_eff, vs - vb_eff, *self.ekv)
@@ -62,6 +78,9 @@ class Device:
 
     def diode(self, i, vs, vb):
         """Gate = drain voltage of this device diode-connected, carrying frame current i."""
+        if self.tab is not None:
+            vs, vb, i = np.broadcast_arrays(*(np.asarray(a, float) for a in (vs, vb, i)))
+            return _table.diode_from(self.tab, self.mos, self.w, self.l, i, vs, vb, self.tied)
         if self.ekv is None:
             return _mos.diode_voltage(self.mos, self.w, self.l, i, vs, vs if self.tied else vb, self.dvt, self.dbeta)
         vg = self.gate_for(i, vs, vb, 0.0)
@@ -70,6 +89,13 @@ class Device:
 
     def gate_for(self, i, vs, vb, vds):
         """Gate voltage for frame current i in saturation (closed form)."""
+        if self.tab is not None:
+            vb_eff = np.broadcast_to(vs if self.tied else vb, np.shape(self.w))
+            vs_b = np.broadcast_to(vs, np.shape(self.w))
+            frame_vsb = self.p * (vs_b - vb_eff)
+            vds = _table._vds_for(np.broadcast_to(vds, np.shape(self.w)), self.tab.table.span)
+            ib = np.broadcast_to(i, np.shape(self.w))
+            return vb_eff + self.p * _table.gate_from(self.tab, self.mos, self.w, self.l, ib, frame_vsb, vds)
         if self.ekv is not None:
             vb_eff = vs if self.tied else vb
             p = self.p
@@ -78,11 +104,19 @@ class Device:
 
     def source_for(self, i, vg, vb, vds):
         """Source voltage for frame current i in saturation with the gate at vg."""
+        if self.tab is not None:
+            shape = np.shape(self.w)
+            vds = _table._vds_for(np.broadcast_to(vds, shape), self.tab.table.span)
+            return _table.source_from(self.tab, self.mos, self.w, self.l, np.broadcast_to(i, shape),
+                                      np.broadcast_to(vg, shape), np.broadcast_to(vb, shape), vds, self.tied)
         return _mos.source_voltage_sat(self.mos, self.w, self.l, i, vg, vb, vds, self.dvt, self.dbeta, self.tied)
 
     def vdsat(self, i, slope=False):
         """Saturation voltage at frame current i [V] (see `mos.saturation_voltage`), with
         its derivative with respect to |i| when `slope`."""
+        if self.tab is not None:
+            ia = np.broadcast_to(np.abs(i), np.shape(self.w))
+            return _table.saturation_from(self.tab, self.mos, self.w, self.l, ia, slope)
         return _mos.saturation_voltage(self.mos, self.w, self.l, i, slope)
 
 
@@ -98,7 +132,9 @@ def restricted(dev: Device, idx) -> Device:
         return a[idx] if a.ndim else a
 
     m = dev.mos
-    mos_sub = _mos.Mos(m.polarity, m.kind, pick(m.vt0), pick(m.kp), m.n, m.gamma, m.phi, pick(m.ut), m.va_per_l)
+    table = None if m.table is None else _table.TableSelect(m.table.table, pick(m.table.slot), pick(m.table.temp))
+    mos_sub = _mos.Mos(m.polarity, m.kind, pick(m.vt0), pick(m.kp), m.n, m.gamma, m.phi, pick(m.ut), m.va_per_l,
+                       table)
     return Device(mos_sub, pick(dev.w), pick(dev.l), dev.tied, pick(dev.dvt), pick(dev.dbeta))
 
 

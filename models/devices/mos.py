@@ -1,10 +1,12 @@
 """The device interface every stage uses, whatever the model kind: drain current with partial
 derivatives, closed-form inverses (gate and source voltage in saturation, diode voltage),
 saturation voltage and gate capacitance. Each kind's equations live in its own module
-(`ekv`, `square_law`); this one dispatches on `Mos.kind`.
+(`ekv`, `square_law`, `table`); this one dispatches on `Mos.kind`.
 
 Validity
 --------
+Table: the user's card tabulated by ngspice at every length, corner and temperature
+(`table_data`), interpolated with its derivatives; what the card models, the table holds.
 EKV: long-channel charge-sheet interpolation, weak through strong inversion, forward and
 reverse terms (so triode and saturation alike); constant slope factor n, so a source lifted
 above the bulk needs n times its lift more gate voltage (the body effect of this model).
@@ -35,7 +37,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import ekv, square_law
+from . import ekv, square_law, table
 from .conditions import (
     Mos,
     at_conditions,
@@ -61,7 +63,7 @@ __all__ = [
     "refine_diode", "saturation_voltage", "gate_capacitance",
 ]
 
-_KINDS = {ModelKind.EKV: ekv, ModelKind.SQUARE_LAW: square_law}
+_KINDS = {ModelKind.EKV: ekv, ModelKind.SQUARE_LAW: square_law, ModelKind.TABLE: table}
 
 
 def current_partials(m: Mos, w, l, vg, vd, vs, vb=0.0, dvt=0.0, dbeta=0.0):
@@ -132,6 +134,8 @@ def source_voltage_sat(m: Mos, w, l, i, vg, vb=0.0, vds=0.0, dvt=0.0, dbeta=0.0,
     EKV as in `gate_voltage_sat`; square law by solving the body-effect quadratic in
     sqrt(phi + VSB). Arguments as in `gate_voltage_sat`; returns the physical voltage.
     """
+    if m.kind is ModelKind.TABLE:  # the table knows VDS itself
+        return table.source_voltage_sat(m, w, l, i, vg, vb, vds, dvt, dbeta, tied)
     c = 1.0 + np.abs(vds) / early_voltage(m, l)
     return _KINDS[m.kind].source_voltage_sat(m, w, l, i, vg, vb, c, dvt, dbeta, tied)
 

@@ -17,6 +17,7 @@ class ModelKind(Enum):
 
     EKV = "ekv"
     SQUARE_LAW = "square-law"
+    TABLE = "table"  # the user's card tabulated by ngspice (`table_data`)
 
 
 class Polarity(IntEnum):
@@ -112,12 +113,24 @@ class Tech:
     grid: float  # m  drawing grid for W and L
     tnom: float  # K  temperature at which the device constants hold
     corners: dict[Corner, CornerShift] = field(default_factory=lambda: {Corner.TT: CornerShift()})
+    # Table kind only: per polarity the tabulated device (`table_data.PolarityTable`); the
+    # MosTech constants then summarise the card (start values, mismatch, drawing rules).
+    tables: dict | None = None
+    card: tuple | None = None  # table kind: (card path, NMOS model, PMOS model) tabulated
 
     def __post_init__(self) -> None:
         check_range("grid", self.grid, 1e-10, 1e-6, "m")
         check_range("tnom", self.tnom, 200.0, 450.0, "K")
         if Corner.TT not in self.corners:
             raise ValueError("corners must include tt (the typical corner)")
+        if (self.model is ModelKind.TABLE) != (self.tables is not None):
+            raise ValueError("a table technology needs its device tables, and only it has them")
+        if self.tables is not None:
+            for pol in (Polarity.N, Polarity.P):
+                missing = [c.value for c in self.corners if c.value not in self.tables[pol].slots]
+                if missing:
+                    raise ValueError(f"the {'NMOS' if pol == Polarity.N else 'PMOS'} tables have no corner "
+                                     f"{', '.join(missing)}")
 
     def mos(self, polarity: Polarity) -> MosTech:
         """The constants of one polarity."""

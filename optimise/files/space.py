@@ -30,6 +30,7 @@ from models.evaluate import Design
 from models.stages import get_stage
 
 from .errors import InputError
+from .techfile import check_table_size
 from .study import Study
 from .tables import check_keys, closest, micrometres, number, show, sub_table
 
@@ -234,6 +235,8 @@ def _space(where, arch, bounds, ties, tech) -> Space:
             if lo < minimum * (1 - 1e-9):
                 raise InputError(where, f"[{table}.{role}] {key} lower bound {lo * 1e6:g} um is below the "
                                         f"technology minimum", f">= {minimum * 1e6:g} um ({tech.name})")
+        check_table_size(where, f"{table}.{role}", "w", w[0], tech, pol[role])
+        check_table_size(where, f"{table}.{role}", "l", list(l), tech, pol[role])
         variables += [Variable(f"{role}.w", "w", role, *w), Variable(f"{role}.l", "l", role, *l)]
         bulk_v = spec.get("bulk", "rail")
         if bulk_v not in ("rail", "source"):

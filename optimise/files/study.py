@@ -18,7 +18,7 @@ from models.stages import STAGES, get_stage
 
 from .errors import InputError
 from .tables import build, check_keys, closest, micrometres, number, read_toml, show, sub_table
-from .techfile import load_tech
+from .techfile import check_table_size, check_table_temperatures, load_tech
 
 STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
               "driver", "targets", "objectives", "bounds", "ties", "search")
@@ -140,6 +140,13 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
         conditions = Conditions(tuple(corners), tuple(t + ZERO_CELSIUS for t in temps_c), vnom, vmin, vmax)
     except ValueError as err:
         raise InputError(where, f"[supply]/[conditions] {err}") from None
+    check_table_temperatures(where, [t + ZERO_CELSIUS for t in temps_c], tech)
+    if tech.tables is not None:
+        span = min(t.span for t in tech.tables.values())
+        if vmax > span + 1e-9:
+            raise InputError(where, f"[supply] max = {vmax:g} V is above the tabulated voltages of {tech.name} "
+                                    f"(up to {span:g} V)", f"<= {span:g} V",
+                             "tabulate higher voltages with stagefront calibrate --tables --vdd")
 
     load = sub_table(where, "", "load", data["load"])
     check_keys(where, "load", load, LOAD_KEYS, LOAD_KEYS)
@@ -207,6 +214,7 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
             if not value >= minimum * (1 - 1e-9):
                 raise InputError(where, f"[{table}] {key} = {value * 1e6:g} um is below the technology minimum",
                                  f">= {minimum * 1e6:g} um ({tech.name})")
+            check_table_size(where, table, key, value, tech, polarity)
             store[role] = np.array([value])
         bulk = dev.get("bulk", "rail")
         if bulk not in ("rail", "source"):

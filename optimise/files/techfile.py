@@ -3,7 +3,7 @@
 Format (every number SI, or a string with an engineering suffix such as "280u")::
 
     name = "demo180-invented"
-    model = "ekv"            # or "square-law"
+    model = "ekv"            # or "square-law", or "table" (then a [table] section)
     tnom = 300.15            # K, optional (default models.devices.constants.T_NOMINAL)
     grid = "5n"              # m, drawing grid
     [nmos]                   # every MosTech field: vt0 kp n gamma phi va_per_l tc_vt
@@ -13,6 +13,11 @@ Format (every number SI, or a string with an engineering suffix such as "280u"):
     [corners.ff]             # optional; any of tt ff ss fs sf; tt defaults to no shift
     dvt_n = -0.05            # V added to the NMOS threshold magnitude
     kp_n = 1.1               # factor on the NMOS KP (likewise dvt_p, kp_p)
+    [table]                  # model = "table" only: the card tabulated (calibrate --tables)
+    file = "NAME.npz"        # the arrays, relative to this file
+    card = "CARD.lib"        # optional: the card tabulated, for verify (and its model names
+    nmos = "nch"             #   nmos, pmos); the [nmos]/[pmos] constants then summarise the
+    pmos = "pch"             #   card (start values), mismatch and drawing rules hold as ever
 
 Every problem raises `InputError` naming the file, the key as a table path, the value and
 what is allowed; nothing else escapes `load_tech`.
@@ -20,6 +25,7 @@ what is allowed; nothing else escapes `load_tech`.
 from __future__ import annotations
 
 import dataclasses
+from pathlib import Path
 
 from models.devices.constants import T_NOMINAL
 from models.devices.tech import Corner, CornerShift, ModelKind, MosTech, Tech
@@ -34,7 +40,8 @@ MOS_UNITS = {
     "w_min": "m", "l_min": "m",
 }  # fmt: skip
 CORNER_UNITS = {"dvt_n": "V", "kp_n": "", "dvt_p": "V", "kp_p": ""}
-TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners")
+TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table")
+TABLE_KEYS = ("file", "card", "nmos", "pmos")
 TOP_REQUIRED = ("name", "model", "grid", "nmos", "pmos")
 MOS_KEYS = tuple(f.name for f in dataclasses.fields(MosTech))
 MODELS = tuple(k.value for k in ModelKind)
@@ -63,7 +70,27 @@ def _corners(where: str, data) -> dict[Corner, CornerShift]:
     return shifts
 
 
-def tech_from_dict(data: dict, where: str = "<technology>") -> Tech:
+def _table(where: str, data, base_dir):
+    """The `[table]` section of a table technology: its arrays, and the card they came from."""
+    from .tablefile import load_tables
+
+    data = sub_table(where, "", "table", data)
+    check_keys(where, "table", data, TABLE_KEYS, ("file",))
+    for key in TABLE_KEYS:
+        if key in data and (not isinstance(data[key], str) or not data[key].strip()):
+            raise InputError(where, f"table.{key} = {show(data[key])} is not a name", "a non-empty string")
+    if base_dir is None:
+        raise InputError(where, "a table technology read from text has no folder to find table.file in",
+                         hint="read it from its file")
+    file = Path(base_dir) / data["file"]
+    tables = load_tables(file, f"{where}: table.file {data['file']!r} ({file})")
+    card = None
+    if "card" in data:
+        card = (str(Path(base_dir) / data["card"]), data.get("nmos", "nch"), data.get("pmos", "pch"))
+    return tables, card
+
+
+def tech_from_dict(data: dict, where: str = "<technology>", base_dir=None) -> Tech:
     """Check and convert the parsed contents of a technology file.
 
     Parameters
@@ -72,6 +99,9 @@ def tech_from_dict(data: dict, where: str = "<technology>") -> Tech:
         The table `tomllib` returns for a technology file.
     where : str
         Name used at the start of error messages (normally the file path).
+
+    base_dir : path, optional
+        Folder that relative paths of a table technology's `[table]` section start from.
 
     Returns
     -------
@@ -103,6 +133,13 @@ def tech_from_dict(data: dict, where: str = "<technology>") -> Tech:
         "tnom": number(where, "", "tnom", data["tnom"], "K") if "tnom" in data else T_NOMINAL,
         "corners": _corners(where, data["corners"]) if "corners" in data else {Corner.TT: CornerShift()},
     }
+    if kwargs["model"] is ModelKind.TABLE:
+        if "table" not in data:
+            raise InputError(where, "model = \"table\" without a [table] section",
+                             hint="a table technology names its array file: [table] file = \"NAME.npz\"")
+        kwargs["tables"], kwargs["card"] = _table(where, data["table"], base_dir)
+    elif "table" in data:
+        raise InputError(where, f"a [table] section with model = \"{model}\"", "[table] only with model = \"table\"")
     return build(where, "", Tech, kwargs)
 
 
@@ -126,4 +163,33 @@ def load_tech(path) -> Tech:
         `tech_from_dict`. Every message starts with the path.
     """
     data = read_toml(path, hint="shipped technologies are in studies/tech/")
-    return tech_from_dict(data, str(path))
+    return tech_from_dict(data, str(path), Path(path).parent)
+
+
+def check_table_size(where: str, table: str, key: str, values, tech: Tech, polarity) -> None:
+    """A table technology holds lengths and widths only where it was tabulated: raise
+    InputError naming the key and the tabulated range when `values` [m] ("w" or "l") leave
+    it (no-op for the analytic kinds)."""
+    from models.devices.table_data import check_lengths, check_widths
+
+    if tech.tables is None:
+        return
+    try:
+        (check_lengths if key == "l" else check_widths)(tech.tables[polarity], values, key)
+    except ValueError as err:
+        raise InputError(where, f"[{table}] {err}", hint=f"the device tables of {tech.name}; tabulate more "
+                                                         "lengths with stagefront calibrate --tables") from None
+
+
+def check_table_temperatures(where: str, temps_k, tech: Tech) -> None:
+    """InputError when a study temperature lies outside a table technology's temperatures."""
+    from models.devices.table_data import check_temperatures
+
+    if tech.tables is None:
+        return
+    for t in tech.tables.values():
+        try:
+            check_temperatures(t, temps_k)
+        except ValueError as err:
+            raise InputError(where, f"[conditions] temperatures_c: {err}",
+                             hint="tabulate them with stagefront calibrate --tables --temps") from None

@@ -274,6 +274,13 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
     lengths = tuple(sorted(lengths)) if lengths else tuple(lmin * f for f in LENGTH_FACTORS)
     if lengths[0] < lmin * (1 - 1e-9):
         raise InputError("--lengths", f"{format_eng(lengths[0], 'm')} is below --lmin {format_eng(lmin, 'm')}")
+    with_tables = getattr(args, "tables", False)
+    if with_tables:
+        from .tabletech import table_options
+
+        if args.kind != "ekv":
+            raise InputError("--kind", f"{args.kind} with --tables", "ekv (the summary fit of a table technology)")
+        options = table_options(args, lmin, vdd)
     tb.require_ngspice()
     kind = ModelKind(args.kind)
     cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
@@ -283,13 +290,20 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"
                + (f" --lengths {args.lengths}" if args.lengths else "") + f" --vdd {args.vdd}"
                + (f" --base {args.base}" if args.base else "") + (f" --name {args.name}" if args.name else "")
-               + f" --out {args.out}")
+               + (" --tables" if with_tables else "") + f" --out {args.out}")
     text = tech_toml(cal, name, models, lmin, base, command)
     try:
         tech_from_dict(tomllib.loads(text), str(out))  # the file must load as it will be read
     except InputError as err:
         raise InputError(f"--out {out}", f"the fitted technology does not pass the technology checks: {err}",
                          hint="check the model card, --vdd and --lengths") from None
+    if with_tables:
+        from .tabletech import write_table_tech
+
+        write_table_tech(text, out, models, options, vdd, err_stream)
+        load_tech(out)  # the written pair must load as it will be read
+        print(f"technology: {out} (tables: {out.with_suffix('.npz')})", file=stream)
+        return 0
     write_text(out, text)
     print(f"technology: {out}", file=stream)
     return 0

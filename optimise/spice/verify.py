@@ -204,6 +204,10 @@ def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmo
 def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log, trust=False) -> int:
     """The body of `verify_run`, with the run folder locked."""
     ids = choose_rows(front, rows, all_rows)
+    if not models_path and study.tech.card is not None:
+        # A table technology records the card it tabulates: verify against that card.
+        models_path, nmos, pmos = study.tech.card
+        log(f"using the card {models_path} that {study.tech.name} tabulates")
     models = tb.load_models(models_path, nmos, pmos, trust=trust) if models_path else tb.ModelSource()
     tb.require_ngspice()
     cond = study.conditions
