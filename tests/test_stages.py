@@ -550,7 +550,7 @@ def test_every_accepted_rest_point_balances_kirchhoff(demo, architecture, model)
         k = len(vdd)
         idx_d, idx_p = np.repeat(np.arange(n), k), np.tile(np.arange(k), n)
         shifts = corner_shifts(study.tech, corner)
-        devs = devices_at(stage, design, study.tech, {p: (a[idx_p], b[idx_p]) for p, (a, b) in shifts.items()},
+        devs = devices_at(stage, design, study.tech, {p: tuple(a[idx_p] for a in v) for p, v in shifts.items()},
                           temp[idx_p], idx_d)
         b_flat = {key: v[idx_d] for key, v in bias.items()}
         nodes, ok, _, _ = rest_point(stage, devs, b_flat, vdd[idx_p])
