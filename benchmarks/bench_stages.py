@@ -7,7 +7,11 @@ x 3 supplies = 15 PVT points, on the invented demo350 process. Population sizes 
 around the demo designs (log-uniform factors), so the solver sees varied operating points.
 
     python3 benchmarks/bench_stages.py [--designs 10000] [--arch floating-loop] [--chunk 8192]
-                                       [--glibc-default]
+                                       [--glibc-default] [--table]
+
+--table runs the 1.8 V demo study instead: its table technology (the BSIM3v3 card
+tabulated) beside the card's single-length EKV calibration, on the same designs in the same
+run (lengths kept inside the tables, 0.18-1.8 um; widths from 1 um).
 
 Like the stagefront command, the benchmark asks glibc to keep freed memory for reuse
 (optimise.search.runtime); --glibc-default measures without that.
@@ -26,17 +30,18 @@ from models.devices.constants import ZERO_CELSIUS
 from models.devices.tech import Corner
 from models.evaluate import Conditions, Design, evaluate
 from optimise.files.study import load_design, load_study
+from optimise.files.techfile import load_tech
 from optimise.search.runtime import keep_freed_memory
 
 ROOT = Path(__file__).resolve().parent.parent
 
 
-def population(base: Design, n: int, rng: np.random.Generator) -> Design:
+def population(base: Design, n: int, rng: np.random.Generator, lmin=0.35e-6, lmax=np.inf, wmin=0.0) -> Design:
     """n designs spread log-uniformly over a factor of 2 around `base`."""
     def spread(a):
         return np.repeat(a, n) * np.exp(rng.uniform(-0.7, 0.7, n))
-    return Design(base.architecture, {k: spread(v) for k, v in base.w.items()},
-                  {k: np.maximum(spread(v), 0.35e-6) for k, v in base.l.items()},
+    return Design(base.architecture, {k: np.maximum(spread(v), wmin) for k, v in base.w.items()},
+                  {k: np.clip(spread(v), lmin, lmax) for k, v in base.l.items()},
                   {k: spread(v) for k, v in base.bias.items()}, base.tied)
 
 
@@ -48,29 +53,38 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--glibc-default", action="store_true",
                     help="leave glibc's memory trimming as it is (the stagefront command changes it)")
+    ap.add_argument("--table", action="store_true", help="table technology beside EKV on the 1.8 V study")
     args = ap.parse_args()
     if not args.glibc_default:
         keep_freed_memory()
-    study = load_study(ROOT / "studies" / "sensor-buffer.toml")
-    cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 3.3, 2.7, 3.6)
+    if args.table:
+        study = load_study(ROOT / "studies" / "sensor-buffer-180.toml")
+        techs = [("ekv", load_tech(ROOT / "studies" / "tech" / "demo180-bsim3-calibrated.toml")), ("table", study.tech)]
+        cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 1.8, 1.62, 1.98)
+        limits = {"lmin": 0.18e-6, "lmax": 1.8e-6, "wmin": 1e-6}
+    else:
+        study = load_study(ROOT / "studies" / "sensor-buffer.toml")
+        techs = [("", study.tech)]
+        cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 3.3, 2.7, 3.6)
+        limits = {}
     archs = study.architectures if args.arch == "all" else (args.arch,)
     print(f"grid: {len(cond.corners)} corners x {len(cond.temps)} temperature x {len(cond.supplies)} supplies "
           f"= {len(cond.grid()[2])} PVT points; {args.designs} designs; chunk {args.chunk}")
-    for arch in archs:
-        base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", study.tech)
-        pop = population(base, args.designs, np.random.default_rng(0))
-        evaluate(population(base, 64, np.random.default_rng(1)), study.tech, cond, study.targets)  # warm-up
+    for arch, (label, tech) in ((a, t) for a in archs for t in techs):
+        base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", tech)
+        pop = population(base, args.designs, np.random.default_rng(0), **limits)
+        evaluate(population(base, 64, np.random.default_rng(1), **limits), tech, cond, study.targets)  # warm-up
         best, cpu = np.inf, 0.0
         for _ in range(args.repeat):
             t0, c0 = time.perf_counter(), time.process_time()
-            res = evaluate(pop, study.tech, cond, study.targets, chunk=args.chunk)
+            res = evaluate(pop, tech, cond, study.targets, chunk=args.chunk)
             if time.perf_counter() - t0 < best:
                 best, cpu = time.perf_counter() - t0, time.process_time() - c0
         tracemalloc.start()
-        evaluate(pop, study.tech, cond, study.targets, chunk=args.chunk)
+        evaluate(pop, tech, cond, study.targets, chunk=args.chunk)
         _, peak = tracemalloc.get_traced_memory()
         tracemalloc.stop()
-        print(f"{arch:14s} {args.designs / best:10.0f} designs/s  ({best:.3f} s best of {args.repeat}, "
+        print(f"{arch + (' ' + label if label else ''):20s} {args.designs / best:10.0f} designs/s  ({best:.3f} s best of {args.repeat}, "
               f"CPU/wall {cpu / best:.2f}; {res.converged.mean() * 100:.2f} % of points converged; "
               f"peak numpy memory {peak / 2**20:.0f} MiB)")
     print(f"process max RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MiB")

@@ -31,8 +31,11 @@ interpolate a slowly varying function. Then:
 - VSB: cubic Hermite between nodes with dy/dVSB = -gmbs/I from ngspice;
 - length: linear in ln L between tabulated lengths; temperature: linear between tabulated
   temperatures (exact at them).
-The current scales as W / w_ref (narrow-width effects are those of w_ref); a mismatch
-threshold deviation shifts VGS, a current-factor deviation scales the current.
+The current scales as W / w_ref, corrected for narrow width: a second width w_narrow is
+tabulated too (drain current), and its threshold shift and current factor against w_ref at
+each VSB node enter linearly in 1/W (exact at both widths, towards 1/W = 0 for wider
+devices). A mismatch threshold deviation shifts VGS, a current-factor deviation scales the
+current.
 
 Outside the table: lengths and temperatures outside the tabulated range are refused by the
 callers before any solve (`check_lengths`, `check_temperatures`). During a Newton iteration
@@ -72,7 +75,7 @@ class PolarityTable:
     w_ref: float  # m
     slots: dict[str, int]
     data: dict[str, np.ndarray]
-    w_narrow: float  # m  the narrow width of data["id_narrow"] (VSB = 0 only)
+    w_narrow: float  # m  the narrow width of data["id_narrow"]
     _cells: tuple | None = field(default=None, repr=False)
     _lock: threading.Lock = field(default_factory=threading.Lock, repr=False)
 
@@ -115,8 +118,8 @@ def check_table(t: PolarityTable) -> None:
     if len(t.vsb) < 3 or t.vsb[-1] <= 0 or not np.allclose(t.vsb, t.vsb[-1] * k**2, rtol=1e-9, atol=1e-12):
         raise ValueError("vsb must hold at least 3 values top * (k / (n - 1))^2, k = 0 .. n - 1")
     a = t.data.get("id_narrow")
-    if a is None or a.shape != shape[:3] + shape[4:] or not np.all(np.isfinite(a)):
-        raise ValueError(f"array 'id_narrow' must be finite with shape {shape[:3] + shape[4:]}")
+    if a is None or a.shape != shape or not np.all(np.isfinite(a)):
+        raise ValueError(f"array 'id_narrow' must be finite with shape {shape}")
     if not 0 < t.w_narrow < t.w_ref:
         raise ValueError(f"w_narrow = {t.w_narrow!r} m must lie between 0 and w_ref = {t.w_ref!r} m")
     for name, axis in (("lengths", t.lengths), ("temps", t.temps)):
@@ -191,21 +194,22 @@ def _threshold(t: PolarityTable, y) -> np.ndarray:
 
 
 def _narrow(t: PolarityTable, y, vt):
-    """Narrow-width correction per slice at VSB = 0: the threshold shift of w_narrow against
-    w_ref and the log ratio of their currents per width at the same overdrive (0.5 V above
-    threshold). Both enter linearly in 1/W (`constants`). Shapes (n_slices,)."""
+    """Narrow-width correction per (slice, VSB node): the threshold shift of w_narrow
+    against w_ref and the log ratio of their currents per width at the same overdrive
+    (0.5 V above threshold). Both enter linearly in 1/W (`_forward`). Shapes (n_slices,
+    n_vsb)."""
     kd = _mid_vds(t)
-    lengths = t.lengths[None, None, :, None]
-    g = -np.expm1(-t.vds[kd] / thermal_voltage(t.temps))[None, :, None, None]
+    lengths = t.lengths[None, None, :, None, None]
+    g = -np.expm1(-t.vds[kd] / thermal_voltage(t.temps))[None, :, None, None, None]
     i_n = np.maximum(np.abs(t.data["id_narrow"][..., kd, :].astype(float)), _FLOOR)
     yn = np.log(i_n * lengths * (t.w_ref / t.w_narrow) / g).reshape(-1, len(t.vgs))
-    yr = y[..., 0, kd, :].reshape(-1, len(t.vgs))
-    vt_n = _crossing(t, yn, np.log(1e-7 * t.w_ref))
-    dvt = vt_n - vt[:, 0]
-    v_on = np.minimum(vt[:, 0] + 0.5, t.vgs[-1] - 0.5)
-    rows = np.arange(len(yr))
-    ratio = np.array([np.interp(v_on[r] + dvt[r], t.vgs, yn[r]) - np.interp(v_on[r], t.vgs, yr[r]) for r in rows])
-    return dvt, ratio
+    yr = y[..., kd, :].reshape(-1, len(t.vgs))
+    vt_r = vt.reshape(-1)
+    dvt = _crossing(t, yn, np.log(1e-7 * t.w_ref)) - vt_r
+    v_on = np.minimum(vt_r + 0.5, t.vgs[-1] - 0.5)
+    ratio = np.array([np.interp(v_on[r] + dvt[r], t.vgs, yn[r]) - np.interp(v_on[r], t.vgs, yr[r])
+                      for r in range(len(yr))])
+    return dvt.reshape(vt.shape), ratio.reshape(vt.shape)
 
 
 def _build_cells(t: PolarityTable):
@@ -274,6 +278,7 @@ class TableConstants:
     dvt: np.ndarray  # (m,) V
     ut: np.ndarray  # (m,) V
     width_scale: np.ndarray  # (m,) W / w_ref, for quantities that scale with W alone
+    narrow: np.ndarray  # (m,) (1/W - 1/w_ref) / (1/w_narrow - 1/w_ref): weight of the narrow-width correction
 
 
 def constants(m: Mos, w, l, dvt=0.0, dbeta=0.0) -> TableConstants:
@@ -302,14 +307,10 @@ def constants(m: Mos, w, l, dvt=0.0, dbeta=0.0) -> TableConstants:
     slot = slot.astype(np.int64)
     base = np.stack([(slot * nt + kt + dt) * nl + kl + dl for (dl, dt), _ in pairs], -1)
     weight = np.stack([wgt for _, wgt in pairs], -1)
-    # Narrow width: threshold shift and current factor, linear in 1/W between w_narrow and
-    # w_ref (and on towards 1/W = 0 for wider devices).
-    dvt_n, ratio_n = t.cells()[3]
+    # Narrow width: its threshold shift and current factor enter linearly in 1/W between
+    # w_narrow and w_ref (and on towards 1/W = 0 for wider devices), at each VSB (`_forward`).
     f = (1.0 / w - 1.0 / t.w_ref) / (1.0 / t.w_narrow - 1.0 / t.w_ref)
-    dvt_w = f * np.sum(weight * dvt_n[base], axis=1)
-    scale_w = np.exp(f * np.sum(weight * ratio_n[base], axis=1))
-    return TableConstants(t, base, weight, (1.0 + dbeta) * scale_w * w / (t.w_ref * l), dvt + dvt_w, ut,
-                          w / t.w_ref)
+    return TableConstants(t, base, weight, (1.0 + dbeta) * w / (t.w_ref * l), dvt, ut, w / t.w_ref, f)
 
 
 def _powers(x):
@@ -326,7 +327,7 @@ def _forward(c: TableConstants, vgs, vds, vsb):
     the aligned surfaces nearly coincide and the blend is accurate on a coarse VSB grid.
     """
     t = c.table
-    cells, vt_nodes, dvt_nodes, _ = t.cells()
+    cells, vt_nodes, dvt_nodes, (wvt_nodes, wlog_nodes) = t.cells()
     nvgs, nvds, nvsb = len(t.vgs), len(t.vds), len(t.vsb)
     hg = t.vgs[1] - t.vgs[0]
     xd = np.sqrt(np.maximum(vds, 0.0) / t.span) * (nvds - 1)
@@ -345,11 +346,17 @@ def _forward(c: TableConstants, vgs, vds, vsb):
     node = np.stack([isb, isb + 1], -1)[:, None, :]  # (m, 1, 2)
     vt_j = vt_nodes[c.base[:, :, None], node]  # (m, k, 2)
     dv_j = dvt_nodes[c.base[:, :, None], node] * hsb[:, None, None]
+    # The instance's own thresholds: the reference width's plus its narrow-width shift.
+    fw = c.narrow[:, None, None]
+    wvt = wvt_nodes[c.base[:, :, None], node]
+    own_j = vt_j + fw * wvt
+    own_dv = dv_j + fw * np.gradient(wvt_nodes, t.vsb, axis=-1)[c.base[:, :, None], node] * hsb[:, None, None]
+    wlog = fw * wlog_nodes[c.base[:, :, None], node]  # log current factor at each node
     r = rs[:, None]
     h00, h10, h01, h11 = 1 - 3 * r**2 + 2 * r**3, r - 2 * r**2 + r**3, 3 * r**2 - 2 * r**3, r**3 - r**2
-    vt_q = h00 * vt_j[..., 0] + h10 * dv_j[..., 0] + h01 * vt_j[..., 1] + h11 * dv_j[..., 1]  # (m, k)
-    dvt_q = ((-6 * r + 6 * r**2) * vt_j[..., 0] + (1 - 4 * r + 3 * r**2) * dv_j[..., 0]
-             + (6 * r - 6 * r**2) * vt_j[..., 1] + (3 * r**2 - 2 * r) * dv_j[..., 1]) / hsb[:, None]
+    vt_q = h00 * own_j[..., 0] + h10 * own_dv[..., 0] + h01 * own_j[..., 1] + h11 * own_dv[..., 1]  # (m, k)
+    dvt_q = ((-6 * r + 6 * r**2) * own_j[..., 0] + (1 - 4 * r + 3 * r**2) * own_dv[..., 0]
+             + (6 * r - 6 * r**2) * own_j[..., 1] + (3 * r**2 - 2 * r) * own_dv[..., 1]) / hsb[:, None]
     vg_j = vgs[:, None, None] - vt_q[..., None] + vt_j  # (m, k, 2)
     xg = (vg_j - t.vgs[0]) / hg
     ig = np.clip(np.floor(xg), 0, nvgs - 2).astype(np.int64)
@@ -364,7 +371,7 @@ def _forward(c: TableConstants, vgs, vds, vsb):
     val = np.einsum("mkjb,mkjb->mkj", a_d, pg)
     d_g = np.einsum("mkjb,mkjb->mkj", a_d, dpg) / hg
     d_d = np.einsum("mkjab,ma,mkjb->mkj", a, dpd, pg) / hd[:, None, None]
-    val = val + d_g * (tg - tg_c) * hg  # beyond the VGS grid: linear (Newton iterates only)
+    val = val + d_g * (tg - tg_c) * hg + wlog  # beyond the VGS grid: linear (Newton iterates only)
     wj = np.stack([1.0 - rs, rs], -1)[:, None, :] * c.weight[:, :, None]  # (m, k, 2)
     y = np.sum(wj * val, axis=(1, 2))
     y_g = np.sum(wj * d_g, axis=(1, 2))

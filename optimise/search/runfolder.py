@@ -96,7 +96,9 @@ def study_of_run(run_path: Path, record: dict) -> Study:
     path = Path(str(record.get("study", "study")))
     path = path if path.stem else Path("study.toml")
     try:
-        tech = tech_from_dict(loads_toml(tech_text, where), where)
+        # A table technology's arrays stay beside the technology file the run names.
+        tech_dir = Path(str(record.get("technology", ""))).parent
+        tech = tech_from_dict(loads_toml(tech_text, where), where, tech_dir)
         return study_from_dict(loads_toml(study_text, where), path, tech)
     except InputError as err:
         raise InputError(where, f"its copy of the study cannot be read again: {err.what}", err.allowed,

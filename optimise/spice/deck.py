@@ -168,6 +168,8 @@ def write_netlist(run, row_id: str, models_path=None, nmos: str = "nch", pmos: s
     """`stagefront netlist`: write the netlist of one row to `out` (atomically) or `stream`."""
     study, front, _ = load_run(run)
     _, design = row_design(front, row_id)
+    if not models_path and study.tech.card is not None:  # a table technology names its card
+        models_path, nmos, pmos = study.tech.card
     models = tb.load_models(models_path, nmos, pmos, trust=trust) if models_path else tb.ModelSource()
     try:
         c = Corner(corner)

@@ -9,7 +9,7 @@ and a drain node following the two swept sources through unit-gain controlled so
 length at the reference width. ngspice's own instance values (id, gm, gds, gmbs and the
 capacitances cgg, cgs, cgd, cdd) are saved for every device and point. Identical corner
 sections of one polarity (e.g. the NMOS of ff and fs) are stored once. A second, narrow
-width is swept at VSB = 0 for the narrow-width correction (`models.devices.table_data`).
+width (its drain current only) gives the narrow-width correction (`models.devices.table_data`).
 Currents and conductances are stored as float32, the capacitances per width in fF/um as
 float16 (three significant digits, ample for an early-design estimate).
 """
@@ -72,11 +72,11 @@ def _deck(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, w_ref:
                 lines.append(f"{name} {d} {g} {s} 0 {model} w={w_ref!r} l={float(length)!r}")
                 names[(pol, j, k)] = name
                 saves += [f"@{name}[{q}]" for q in QUANTITIES]
-                if j == 0:  # the narrow width, at VSB = 0: its threshold and current factor
-                    name = f"m{tag}nx{k}"
-                    lines.append(f"{name} {d} {g} {s} 0 {model} w={w_narrow!r} l={float(length)!r}")
-                    names[(pol, "narrow", k)] = name
-                    saves.append(f"@{name}[id]")
+                # The narrow width: its threshold and current factor at this VSB.
+                name = f"m{tag}{j}nx{k}"
+                lines.append(f"{name} {d} {g} {s} 0 {model} w={w_narrow!r} l={float(length)!r}")
+                names[(pol, "narrow", j, k)] = name
+                saves.append(f"@{name}[id]")
     for start in range(0, len(saves), 8):
         lines.append(".save " + " ".join(saves[start:start + 8]))
     lines.append(".save v(vgs) v(vds)")
@@ -88,7 +88,7 @@ def _deck(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, w_ref:
 
 def _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow):
     """One (section, temperature): polarity -> dict of arrays (n_lengths, n_vsb, n_vds, n_vgs),
-    and "id_narrow" (n_lengths, n_vds, n_vgs)."""
+    and "id_narrow", the current at the narrow width, of the same shape."""
     vgs, vds, vsb = axes
     deck, names = _deck(models, corner, temp_c, lengths, w_ref, axes, w_narrow)
     res = ngspice.run(deck, timeout=timeout)
@@ -109,7 +109,8 @@ def _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow):
                 name = names[(pol, j, k)]
                 for q in QUANTITIES:
                     arrays[q][k, j] = ngspice.vector(res, f"@{name}[{q}]").reshape(shape)
-        arrays["id_narrow"] = np.stack([ngspice.vector(res, f"@{names[(pol, 'narrow', k)]}[id]").reshape(shape)
+        arrays["id_narrow"] = np.stack([np.stack([ngspice.vector(res, f"@{names[(pol, 'narrow', j, k)]}[id]")
+                                                  .reshape(shape) for j in range(len(vsb))])
                                         for k in range(len(lengths))])
         for q in ("id", "gm", "gds", "gmbs", "id_narrow"):
             arrays[q] = np.abs(arrays[q])  # frame magnitudes (PMOS currents come out negative)
@@ -135,8 +136,8 @@ def tabulate(models: tb.ModelSource, lengths, span: float, temps_c=TEMPS_C, w_re
     w_ref : float
         Reference width [m]; the current scales as W / w_ref.
     w_narrow : float
-        A second, narrow width [m], swept at VSB = 0 only: its threshold shift and current
-        factor against w_ref give the narrow-width correction, linear in 1/W.
+        A second, narrow width [m] (drain current only): its threshold shift and current
+        factor against w_ref at each VSB give the narrow-width correction, linear in 1/W.
     jobs : int
         ngspice processes run at once.
     log : callable
