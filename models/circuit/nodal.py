@@ -104,7 +104,7 @@ class NodalSystem:
                 if row is not None:
                     r[row] += sign * val
                     scale[row] += np.abs(val)
-                    if g_src is not None:
+                    if g_src is not None and np.any(g_src != 0):
                         for col_node, g in ((src.a, g_src), (src.b, -g_src)):
                             col = self.index.get(col_node)
                             if col is not None:
