@@ -27,9 +27,9 @@ from .operating import (
     source_voltages,
 )
 from .records import LIMIT_NAMES, PVT_METRICS, Conditions, Design, Result, Targets
+from .sources import compliance
 from .stages import get_stage
 from .summary import check, summarise, supply_sensitivity
-from .sources import compliance
 
 __all__ = ["LIMIT_NAMES", "PVT_METRICS", "Conditions", "Design", "Result", "Targets", "corner_shifts",
            "devices_at", "evaluate", "monte_carlo_iq", "pull_down_current", "rest_point"]

@@ -12,6 +12,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from stage_helpers import (
+    STACKED,
+    T_TEST,
+    UM,
+    floating_sizes,
+    make_design,
+    make_tech,
+    mos_tech,
+)
 
 from models.circuit.mirrors import Mirror, source_keys, source_states
 from models.devices.tech import Corner, ModelKind
@@ -21,7 +30,6 @@ from models.stages import get_stage
 from optimise.files.errors import InputError
 from optimise.files.study import load_design, load_study, study_from_dict
 from optimise.files.tables import read_toml
-from stage_helpers import STACKED, T_TEST, UM, floating_sizes, make_design, make_tech, mos_tech
 
 ROOT = Path(__file__).resolve().parents[1]
 STUDY = ROOT / "studies" / "sensor-buffer.toml"
@@ -44,7 +52,7 @@ def test_source_keys_name_both_ends_of_a_shared_bias():
     assert tuple(source_keys(get_stage("follower").TOPOLOGY).values()) == ("ib_top", "ib_bot")
 
 
-@pytest.mark.parametrize("form", [dict(w=4 * UM, l=2 * UM), dict(sigma_pct=1.5, r_out=5e6)],
+@pytest.mark.parametrize("form", [{"w": 4 * UM, "l": 2 * UM}, {"sigma_pct": 1.5, "r_out": 5e6}],
                          ids=["sized", "sigma-r_out"])
 def test_monte_carlo_with_mirror_mismatch_matches_linear_sigma(form):
     # Pelgrom 1989 via the adjoint (DESIGN.md sec. 2.3): the linear sigma must be

@@ -134,12 +134,6 @@ class SourceStates:
     v_min: dict
     v_ref: dict = field(default_factory=dict)
 
-    def restricted(self, idx) -> "SourceStates":
-        cut = lambda d: {k: tuple(np.asarray(a)[idx] for a in v) if isinstance(v, tuple) else np.asarray(v)[idx]
-                         for k, v in d.items()}
-        return SourceStates(self.topo, cut(self.norton), cut(self.i0), cut(self.rel_sigma), cut(self.v_min),
-                            cut(self.v_ref))
-
     def current(self, name, v):
         """Current of the mirror source `name` at node voltages v [A]."""
         j, g = self.norton[name]
@@ -189,7 +183,7 @@ def source_states(topo: Topology, mirrors: dict, tech, devs, bias, vdd, deviatio
     if not used:
         return None
     mos = {}
-    for role, dev in devs.items():
+    for dev in devs.values():
         mos.setdefault(dev.p, dev.mos)
     norton, i0s, rel, vmin, vref = {}, {}, {}, {}, {}
     for src in topo.sources:
