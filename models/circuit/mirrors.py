@@ -76,14 +76,6 @@ class Mirror:
     def sized(self) -> bool:
         return self.w > 0
 
-    def describe(self) -> str:
-        """One line for reports, in micrometres and engineering-free SI."""
-        if self.sized:
-            return f"mirror, output device W = {self.w * 1e6:g} um, L = {self.l * 1e6:g} um (1:1, own input diode)"
-        r = "ideal" if math.isinf(self.r_out) else f"{self.r_out:.4g} ohm"
-        extra = f", compliance {self.v_min:g} V" if self.v_min > 0 else ""
-        return f"sigma {self.sigma_pct:g} %, r_out {r}, V_ref {self.v_ref:g} V{extra}"
-
 
 def source_keys(topo: Topology) -> dict[str, str]:
     """Study key of every source of a topology: source name -> key. A bias that feeds one

@@ -29,6 +29,7 @@ from models.stages import get_stage
 
 from .errors import InputError
 from .tables import build, check_keys, closest, micrometres, number, show, sub_table
+from .units import format_eng
 
 SIZED_KEYS = ("w", "l", "polarity")
 UNSIZED_KEYS = ("sigma_pct", "r_out", "v_ref", "v_min")
@@ -128,5 +129,13 @@ def describe_mirrors(mirrors: dict, architectures) -> list[str]:
         keys = source_keys(get_stage(arch).TOPOLOGY).values()
         table = mirrors.get(arch, {})
         for key in keys:
-            lines.append(f"{arch} {key}: " + (table[key].describe() if key in table else "ideal current source"))
+            lines.append(f"{arch} {key}: " + (_describe(table[key]) if key in table else "ideal current source"))
     return lines
+
+
+def _describe(m: Mirror) -> str:
+    if m.sized:
+        return f"mirror, output device W = {m.w * 1e6:g} um, L = {m.l * 1e6:g} um (1:1, own input diode)"
+    r = "infinite" if math.isinf(m.r_out) else format_eng(m.r_out, "ohm")
+    extra = f", compliance {format_eng(m.v_min, 'V')}" if m.v_min > 0 else ""
+    return f"sigma {m.sigma_pct:g} %, r_out {r}, V_ref {format_eng(m.v_ref, 'V')}{extra}"

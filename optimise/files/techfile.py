@@ -13,6 +13,8 @@ Format (every number SI, or a string with an engineering suffix such as "280u"):
     [corners.ff]             # optional; any of tt ff ss fs sf; tt defaults to no shift
     dvt_n = -0.05            # V added to the NMOS threshold magnitude
     kp_n = 1.1               # factor on the NMOS KP (likewise dvt_p, kp_p)
+    [calibration]            # optional; written by `stagefront calibrate`
+    fitted_lengths_um = [0.36]   # lengths the analytic model was fitted at (um)
 
 Every problem raises `InputError` naming the file, the key as a table path, the value and
 what is allowed; nothing else escapes `load_tech`.
@@ -25,7 +27,7 @@ from models.devices.constants import T_NOMINAL
 from models.devices.tech import Corner, CornerShift, ModelKind, MosTech, Tech
 
 from .errors import InputError
-from .tables import build, check_keys, closest, number, read_toml, show, sub_table
+from .tables import build, check_keys, closest, micrometres, number, read_toml, show, sub_table
 
 # Unit of every numeric key; a unit word in a suffixed string must match it.
 MOS_UNITS = {
@@ -34,7 +36,7 @@ MOS_UNITS = {
     "w_min": "m", "l_min": "m",
 }  # fmt: skip
 CORNER_UNITS = {"dvt_n": "V", "kp_n": "", "dvt_p": "V", "kp_p": ""}
-TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners")
+TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "calibration")
 TOP_REQUIRED = ("name", "model", "grid", "nmos", "pmos")
 MOS_KEYS = tuple(f.name for f in dataclasses.fields(MosTech))
 MODELS = tuple(k.value for k in ModelKind)
@@ -61,6 +63,24 @@ def _corners(where: str, data) -> dict[Corner, CornerShift]:
         values = {k: number(where, path, k, v, CORNER_UNITS[k]) for k, v in table.items()}
         shifts[Corner(name)] = build(where, path, CornerShift, values)
     return shifts
+
+
+def _fitted_lengths(where: str, data) -> tuple:
+    """[calibration] fitted_lengths_um: the lengths an analytic model was fitted at [m]."""
+    data = sub_table(where, "", "calibration", data)
+    check_keys(where, "calibration", data, ("fitted_lengths_um",))
+    values = data.get("fitted_lengths_um", [])
+    if not isinstance(values, list) or not values:
+        raise InputError(where, f"[calibration] fitted_lengths_um = {show(values)} is not a non-empty array",
+                         "the lengths the model was fitted at, in um, e.g. [0.36, 0.72]")
+    out = []
+    for v in values:
+        x = micrometres(where, "calibration", "fitted_lengths_um", v)
+        if not 0.01e-6 <= x <= 1000e-6:
+            raise InputError(where, f"[calibration] fitted_lengths_um: {show(v)} is not allowed",
+                             "lengths from 0.01 to 1000 um")
+        out.append(x)
+    return tuple(sorted(out))
 
 
 def tech_from_dict(data: dict, where: str = "<technology>") -> Tech:
@@ -103,6 +123,8 @@ def tech_from_dict(data: dict, where: str = "<technology>") -> Tech:
         "tnom": number(where, "", "tnom", data["tnom"], "K") if "tnom" in data else T_NOMINAL,
         "corners": _corners(where, data["corners"]) if "corners" in data else {Corner.TT: CornerShift()},
     }
+    if "calibration" in data:
+        kwargs["fitted_lengths"] = _fitted_lengths(where, data["calibration"])
     return build(where, "", Tech, kwargs)
 
 

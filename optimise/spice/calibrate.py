@@ -238,6 +238,8 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
     for corner, s in corners.items():
         lines += ["", f"[corners.{corner.value}]                # {origin}",
                   f"dvt_n = {_g(s.dvt_n)}", f"kp_n = {_g(s.kp_n)}", f"dvt_p = {_g(s.dvt_p)}", f"kp_p = {_g(s.kp_p)}"]
+    lines += ["", "[calibration]            # where the fit holds: evaluate, optimise and report warn outside it",
+              f"fitted_lengths_um = [{', '.join(_g(x * 1e6) for x in cal.lengths)}]"]
     return "\n".join(lines) + "\n"
 
 
