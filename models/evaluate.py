@@ -61,8 +61,7 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
             extra[f"mirror_v_{name}"] = across[name]
             extra[f"mirror_vmin_{name}"] = sources.v_min[name]
         # The driven points and the supply requirements see the mirror currents of rest.
-        bias = sources.stage_bias(bias, stage.TOPOLOGY.drive, {**nodes, "vdd": vdd, "0": 0.0 * vdd,
-                                                                 "out": 0.5 * vdd})
+        bias = sources.rest_bias(bias, nodes, vdd)
     with np.errstate(divide="ignore", invalid="ignore"):
         sigma_pct = np.where(iq > 0, 100.0 * np.sqrt(var) / iq, 0.0)
 

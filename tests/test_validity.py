@@ -10,10 +10,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from models.evaluate import Design
 from models.validity import LENGTH_MARGIN, covered, length_warnings
 from optimise.cli import main
 from optimise.files.errors import InputError
-from models.evaluate import Design
 from optimise.files.tables import read_toml
 from optimise.files.techfile import load_tech, tech_from_dict
 from optimise.report.build import write_report

@@ -149,6 +149,12 @@ class SourceStates:
         return out
 
 
+    def rest_bias(self, bias, nodes, vdd):
+        """`stage_bias` at the rest point: nodes (dict of (m,)) with the rails and the output
+        at VDD/2 (what the driven points and the supply requirements take)."""
+        return self.stage_bias(bias, self.topo.drive, {**nodes, "vdd": vdd, "0": 0.0 * vdd, "out": 0.5 * vdd})
+
+
 def source_states(topo: Topology, mirrors: dict, tech, devs, bias, vdd, deviations=None) -> SourceStates | None:
     """The mirror sources of a stage at its elements, or None when every source is ideal.
 
