@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .circuit.mirrors import mirror_area, mirror_deviations, source_states
+from .circuit.mirrors import checked, mirror_area, mirror_deviations, source_states
 from .devices import mismatch as _mm
 from .devices.mos import gate_capacitance, inversion_coefficient
 from .devices.tech import Corner, Tech
@@ -144,6 +144,8 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     violations, margins = check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, explain)
     if mirrors:
         violations, margins = compliance(stage, pvt, converged, corner, temp, vdd, violations, margins, explain)
+    if checked(targets.mirrors) and "mirror_compliance" not in margins:  # one set of constraints per study
+        margins["mirror_compliance"] = np.full(n, np.inf)
     return Result(design.architecture, corner, temp, vdd, pvt, summary, converged, req_names, violations, margins)
 
 

@@ -247,3 +247,19 @@ def test_bad_mirror_tables_are_clear_errors(text, words):
     assert "sensor-buffer.toml" in msg
     for word in words:
         assert word in msg, msg
+
+
+def test_search_constrains_mirror_compliance_for_every_architecture(tmp_path):
+    # One architecture with sized mirrors, one without: both searches carry the same
+    # constraint set (the other's margin is infinite), and front.csv and run.json name it.
+    from optimise.search.runner import optimise_study
+    text = STUDY.read_text().replace('technology = "tech/', f'technology = "{ROOT}/studies/tech/')
+    text += '\n[mirrors.floating-loop]\nib_n = { w = 4, l = 2 }\nib_ctl_bot = { sigma_pct = 1, r_out = "10meg" }\n'
+    study = tmp_path / "s.toml"
+    study.write_text(text)
+    out = tmp_path / "run"
+    with (tmp_path / "log.txt").open("w") as stream:
+        assert optimise_study(study, out, population=8, generations=1, stream=stream) == 0
+    record = (out / "run.json").read_text()
+    assert '"mirror_compliance"' in record
+    assert "margin_mirror_compliance" in (out / "front.csv").read_text().splitlines()[0]

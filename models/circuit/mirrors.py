@@ -77,6 +77,13 @@ class Mirror:
         return self.w > 0
 
 
+def checked(mirrors: dict) -> bool:
+    """Whether any mirror of a study (architecture -> key -> Mirror) has a compliance voltage
+    to check (every sized one; an unsized one with v_min): then every architecture's results
+    carry the "mirror_compliance" margin (infinite where nothing is checked)."""
+    return any(m.sized or m.v_min > 0 for table in mirrors.values() for m in table.values())
+
+
 def source_keys(topo: Topology) -> dict[str, str]:
     """Study key of every source of a topology: source name -> key. A bias that feeds one
     source is named by its bias (ib_n); one that feeds several adds the source's end
