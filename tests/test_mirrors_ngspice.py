@@ -15,12 +15,12 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from test_stages_ngspice import TECH, design
 
 from models.circuit.mirrors import Mirror
 from models.devices.tech import Corner
 from models.evaluate import Conditions, Targets, evaluate
 from optimise.spice import netlist
-from test_stages_ngspice import TECH, design
 
 UM = 1e-6
 CASES = {

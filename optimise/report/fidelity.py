@@ -33,20 +33,20 @@ def device_limits(study) -> list[str]:
     """Bullets on what the device model kind leaves out, and what the table kind brings back."""
     tech = study.tech
     if tech.model.value not in ANALYTIC:
-        return [f"Devices of {tech.name} come from the user's card tabulated by ngspice at every length, corner and "
-                f"temperature, interpolated between the grid points: length-dependent threshold, DIBL, velocity "
-                f"saturation, mobility degradation and narrow-width effects are the card's. No value is "
-                f"extrapolated outside the tables."]
+        return [(f"Devices of {tech.name} come from the user's card tabulated by ngspice at every length, corner "
+                 f"and temperature, interpolated between the grid points: length-dependent threshold, DIBL, "
+                 f"velocity saturation, mobility degradation and narrow-width effects are the card's. No value is "
+                 f"extrapolated outside the tables.")]
     fitted = ", ".join(f"{x * 1e6:.3g} um" for x in tech.fitted_lengths)
     where = (f" {tech.name} was calibrated at L = {fitted}; outside +-{LENGTH_MARGIN * 100:g} % of those lengths "
              f"the fit is not trusted." if tech.fitted_lengths else
              f" {tech.name} records no calibration lengths, so no length warning is given for it.")
-    return [f"What the {tech.model.value} model leaves out: the threshold's dependence on length (roll-off, halo "
+    return [(f"What the {tech.model.value} model leaves out: the threshold's dependence on length (roll-off, halo "
             f"implants) and on drain voltage (DIBL), velocity saturation, mobility degradation with gate field and "
             f"narrow-width effects; one threshold and one current factor hold at every length." + where +
             " Replica devices (a loop diode and the device it stands for) match in the model at any lengths; in "
             "silicon only at equal lengths. A table technology (stagefront calibrate --tables) tabulates the card "
-            "at every length and brings all of these back."]
+            "at every length and brings all of these back.")]
 
 
 def length_lines(study, table) -> list[str]:
