@@ -7,11 +7,13 @@ x 3 supplies = 15 PVT points, on the invented demo350 process. Population sizes 
 around the demo designs (log-uniform factors), so the solver sees varied operating points.
 
     python3 benchmarks/bench_stages.py [--designs 10000] [--arch floating-loop] [--chunk 8192]
-                                       [--glibc-default] [--table]
+                                       [--glibc-default] [--table] [--mirrors sized|sigma]
 
 --table runs the 1.8 V demo study instead: its table technology (the BSIM3v3 card
 tabulated) beside the card's single-length EKV calibration, on the same designs in the same
 run (lengths kept inside the tables, 0.18-1.8 um; widths from 1 um).
+--mirrors makes every bias source a mirror (sized: W = 4 um, L = 2 um; sigma: 1 % and
+10 Mohm), to measure what the voltage-dependent sources cost the rest point.
 
 Like the stagefront command, the benchmark asks glibc to keep freed memory for reuse
 (optimise.search.runtime); --glibc-default measures without that.
@@ -22,13 +24,16 @@ import argparse
 import resource
 import time
 import tracemalloc
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 
+from models.circuit.mirrors import Mirror, source_keys
 from models.devices.constants import ZERO_CELSIUS
 from models.devices.tech import Corner
 from models.evaluate import Conditions, Design, evaluate
+from models.stages import get_stage
 from optimise.files.study import load_design, load_study
 from optimise.files.techfile import load_tech
 from optimise.search.runtime import keep_freed_memory
@@ -51,6 +56,7 @@ def main() -> None:
     ap.add_argument("--arch", default="all")
     ap.add_argument("--chunk", type=int, default=16384)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--mirrors", choices=("ideal", "sized", "sigma"), default="ideal")
     ap.add_argument("--glibc-default", action="store_true",
                     help="leave glibc's memory trimming as it is (the stagefront command changes it)")
     ap.add_argument("--table", action="store_true", help="table technology beside EKV on the 1.8 V study")
@@ -68,8 +74,13 @@ def main() -> None:
         cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 3.3, 2.7, 3.6)
         limits = {}
     archs = study.architectures if args.arch == "all" else (args.arch,)
+    if args.mirrors != "ideal":
+        form = {"w": 4e-6, "l": 2e-6} if args.mirrors == "sized" else {"sigma_pct": 1.0, "r_out": 1e7}
+        mirrors = {a: {k: Mirror(**form) for k in source_keys(get_stage(a).TOPOLOGY).values()} for a in archs}
+        study = replace(study, targets=replace(study.targets, mirrors=mirrors))
     print(f"grid: {len(cond.corners)} corners x {len(cond.temps)} temperature x {len(cond.supplies)} supplies "
-          f"= {len(cond.grid()[2])} PVT points; {args.designs} designs; chunk {args.chunk}")
+          f"= {len(cond.grid()[2])} PVT points; {args.designs} designs; chunk {args.chunk}; bias sources "
+          f"{args.mirrors}")
     for arch, (label, tech) in ((a, t) for a in archs for t in techs):
         base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", tech)
         pop = population(base, args.designs, np.random.default_rng(0), **limits)

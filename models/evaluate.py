@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .circuit.mirrors import checked, mirror_area, mirror_deviations, source_states
 from .devices import mismatch as _mm
 from .devices.mos import gate_capacitance, inversion_coefficient
 from .devices.table import gate_capacitance_from, outside_table
@@ -24,8 +25,10 @@ from .operating import (
     driven_point,
     pull_down_current,
     rest_point,
+    source_voltages,
 )
 from .records import LIMIT_NAMES, PVT_METRICS, Conditions, Design, Result, Targets
+from .sources import compliance
 from .stages import get_stage
 from .summary import check, summarise, supply_sensitivity
 
@@ -40,7 +43,8 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     vdd = vdd_all[idx_pvt]
     devs = devices_at(stage, design, tech, shifts, temp, idx_design)
     bias = {k: np.asarray(v, dtype=float)[idx_design] for k, v in design.bias.items()}
-    nodes, ok, sens, op = rest_point(stage, devs, bias, vdd)
+    sources = source_states(stage.TOPOLOGY, targets.mirrors.get(design.architecture, {}), tech, devs, bias, vdd)
+    nodes, ok, sens, op = rest_point(stage, devs, bias, vdd, sources=sources)
     iq = pull_down_current(stage, op)
 
     var = np.zeros_like(vdd)
@@ -49,6 +53,16 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         s_vt, s_beta = sens[spec.role]
         var += (s_vt * _mm.sigma_device_vt(mt.a_vt, dev.w, dev.l)) ** 2
         var += (s_beta * _mm.sigma_device_beta(mt.a_beta, dev.w, dev.l)) ** 2
+    extra = {}
+    if sources is not None:
+        # The mirrors' deviations are independent of the devices' and of each other.
+        across = source_voltages(stage, nodes, vdd)
+        for name, rel in sources.rel_sigma.items():
+            var += (sens[name][0] * rel) ** 2
+            extra[f"mirror_v_{name}"] = across[name]
+            extra[f"mirror_vmin_{name}"] = sources.v_min[name]
+        # The driven points and the supply requirements see the mirror currents of rest.
+        bias = sources.rest_bias(bias, nodes, vdd)
     with np.errstate(divide="ignore", invalid="ignore"):
         sigma_pct = np.where(iq > 0, 100.0 * np.sqrt(var) / iq, 0.0)
 
@@ -85,7 +99,7 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,
         "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": np.minimum(ab_src, ab_snk),
         "iq_sigma_pct": sigma_pct, "vdd_min_v": vdd_min, "fp2_hz": fp2, "c_drive_f": c_drive,
-        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what,
+        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what, **extra,
     }
     return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
 
@@ -135,13 +149,27 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     converged = converged.reshape(n, k)
     supply_sensitivity(pvt, cond, corner, temp, vdd)
     summary = summarise(pvt, design, stage, cond, corner, temp, vdd, targets)
+    mirrors = targets.mirrors.get(design.architecture, {})
+    if mirrors:
+        extra_area = mirror_area(stage.TOPOLOGY, mirrors)
+        if extra_area > 0:
+            summary["area_um2"] = summary["area_um2"] + extra_area * targets.layout_factor * 1e12
     violations, margins = check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, explain)
+    if mirrors:
+        violations, margins = compliance(stage, pvt, converged, corner, temp, vdd, violations, margins, explain)
+    if checked(targets.mirrors) and "mirror_compliance" not in margins:  # one set of constraints per study
+        margins["mirror_compliance"] = np.full(n, np.inf)
     return Result(design.architecture, corner, temp, vdd, pvt, summary, converged, req_names, violations, margins)
 
 
 def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd: float, samples: int,
-                   rng: np.random.Generator):
+                   rng: np.random.Generator, mirrors=None):
     """Iq of one design under random mismatch (Pelgrom), one exact solve per sample.
+
+    With `mirrors` (study key -> `Mirror`, as `Targets.mirrors[architecture]`), the bias
+    sources named there are mirrors whose deviations are drawn too: a sized mirror's input
+    and output devices (Pelgrom), an unsized one's delta (normal, its sigma). They are drawn
+    after the stage's devices, so the devices' draws do not depend on the mirrors.
 
     Parameters
     ----------
@@ -168,5 +196,9 @@ def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd:
     devs = devices_at(stage, design, tech, corner_shifts(tech, [corner] * samples), np.full(samples, temp), idx, dvt, dbeta)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
     vdd_arr = np.full(samples, float(vdd))
-    _, ok, _, op = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
+    sources = None
+    if mirrors:
+        draws = mirror_deviations(stage.TOPOLOGY, mirrors, tech, samples, rng)
+        sources = source_states(stage.TOPOLOGY, mirrors, tech, devs, bias, vdd_arr, draws)
+    _, ok, _, op = rest_point(stage, devs, bias, vdd_arr, sensitivity=False, sources=sources)
     return pull_down_current(stage, op), ok

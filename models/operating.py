@@ -106,18 +106,34 @@ def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     return headroom, peak, ab, limit, ok & (ok_v | ~can)
 
 
-def rest_point(stage, devs, bias, vdd, sensitivity=True):
+def rest_point(stage, devs, bias, vdd, sensitivity=True, sources=None):
     """Rest point of every element: the stage's fast solve, checked against the residuals
     of the full Kirchhoff system, with Newton on that system as the second chance.
+
+    `sources` (a `mirrors.SourceStates`, None when every bias source is ideal) makes the
+    mirror sources' currents depend on the voltages across them: the fast solve then runs
+    twice (at the mirrors' reference currents, then at the currents its first answer
+    gives) and the nodal Newton balances the rest exactly.
 
     Returns (nodes, ok, sens, op): node voltages, convergence flags, the Iq sensitivities
     of `NodalSystem.iq_sensitivity` when asked (else None), and every device evaluated at
     the rest point (role -> (i, gg, gd, gs), as `Device.eval` gives them), for the metrics
-    that need currents or conductances at rest.
+    that need currents or conductances at rest, plus every bias source's current and
+    output conductance (source name -> (i, g), see `NodalSystem.assemble`).
     """
-    nodes, ok = stage.quiescent(devs, bias, vdd)
-    system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd)
+    topo = stage.TOPOLOGY
+    norton = None if sources is None else sources.norton
+    if sources is None:
+        nodes, ok = stage.quiescent(devs, bias, vdd)
+    else:
+        nodes, _ = stage.quiescent(devs, sources.stage_bias(bias, topo.drive), vdd)
+        nodes, ok = stage.quiescent(devs, sources.stage_bias(bias, topo.drive, _voltages(nodes, vdd)), vdd)
+    system = NodalSystem(stage.TOPOLOGY, devs, bias, vdd, sources=norton)
     x = np.stack([nodes[nname] for nname in stage.TOPOLOGY.nodes] + [np.zeros_like(vdd)])
+    if sources is not None:
+        # Unequal sources into the drive node leave a drive current at rest: the residual
+        # of the drive row with none is exactly minus it.
+        x[-1] = -system.assemble(x, slice(None))[0][system.index[topo.drive]]
     if sensitivity:
         sens, (r, scale), op = system.iq_sensitivity(x, stage.PULL_DOWN)
     else:
@@ -128,7 +144,8 @@ def rest_point(stage, devs, bias, vdd, sensitivity=True):
     ok &= np.all(np.abs(r) <= 1e-9 * scale + 1e-18, axis=0) & np.all(np.isfinite(x), axis=0)
     if not ok.all():
         bad = np.flatnonzero(~ok)
-        sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad])
+        sub = NodalSystem(stage.TOPOLOGY, subset(devs, bad), {k: v[bad] for k, v in bias.items()}, vdd[bad],
+                          sources=None if norton is None else {k: (j[bad], g[bad]) for k, (j, g) in norton.items()})
         xb, ok[bad] = sub.solve(np.nan_to_num(x[:, bad], nan=0.0))
         for k_node, nname in enumerate(stage.TOPOLOGY.nodes):
             nodes[nname] = nodes[nname].copy()
@@ -144,6 +161,17 @@ def rest_point(stage, devs, bias, vdd, sensitivity=True):
             for whole, part in zip(op[role], vals):
                 whole[bad] = part
     return nodes, ok, sens, op
+
+
+def _voltages(nodes, vdd):
+    """Node voltages with the rails and the output at rest (VDD/2)."""
+    return {**nodes, "vdd": vdd, "0": np.zeros_like(vdd), "out": 0.5 * vdd}
+
+
+def source_voltages(stage, nodes, vdd):
+    """Voltage across every bias source at rest, V(a) - V(b): source name -> (m,) [V]."""
+    v = _voltages(nodes, vdd)
+    return {src.name: v[src.a] - v[src.b] for src in stage.TOPOLOGY.sources}
 
 
 def pull_down_current(stage, op):

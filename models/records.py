@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .circuit.mirrors import source_keys
 from .devices.tech import Corner, check_range
 from .stages import get_stage
 
@@ -121,7 +122,7 @@ class Conditions:
 
 @dataclass(frozen=True, slots=True)
 class Targets:
-    """Load, driver and the limits a design must meet at every PVT point (SI).
+    """Load, driver, bias sources and the limits a design must meet at every PVT point (SI).
 
     Zero or infinite limits switch a check off.
     """
@@ -138,6 +139,9 @@ class Targets:
     area_max: float = np.inf  # m^2
     fp2_min: float = 0.0  # Hz
     layout_factor: float = 1.0  # 1  area multiplier for routing and spacing
+    # Bias sources as mirrors: architecture -> study key (`circuit.mirrors.source_keys`) ->
+    # `circuit.mirrors.Mirror`; a source not named is ideal (the default for every source).
+    mirrors: dict = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         check_range("i_load", self.i_load, 1e-9, 10.0, "A")
@@ -148,6 +152,12 @@ class Targets:
         check_range("layout_factor", self.layout_factor, 1.0, 10.0, "")
         if self.iq_min > self.iq_max:
             raise ValueError(f"iq window is inverted: min {self.iq_min} A > max {self.iq_max} A")
+        for arch, table in self.mirrors.items():
+            allowed = tuple(source_keys(get_stage(arch).TOPOLOGY).values())
+            bad = sorted(set(table) - set(allowed))
+            if bad:
+                raise ValueError(f"mirrors of {arch} name unknown sources {', '.join(bad)}; allowed: "
+                                 f"{', '.join(allowed)}")
 
 
 @dataclass

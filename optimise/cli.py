@@ -10,6 +10,7 @@ import json
 import sys
 
 from models.evaluate import evaluate
+from models.validity import length_warnings
 
 from . import CAUTION
 from .files.errors import InputError
@@ -88,6 +89,8 @@ def cmd_evaluate(args) -> int:
     study = load_study(args.study)
     design = load_design(args.design, study.tech)
     res = evaluate(design, study.tech, study.conditions, study.targets)
+    for line in length_warnings(study.tech, [design]):
+        print(f"warning: {line}", file=sys.stderr)
     out = result_to_dict(res)
     mc = None
     if args.montecarlo:
@@ -167,7 +170,7 @@ def cmd_verify(args) -> int:
 
 
 def cmd_calibrate(args) -> int:
-    from .spice.calibrate import calibrate_command
+    from .calibrate.calibrate import calibrate_command
 
     return _ngspice_guard(lambda: calibrate_command(args))
 

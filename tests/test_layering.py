@@ -28,7 +28,7 @@ MODELS = ["models"] + sorted(info.name for info in pkgutil.walk_packages(models.
 # holds the top modules (evaluate, summary), "optimise" only the package's constants.
 FLOORS = ["models.numerics", "models.devices", "models.circuit", "models.stages", "models",
           "optimise", "optimise.files", "optimise.search", "optimise.review", "optimise.report",
-          "optimise.spice", "optimise.sweep", "optimise.cli"]
+          "optimise.spice", "optimise.calibrate", "optimise.sweep", "optimise.cli"]
 MAX_LINES = 450
 MAX_MODULES = 10
 

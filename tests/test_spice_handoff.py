@@ -226,6 +226,7 @@ def test_calibration_recovers_level1_parameters(tmp_path, capsys):
     assert code == 0, report
     tech = load_tech(out)  # the written file loads as a technology
     assert tech.model.value == "square-law"
+    assert tech.fitted_lengths == pytest.approx((1e-6,))  # the one length swept, recorded
     expected = {
         "nmos": {"vt0": 0.7, "kp": 110e-6, "gamma": 0.4, "phi": 0.7, "va": 1 / 0.04},
         "pmos": {"vt0": 0.7, "kp": 50e-6, "gamma": 0.57, "phi": 0.8, "va": 1 / 0.05},

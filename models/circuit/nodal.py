@@ -31,6 +31,9 @@ class NodalSystem:
     bias: dict[str, np.ndarray]
     vdd: np.ndarray
     index: dict[str, int] = field(init=False)
+    # Mirror sources (see `mirrors.SourceStates.norton`): source name -> (j, g), the source
+    # delivering j + g (V(a) - V(b)); sources not named here are ideal, of their bias value.
+    sources: dict | None = None
 
     def __post_init__(self) -> None:
         self.index = {node: k for k, node in enumerate(self.topo.nodes)}
@@ -62,7 +65,9 @@ class NodalSystem:
         """Residuals r (k, n); the scale of each equation (k, n), the sum of the
         magnitudes of the currents it balances, to judge r against; the Jacobian as its
         structurally non-zero entries (dict (row, col) -> (n,)); and every device's
-        evaluation at x (dict role -> (i, gg, gd, gs) as `Device.eval` gives them)."""
+        evaluation at x (dict role -> (i, gg, gd, gs) as `Device.eval` gives them), with
+        every bias source's current and output conductance (source name -> (i, g): i from
+        node a to node b [A], g = d i / d (V(a) - V(b)) [S], zero for an ideal source)."""
         k, n = self.size, x.shape[1]
         v = self.voltages(x, idx)
         r = np.zeros((k, n))
@@ -87,12 +92,23 @@ class NodalSystem:
                     if col is not None:
                         add(row, col, sign * g)
         for src in self.topo.sources:
-            val = self.bias[src.bias][idx]
+            if self.sources is None or src.name not in self.sources:
+                val = self.bias[src.bias][idx]
+                g_src = None
+            else:
+                j, g_src = (np.asarray(a)[idx] for a in self.sources[src.name])
+                val = j + g_src * (v[src.a] - v[src.b])
+            evals[src.name] = (val, np.zeros_like(val) if g_src is None else g_src)
             for node, sign in ((src.a, -1.0), (src.b, 1.0)):
                 row = self._row(node)
                 if row is not None:
                     r[row] += sign * val
                     scale[row] += np.abs(val)
+                    if g_src is not None and np.any(g_src != 0):
+                        for col_node, g in ((src.a, g_src), (src.b, -g_src)):
+                            col = self.index.get(col_node)
+                            if col is not None:
+                                add(row, col, sign * g)
         for res in self.topo.resistors:
             gval = 1.0 / self.bias[res.bias][idx]
             cur = (v[res.a] - v[res.b]) * gval
@@ -123,7 +139,9 @@ class NodalSystem:
         """d Iq / d dvt and d Iq / d dbeta for every device, by the adjoint of the exact
         Jacobian at the solved point x (k, m). Iq is the frame current of `out_role`.
 
-        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,), the
+        Returns dict role -> (dIq/d dvt [A/V], dIq/d dbeta [A]), each shape (m,), and
+        source name -> (dIq/d delta [A], zeros) for every bias source, delta being the
+        source's relative deviation from its nominal current (I = I0 (1 + delta)); the
         residuals (k, m) at x and their scales, so the caller can check the point it passed,
         and the device evaluations at x (as `assemble` gives them).
         """
@@ -169,4 +187,14 @@ class NodalSystem:
                 s_vt = s_vt - dev.p * gg
                 s_beta = s_beta + i / (1.0 + dev.dbeta)
             out[role] = (np.where(singular, 0.0, s_vt), np.where(singular, 0.0, s_beta))
+        for src in self.topo.sources:
+            # A source's relative deviation delta scales its nominal current I0: its
+            # current enters row(a) with -1 and row(b) with +1, d(current)/d delta = I0.
+            w = np.zeros(m)
+            for node, sign in ((src.a, -1.0), (src.b, 1.0)):
+                row = self._row(node)
+                if row is not None:
+                    w = w + sign * lam[row]
+            s_rel = -w * self.bias[src.bias]
+            out[src.name] = (np.where(singular, 0.0, s_rel), np.zeros(m))
         return out, (r, scale), evals

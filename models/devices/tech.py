@@ -117,9 +117,13 @@ class Tech:
     # MosTech constants then summarise the card (start values, mismatch, drawing rules).
     tables: dict | None = None
     card: tuple | None = None  # table kind: (card path, NMOS model, PMOS model) tabulated
+    # m  lengths an analytic technology was calibrated at (empty: not a calibration, or unknown)
+    fitted_lengths: tuple = ()
 
     def __post_init__(self) -> None:
         check_range("grid", self.grid, 1e-10, 1e-6, "m")
+        for x in self.fitted_lengths:
+            check_range("fitted length", x, 1e-8, 1e-3, "m")
         check_range("tnom", self.tnom, 200.0, 450.0, "K")
         if Corner.TT not in self.corners:
             raise ValueError("corners must include tt (the typical corner)")

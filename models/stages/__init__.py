@@ -2,7 +2,8 @@
 Imports `models.circuit`, `models.devices` and `models.numerics`; imported by `models.evaluate`.
 
 Every architecture module exposes the same names: NAME, ROLES, BIAS (bias name -> unit),
-PULL_DOWN and PULL_UP (output roles to ground and to the supply), TOPOLOGY, and the functions
+PULL_DOWN and PULL_UP (output roles to ground and to the supply), REPLICAS (pairs of roles
+whose match the bias loop relies on: (replica, device it stands for)), TOPOLOGY, and the functions
 bias_total, quiescent, driven, gates, gm_output, output and requirements.
 """
 from . import fixed_bias, floating_loop, follower

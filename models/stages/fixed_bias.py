@@ -23,6 +23,7 @@ from .common_source import gates, gm_output, output  # noqa: F401 (the stage int
 NAME = "fixed-bias"
 ROLES = ("mn_out", "mp_out")
 BIAS = {"ib": "A", "r_bias": "ohm"}
+REPLICAS = ()  # no translinear pair: the gate-to-gate voltage is fixed
 PULL_DOWN, PULL_UP = "mn_out", "mp_out"
 
 TOPOLOGY = Topology(

@@ -33,6 +33,8 @@ from .common_source import gates, gm_output, output  # noqa: F401 (the stage int
 NAME = "floating-loop"
 ROLES = ("mn_out", "mp_out", "mn_d1", "mn_d2", "mn_ctl", "mp_d1", "mp_d2", "mp_ctl")
 BIAS = {"ib_n": "A", "ib_p": "A", "ib_ctl": "A"}
+# Translinear pairs whose matching the loop rests on: (replica diode, device it stands for).
+REPLICAS = (("mn_d1", "mn_out"), ("mp_d1", "mp_out"), ("mn_d2", "mn_ctl"), ("mp_d2", "mp_ctl"))
 PULL_DOWN, PULL_UP = "mn_out", "mp_out"
 
 TOPOLOGY = Topology(

@@ -23,6 +23,8 @@ from ..numerics.roots import solve_bracketed
 NAME = "follower"
 ROLES = ("mn_f", "mp_f", "mn_b", "mp_b")
 BIAS = {"ib": "A"}
+# Translinear pairs whose matching the loop rests on: (bias diode, follower it stands for).
+REPLICAS = (("mn_b", "mn_f"), ("mp_b", "mp_f"))
 PULL_DOWN, PULL_UP = "mp_f", "mn_f"
 
 TOPOLOGY = Topology(

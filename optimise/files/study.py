@@ -6,7 +6,7 @@ is an InputError naming the file, the key, the value and what is allowed.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -17,11 +17,12 @@ from models.evaluate import Conditions, Design, Targets
 from models.stages import STAGES, get_stage
 
 from .errors import InputError
+from .mirrorfile import load_mirrors
 from .tables import build, check_keys, closest, micrometres, number, read_toml, show, sub_table
 from .techfile import check_table_size, check_table_temperatures, load_tech
 
 STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
-              "driver", "targets", "objectives", "bounds", "ties", "search")
+              "driver", "targets", "objectives", "bounds", "ties", "search", "mirrors")
 SUPPLY_KEYS = ("nominal", "min", "max")
 CONDITION_KEYS = ("temperatures_c", "corners")
 LOAD_KEYS = ("current", "capacitance")
@@ -180,6 +181,8 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     for a in archs:
         if a not in STAGES:
             raise InputError(where, f"architectures: {a!r} is not known", ", ".join(STAGES), closest(a, STAGES))
+    if "mirrors" in data:
+        targets = replace(targets, mirrors=load_mirrors(where, data, archs, tech))
     seed = data.get("seed", 1)
     if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
         raise InputError(where, f"seed = {show(seed)} is not allowed", "a non-negative integer")

@@ -18,6 +18,8 @@ Format (every number SI, or a string with an engineering suffix such as "280u"):
     card = "CARD.lib"        # optional: the card tabulated, for verify (and its model names
     nmos = "nch"             #   nmos, pmos); the [nmos]/[pmos] constants then summarise the
     pmos = "pch"             #   card (start values), mismatch and drawing rules hold as ever
+    [calibration]            # optional; written by `stagefront calibrate`
+    fitted_lengths_um = [0.36]   # lengths the analytic model was fitted at (um)
 
 Every problem raises `InputError` naming the file, the key as a table path, the value and
 what is allowed; nothing else escapes `load_tech`.
@@ -31,7 +33,7 @@ from models.devices.constants import T_NOMINAL
 from models.devices.tech import Corner, CornerShift, ModelKind, MosTech, Tech
 
 from .errors import InputError
-from .tables import build, check_keys, closest, number, read_toml, show, sub_table
+from .tables import build, check_keys, closest, micrometres, number, read_toml, show, sub_table
 
 # Unit of every numeric key; a unit word in a suffixed string must match it.
 MOS_UNITS = {
@@ -40,7 +42,7 @@ MOS_UNITS = {
     "w_min": "m", "l_min": "m",
 }  # fmt: skip
 CORNER_UNITS = {"dvt_n": "V", "kp_n": "", "dvt_p": "V", "kp_p": ""}
-TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table")
+TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table", "calibration")
 TABLE_KEYS = ("file", "card", "nmos", "pmos")
 TOP_REQUIRED = ("name", "model", "grid", "nmos", "pmos")
 MOS_KEYS = tuple(f.name for f in dataclasses.fields(MosTech))
@@ -88,6 +90,24 @@ def _table(where: str, data, base_dir):
     if "card" in data:
         card = (str(Path(base_dir) / data["card"]), data.get("nmos", "nch"), data.get("pmos", "pch"))
     return tables, card
+
+
+def _fitted_lengths(where: str, data) -> tuple:
+    """[calibration] fitted_lengths_um: the lengths an analytic model was fitted at [m]."""
+    data = sub_table(where, "", "calibration", data)
+    check_keys(where, "calibration", data, ("fitted_lengths_um",))
+    values = data.get("fitted_lengths_um", [])
+    if not isinstance(values, list) or not values:
+        raise InputError(where, f"[calibration] fitted_lengths_um = {show(values)} is not a non-empty array",
+                         "the lengths the model was fitted at, in um, e.g. [0.36, 0.72]")
+    out = []
+    for v in values:
+        x = micrometres(where, "calibration", "fitted_lengths_um", v)
+        if not 0.01e-6 <= x <= 1000e-6:
+            raise InputError(where, f"[calibration] fitted_lengths_um: {show(v)} is not allowed",
+                             "lengths from 0.01 to 1000 um")
+        out.append(x)
+    return tuple(sorted(out))
 
 
 def tech_from_dict(data: dict, where: str = "<technology>", base_dir=None) -> Tech:
@@ -140,6 +160,8 @@ def tech_from_dict(data: dict, where: str = "<technology>", base_dir=None) -> Te
         kwargs["tables"], kwargs["card"] = _table(where, data["table"], base_dir)
     elif "table" in data:
         raise InputError(where, f"a [table] section with model = \"{model}\"", "[table] only with model = \"table\"")
+    if "calibration" in data:
+        kwargs["fitted_lengths"] = _fitted_lengths(where, data["calibration"])
     return build(where, "", Tech, kwargs)
 
 

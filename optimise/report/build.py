@@ -42,6 +42,7 @@ from ..files.space import OBJECTIVES
 from ..files.units import format_eng
 from ..search.export import UNIT_SUFFIX
 from .data import MC_SAMPLES, OBJ_SHOW, ReportData, gather
+from .fidelity import bias_sources, device_limits, length_lines
 from .figures import fronts_figure, mismatch_figure, supply_figure
 from .render import (
     CLOSE,
@@ -274,9 +275,9 @@ def _assumptions(data: ReportData) -> list:
         f"Devices: {kind}, with the parameters of {s.tech.name}; body effect and channel-length modulation are "
         f"included, temperature enters through kT/q, a threshold drift and a mobility exponent (textbook values). "
         f"Corners shift only the threshold and the current factor of each polarity.",
-        "Bias sources are ideal: every bias current (ib_*) and bias resistor is exact, with infinite output "
-        "resistance, no compliance limit, no drift with supply or temperature and no mismatch of its own. Any "
-        "supply or temperature dependence shown comes from the stage alone.",
+        bias_sources(s),
+        *device_limits(s),
+        *(f"Warning: {line}" for line in length_lines(s, data.table)),
         f"Rest point: no load, the output held at half the supply by the amplifier's feedback. Drive: the driving "
         f"stage moves {'both gates' if t.drive == 'both' else 'the ' + t.drive + ' gate'} until it is {t.vcomp:g} V "
         f"from a rail or the control device leaves saturation, whichever comes first.",
@@ -310,6 +311,7 @@ def sections(data: ReportData) -> list:
     if n:
         glance.append(_knee_line(data))
     glance.append(data.verify[1] if data.verify[0] is None else f"Verification: {data.verify[1]}")
+    glance += [f"Warning: {line}" for line in length_lines(data.study, data.table)]
     blocks = {"caution": [CAUTION], "glance": [Bullets(glance)], "job": _job(data), "fronts": _fronts(data),
               "verify": verification_blocks(data.verify), "assumptions": _assumptions(data)}
     empty = ["No feasible design in this run: nothing to show."]

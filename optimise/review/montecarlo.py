@@ -80,7 +80,7 @@ def confirm(design: Design, study, samples: int, seed: int, result: Result | Non
     corner = cond.typical
     res = result if result is not None else evaluate(design, study.tech, cond, study.targets)
     iq, ok = monte_carlo_iq(design, study.tech, corner, cond.temps[0], cond.vdd_nom, samples,
-                            np.random.default_rng(seed))
+                            np.random.default_rng(seed), mirrors=study.targets.mirrors.get(design.architecture))
     j = cond.nominal_index()
     return Confirmation(int(samples), int(seed), corner, cond.temps[0], cond.vdd_nom, iq[ok], int((~ok).sum()),
                         float(res.pvt["iq_a"][0, j]), float(res.pvt["iq_sigma_pct"][0, j]))

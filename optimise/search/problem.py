@@ -9,6 +9,7 @@ from __future__ import annotations
 import numpy as np
 from pymoo.core.problem import Problem
 
+from models.circuit.mirrors import checked
 from models.evaluate import Result, evaluate
 
 from ..files.space import Space
@@ -31,6 +32,8 @@ def constraint_names(study: Study) -> tuple[str, ...]:
         names.append("fp2")
     if np.isfinite(t.area_max):
         names.append("area")
+    if checked(t.mirrors):  # a bias source's mirror keeps its compliance voltage at rest
+        names.append("mirror_compliance")
     return tuple(names)
 
 

@@ -16,6 +16,8 @@ import time
 from dataclasses import replace
 from pathlib import Path
 
+from models.validity import length_warnings
+
 from .. import CAUTION
 from ..files.atomic import write_bytes
 from ..files.errors import InputError
@@ -32,6 +34,7 @@ from .export import (
 from . import checkpoint as ckpt
 from .nsga import Progress, collect, run_architecture
 from .problem import StageProblem
+from .runfolder import populations
 
 PLOTS = ("objectives.png", "hypervolume.png", "parallel.png")
 
@@ -137,6 +140,9 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
     sizes = table["architecture"].value_counts().to_dict() if len(table) else {}
     record = run_record(study, settings, runs, meta["seed"], meta["population"], meta["generations"], status,
                         blocked, wall, sizes)
+    warnings = length_warnings(study.tech, [d for _, d in populations(table)] if len(table) else [])
+    if warnings:
+        record["warnings"] = warnings
     write_json(out / "run.json", record)
     _plots(out, table, settings.objectives, {r.architecture: r.hypervolume for r in runs})
 
@@ -154,6 +160,8 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
               f"(worst margin {b['closest_margin']:.3g}):")
             for v in b["closest_violations"][:4]:
                 p(f"    - {v}")
+    for line in warnings:
+        p(f"warning: {line}")
     p(f"front:  {out / 'front.csv'}")
     p(f"plots:  {', '.join(str(out / n) for n in PLOTS)}")
     p(f"record: {out / 'run.json'}")

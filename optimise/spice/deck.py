@@ -99,7 +99,7 @@ def netlist_text(study: Study, row_id: str, design: Design, models: tb.ModelSour
     res = evaluate(design, tech, Conditions((corner,), (temp,), vdd, vdd, vdd), targets)
     lim = tb.drive_limits(design, tech, targets, corner, temp, np.array([vdd]), np.array([0]))
     sub = tb.netlist.subcircuit_name(mod)
-    cards, subckt = tb.design_models(mod, design, 0, tech, models, corner, temp, sub)
+    cards, subckt = tb.design_models(mod, design, 0, tech, models, corner, temp, sub, targets.mirrors.get(mod.NAME))
     pv = {k: float(v[0, 0]) for k, v in res.pvt.items()}
     t_c = temp - ZERO_CELSIUS
     half = 0.5 * vdd

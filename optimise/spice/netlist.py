@@ -69,7 +69,7 @@ from models.devices.tech import Corner, CornerShift, Polarity, Tech
 from models.evaluate import Design
 from models.stages import get_stage
 
-from . import ngspice
+from . import mirrornet, ngspice
 from .ngspice import NgspiceError, number
 
 OPTIONS = "reltol=1e-7 abstol=1e-15 vntol=1e-9"
@@ -179,7 +179,7 @@ def _length(x: float) -> str:
 # Netlist text
 # ---------------------------------------------------------------------------------------
 def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corner.TT,
-                temp: float | None = None, name: str | None = None) -> str:
+                temp: float | None = None, name: str | None = None, mirrors=None) -> str:
     """Level-1 ``.model`` cards of every device of design i, one per role.
 
     Parameters
@@ -205,7 +205,8 @@ def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corn
     Returns
     -------
     str
-        One line per role, in the topology's device order, named by `model_name`.
+        One line per role, in the topology's device order, named by `model_name`; then one
+        per sized mirror of `mirrors` (study key -> Mirror, see `mirrornet`), if given.
     """
     mod = stage_module(stage, design)
     shift = _shift(tech, corner)
@@ -217,12 +218,12 @@ def model_cards(stage, design: Design, i: int, tech: Tech, corner: Corner = Corn
             model_name(mod, spec.role, name), tech.mos(spec.polarity), spec.polarity, wl[spec.role][1],
             temp=temp, tnom=tech.tnom, dvt=dvt, kp_scale=kp,
         ))
-    return "\n".join(lines)
+    return "\n".join(lines + mirrornet.mirror_cards(mod, mirrors, tech, corner, temp, name))
 
 
 def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mapping[str, str],
                      grid: float | None = None, name: str | None = None,
-                     extra_ports: tuple[str, ...] = ()) -> str:
+                     extra_ports: tuple[str, ...] = (), mirrors=None) -> str:
     """The ``.subckt`` of design i, written from the architecture's topology.
 
     Parameters
@@ -246,6 +247,8 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
     extra_ports : tuple of str
         Internal topology nodes to bring out as ports after the usual ones (a test bench
         that forces a follower's gates needs them); nodes already ports are skipped.
+    mirrors : dict or None
+        Study key -> Mirror: those bias sources written as mirrors (`mirrornet`).
 
     Returns
     -------
@@ -277,9 +280,7 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
         bulk = spec.s if spec.role in design.tied else spec.rail
         nodes = " ".join(_node(n) for n in (spec.d, spec.g, spec.s, bulk))
         lines.append(f"{device_name(spec.role)} {nodes} {models[spec.role]} w={_length(w)} l={_length(l)}")
-    for src in mod.TOPOLOGY.sources:
-        val = _value(design.bias[src.bias], i)
-        lines.append(f"{_element('I', src.name)} {_node(src.a)} {_node(src.b)} dc {number(val)}")
+    lines += mirrornet.source_lines(mod, design, i, mirrors or {}, tech_or_models, snap, name)
     for res in mod.TOPOLOGY.resistors:
         val = _value(design.bias[res.bias], i)
         lines.append(f"{_element('R', res.name)} {_node(res.a)} {_node(res.b)} {number(val)}")
@@ -288,7 +289,7 @@ def stage_subcircuit(stage, design: Design, i: int, tech_or_models: Tech | Mappi
 
 
 def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner: Corner = Corner.TT,
-                   temp: float | None = None) -> str:
+                   temp: float | None = None, mirrors=None) -> str:
     """A complete ngspice deck for the rest point of design i (see the module notes).
 
     Parameters
@@ -321,8 +322,8 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
         f"stagefront {mod.NAME} design {i} at rest: {Corner(corner).value}, {t_c:g} degC, VDD = {float(vdd):g} V",
         f".options tnom={number(t_c)} {OPTIONS}",
         f".temp {number(t_c)}",
-        model_cards(mod, design, i, tech, corner, temp),
-        stage_subcircuit(mod, design, i, tech),
+        model_cards(mod, design, i, tech, corner, temp, mirrors=mirrors),
+        stage_subcircuit(mod, design, i, tech, mirrors=mirrors),
         f"V_DD vdd 0 dc {number(vdd)}",
         f"V_MID mid 0 dc {number(half)}",
         f"{INSTANCE} {' '.join('0' if p == GROUND_PORT else p for p in ports)} {subcircuit_name(mod)}",
@@ -398,7 +399,7 @@ class RestPoint:
 
 
 def simulate_rest(stage, design: Design, i: int, tech: Tech, vdd: float, corner: Corner = Corner.TT,
-                  temp: float | None = None, timeout: float = 60) -> RestPoint:
+                  temp: float | None = None, timeout: float = 60, mirrors=None) -> RestPoint:
     """Run `rest_testbench` in ngspice and read its rest point.
 
     Parameters are those of `rest_testbench`; `timeout` [s] bounds the ngspice process.
@@ -415,7 +416,7 @@ def simulate_rest(stage, design: Design, i: int, tech: Tech, vdd: float, corner:
         currents apart by more than 0.1 % (plus 1 nA).
     """
     mod = stage_module(stage, design)
-    deck = rest_testbench(mod, design, i, tech, vdd, corner, temp)
+    deck = rest_testbench(mod, design, i, tech, vdd, corner, temp, mirrors)
     res = ngspice.run(deck, timeout=timeout)
 
     def get(name: str) -> float:
@@ -444,6 +445,6 @@ def simulate_rest(stage, design: Design, i: int, tech: Tech, vdd: float, corner:
 
 
 def rest_iq(stage, design: Design, i: int, tech: Tech, vdd: float, corner: Corner = Corner.TT,
-            temp: float | None = None, timeout: float = 60) -> float:
+            temp: float | None = None, timeout: float = 60, mirrors=None) -> float:
     """Iq of design i at rest according to ngspice [A]: `simulate_rest(...).iq`."""
-    return simulate_rest(stage, design, i, tech, vdd, corner, temp, timeout).iq
+    return simulate_rest(stage, design, i, tech, vdd, corner, temp, timeout, mirrors).iq

@@ -47,6 +47,7 @@ from pathlib import Path
 
 import numpy as np
 
+from models.circuit.mirrors import source_states
 from models.devices.constants import ZERO_CELSIUS
 from models.devices.tech import Corner, Polarity, Tech
 from models.evaluate import Design, Targets, corner_shifts, devices_at, rest_point
@@ -178,15 +179,18 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
 
 
 def design_models(stage, design: Design, i: int, tech: Tech, models: ModelSource, corner: Corner, temp: float,
-                  name: str) -> tuple[str, str]:
-    """(model cards or "", subcircuit) of design i under the subcircuit name `name`."""
+                  name: str, mirrors=None) -> tuple[str, str]:
+    """(model cards or "", subcircuit) of design i under the subcircuit name `name`; `mirrors`
+    (study key -> Mirror) writes those bias sources as mirrors (`optimise.spice.mirrornet`)."""
     mod = stage_module(stage)
     if models.level1:
         # Level-1 cards named after the subcircuit, ``<name>_<role>``, at this corner and temperature.
-        return (netlist.model_cards(mod, design, i, tech, corner, temp, name),
-                netlist.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod)))
+        return (netlist.model_cards(mod, design, i, tech, corner, temp, name, mirrors),
+                netlist.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod),
+                                         mirrors=mirrors))
     names = {s.role: (models.nmos if s.polarity == Polarity.N else models.pmos) for s in mod.TOPOLOGY.devices}
-    return "", netlist.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name, extra_ports=gate_nodes(mod))
+    return "", netlist.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name, extra_ports=gate_nodes(mod),
+                                        mirrors=mirrors)
 
 
 def header(title: str, models: ModelSource, corner: Corner, temp: float) -> list[str]:
@@ -265,7 +269,10 @@ def drive_limits(design: Design, tech: Tech, targets: Targets, corner: Corner, t
     # The devices and the rest point exactly as models.evaluate builds and solves them.
     devs = devices_at(stage, design, tech, corner_shifts(tech, [Corner(corner)] * n), np.full(n, float(temp)), idx)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
-    nodes, ok, _, _ = rest_point(stage, devs, bias, vdd, sensitivity=False)
+    sources = source_states(stage.TOPOLOGY, targets.mirrors.get(design.architecture, {}), tech, devs, bias, vdd)
+    nodes, ok, _, _ = rest_point(stage, devs, bias, vdd, sensitivity=False, sources=sources)
+    if sources is not None:  # the driven points see the mirror currents of rest, as in models.evaluate
+        bias = sources.rest_bias(bias, nodes, vdd)
     up, _ = gate_nodes(stage)
     forced = {}
     for direction in (+1, -1):

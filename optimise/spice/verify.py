@@ -110,7 +110,8 @@ def simulate(pop: Population, members: list[int], study, models: tb.ModelSource,
                       f"{temp - ZERO_CELSIUS:g} degC", models, corner, temp)
     body, nodeset, saves, tags = [], [], [], []
     for k in members:
-        cards, sub = tb.design_models(mod, pop.design, k, tech, models, corner, temp, f"d{k}")
+        cards, sub = tb.design_models(mod, pop.design, k, tech, models, corner, temp, f"d{k}",
+                                      targets.mirrors.get(mod.NAME))
         if cards:
             lines.append(cards)
         lines.append(sub)

@@ -16,7 +16,7 @@ A grid file (TOML) names a base study and, per axis, the values to try::
 Axis keys:
 
 - ``architecture``: one architecture per cell (the cell searches ``architectures = [it]``;
-  the base's [bounds.X] and [ties.X] tables of the other architectures are dropped). The
+  the base's [bounds.X], [ties.X] and [mirrors.X] tables of the other architectures are dropped). The
   base study must have [bounds.X] for every value.
 - ``technology``: a technology file, relative to the grid file.
 - ``seed``: the search seed.
@@ -262,7 +262,7 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
         for k, v in values.items():
             if k == "architecture":
                 data["architectures"] = [v]
-                for table in ("bounds", "ties"):
+                for table in ("bounds", "ties", "mirrors"):
                     if table in data:
                         data[table] = {a: t for a, t in data[table].items() if a == v}
             elif k == "technology":

@@ -1,5 +1,5 @@
 """`stagefront calibrate --tables`: a table technology, the card tabulated by ngspice
-(`optimise.spice.tables`) beside the EKV summary fit of `calibrate`, written as a TOML
+(`optimise.calibrate.tables`) beside the EKV summary fit of `calibrate`, written as a TOML
 file with `model = "table"` and an `.npz` array file of the same stem.
 
 The EKV constants stay in the file's [nmos] and [pmos] tables as a summary of the card (the

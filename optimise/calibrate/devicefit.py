@@ -37,8 +37,8 @@ from models.devices.mos import Mos, current, specific_current
 from models.devices.tech import Corner, ModelKind
 
 from ..files.errors import InputError
-from . import ngspice
-from . import testbench as tb
+from ..spice import ngspice
+from ..spice import testbench as tb
 
 WIDTH = 10e-6  # m, width of the swept devices (wide: narrow-width effects stay small)
 STEP = 0.01  # V, sweep step

@@ -1,6 +1,6 @@
 """`stagefront calibrate`: fit a technology file to a SPICE model card through ngspice.
 
-The sweeps and the fits of one condition are `optimise.spice.devicefit`. Here they run at the
+The sweeps and the fits of one condition are `optimise.calibrate.devicefit`. Here they run at the
 nominal temperature (27 degC) on the typical section, at two more temperatures (-40 and
 125 degC) and on every other corner section of a ``.lib`` file:
 
@@ -31,7 +31,7 @@ from ..files.atomic import write_text
 from ..files.errors import InputError
 from ..files.techfile import load_tech, tech_from_dict
 from ..files.units import format_eng, parse_quantity
-from . import testbench as tb
+from ..spice import testbench as tb
 from .devicefit import (
     WIDTH,
     early_voltages,
@@ -238,6 +238,8 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
     for corner, s in corners.items():
         lines += ["", f"[corners.{corner.value}]                # {origin}",
                   f"dvt_n = {_g(s.dvt_n)}", f"kp_n = {_g(s.kp_n)}", f"dvt_p = {_g(s.dvt_p)}", f"kp_p = {_g(s.kp_p)}"]
+    lines += ["", "[calibration]            # where the fit holds: evaluate, optimise and report warn outside it",
+              f"fitted_lengths_um = [{', '.join(_g(x * 1e6) for x in cal.lengths)}]"]
     return "\n".join(lines) + "\n"
 
 

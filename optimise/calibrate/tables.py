@@ -24,8 +24,8 @@ from models.devices.constants import ZERO_CELSIUS
 from models.devices.table_data import QUANTITIES, PolarityTable
 from models.devices.tech import Corner, Polarity
 
-from . import ngspice
-from . import testbench as tb
+from ..spice import ngspice
+from ..spice import testbench as tb
 
 TEMPS_C = (-40.0, 27.0, 125.0)  # default temperatures [degC]
 N_LENGTHS = 12  # default number of lengths, log-spaced from the shortest to the longest
