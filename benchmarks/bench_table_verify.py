@@ -106,7 +106,7 @@ def main() -> None:
     design = random_designs(args.designs, np.random.default_rng(args.seed), lmin)
     models = tb.load_models(CARD, "nch", "pch")
     compare(study, design, models, f"table technology ({study.tech.name})")
-    ekv = study_from_dict(read_toml(STUDY), STUDY, load_tech(EKV))
+    ekv = study_from_dict(read_toml(STUDY), STUDY, load_tech(EKV))  # same study, single-length fit
     compare(ekv, design, models, f"single-length EKV calibration ({ekv.tech.name})")
 
 
