@@ -22,13 +22,13 @@ import numpy as np
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from models.evaluate import Design, evaluate  # noqa: E402
-from models.stages import get_stage  # noqa: E402
-from optimise.files.study import load_study, study_from_dict  # noqa: E402
-from optimise.files.tables import read_toml  # noqa: E402
-from optimise.files.techfile import load_tech  # noqa: E402
-from optimise.spice import testbench as tb  # noqa: E402
-from optimise.spice.verify import Population, simulate_all  # noqa: E402
+from models.evaluate import Design, evaluate
+from models.stages import get_stage
+from optimise.files.study import load_study, study_from_dict
+from optimise.files.tables import read_toml
+from optimise.files.techfile import load_tech
+from optimise.spice import testbench as tb
+from optimise.spice.verify import Population, simulate_all
 
 STUDY = ROOT / "studies" / "sensor-buffer-180.toml"
 CARD = ROOT / "studies" / "models" / "demo180-bsim3-invented.lib"
@@ -40,7 +40,7 @@ BIAS_A = {"ib_n": (0.2e-6, 5e-6), "ib_p": (0.2e-6, 5e-6), "ib_ctl": (0.4e-6, 10e
 
 def random_designs(n: int, rng, lmin: float) -> Design:
     stage = get_stage("floating-loop")
-    logu = lambda lo, hi: np.exp(rng.uniform(np.log(lo), np.log(hi), n))  # noqa: E731
+    logu = lambda lo, hi: np.exp(rng.uniform(np.log(lo), np.log(hi), n))
     w = {r: np.round(logu(*WIDTHS_UM[r]) * 1e-6 / 5e-9) * 5e-9 for r in stage.ROLES}
     l = {r: np.round(logu(lmin, 8 * lmin) / 5e-9) * 5e-9 for r in stage.ROLES}
     bias = {k: logu(*v) for k, v in BIAS_A.items()}

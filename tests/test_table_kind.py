@@ -63,7 +63,7 @@ def _ngspice_points(pol, corner, temp_c, w, l, vgs, vds, vsb):
                   f"M{k} d{k} g{k} s{k} 0 {model} w={float(w[k])!r} l={float(l[k])!r}",
                   f".save @m{k}[id] @m{k}[gm] @m{k}[gds]"]
     res = ngspice.run("\n".join(lines + [".op", ".end"]))
-    get = lambda q: np.array([abs(float(ngspice.vector(res, f"@m{k}[{q}]")[0])) for k in range(len(w))])  # noqa: E731
+    get = lambda q: np.array([abs(float(ngspice.vector(res, f"@m{k}[{q}]")[0])) for k in range(len(w))])
     return get("id"), get("gm"), get("gds")
 
 

@@ -8,7 +8,15 @@ from __future__ import annotations
 import numpy as np
 
 from .conditions import Mos
-from .table_data import _FLOOR, TableConstants, TableSelect, _forward, constants, partials_from
+from .table_data import (
+    _FLOOR,
+    TableConstants,
+    TableSelect,
+    _forward,
+    constants,
+    partials_from,
+)
+
 
 def _shape(m, *arrays):
     return np.broadcast(*(np.asarray(a) for a in arrays), np.asarray(m.table.slot), np.asarray(m.table.temp),
@@ -47,8 +55,8 @@ def _vds_for(vds, span):
 
 
 def _start_vgs(m: Mos, w, l, i):
-    from .ekv import ekv_f_inverse
     from .conditions import specific_current
+    from .ekv import ekv_f_inverse
     return m.vt0 + m.n * m.ut * ekv_f_inverse(np.maximum(i, _FLOOR) / specific_current(m, w, l))
 
 
@@ -161,7 +169,6 @@ def quantity(c: TableConstants, name: str, vgb, vdb, vsb):
     """A tabulated quantity (e.g. "cgg") at frame voltages, scaled to the instance's width
     (W / w_ref), multilinear in VGS, VDS, VSB between grid nodes; for a reversed device the
     tabulated value of the exchanged device (names keep their terminals: cgs <-> cgd)."""
-    t = c.table
     vgb, vdb, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(v, float)) for v in (vgb, vdb, vsb)))
     vgb = vgb - c.dvt
     swap = vdb < vsb
