@@ -9,9 +9,9 @@ import difflib
 import math
 import re
 import tomllib
-from pathlib import Path
 
 from .errors import InputError
+from .inputs import read_input_text
 from .units import parse_quantity
 
 
@@ -113,21 +113,11 @@ def build(where: str, table: str, cls, kwargs: dict):
 
 
 def read_toml(path, hint: str = "") -> dict:
-    """Parse a TOML file. A missing or unreadable file, text that is not UTF-8 and every
-    TOML error become InputError naming the path; `hint` is added to a missing file's message."""
+    """Parse a TOML file. A missing or unreadable file, a folder, FIFO or device, a file
+    over the size limit (`optimise.files.inputs`), text that is not UTF-8 and every TOML
+    error become InputError naming the path; `hint` is added to a missing file's message."""
     where = str(path)
-    try:
-        with open(Path(path), "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise InputError(where, "file not found", hint=f"check the path{'; ' + hint if hint else ''}") from None
-    except (OSError, TypeError, ValueError) as err:
-        reason = getattr(err, "strerror", None) or str(err)
-        raise InputError(where, f"cannot read the file ({reason})", "a readable TOML file") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise InputError(where, f"not UTF-8 text ({err.reason} at byte {err.start})", "a UTF-8 TOML file") from None
+    text = read_input_text(path, where, hint=hint)
     return loads_toml(text, where)
 
 

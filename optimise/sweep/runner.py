@@ -43,6 +43,8 @@ from pathlib import Path
 from ..files.atomic import write_text
 from ..files.errors import InputError
 from ..files.folders import clear, component, is_empty, locked, mark
+from ..files.inputs import read_input_text
+from ..search.frontfile import read_run_record
 from ..search.runtime import keep_freed_memory
 from .grid import Grid, load_grid
 from .summary import CAUTION, cell_row, joint_front, knee_rows, write_summary
@@ -185,11 +187,11 @@ def _prepare(out: Path, overwrite: bool, inputs=()) -> None:
 def _reusable(study_file: Path, run: Path) -> bool:
     """Whether `run` holds a finished run of exactly this study and technology text."""
     try:
-        record = json.loads((run / "run.json").read_text())
-        tech = Path(record["technology"]).read_text()
+        record = read_run_record(run / "run.json")
+        tech = read_input_text(record["technology"])
         return (record.get("status") == "finished" and (run / "front.csv").is_file()
                 and record.get("study_toml") == study_file.read_text() and record.get("technology_toml") == tech)
-    except (OSError, ValueError, KeyError, TypeError):
+    except (InputError, OSError, ValueError, KeyError, TypeError):
         return False
 
 
