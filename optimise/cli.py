@@ -150,6 +150,9 @@ def _ngspice_guard(run):
     except NgspiceError as err:
         print(f"stagefront: ngspice: {err}", file=sys.stderr)
         return 1
+    except KeyboardInterrupt:  # Ctrl-C or SIGTERM: ngspice is stopped, its temporary folder removed
+        print("stagefront: interrupted; nothing more was written", file=sys.stderr)
+        return 130
 
 
 def cmd_netlist(args) -> int:

@@ -32,6 +32,7 @@ from ..files.atomic import write_text
 from ..files.errors import InputError
 from ..files.techfile import load_tech, tech_from_dict
 from ..files.units import format_eng, parse_quantity
+from . import process
 from . import testbench as tb
 from .cards import comment_safe
 from .devicefit import (
@@ -290,7 +291,8 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
         raise InputError("--lengths", f"{format_eng(lengths[0], 'm')} is below --lmin {format_eng(lmin, 'm')}")
     tb.require_ngspice()
     kind = ModelKind(args.kind)
-    cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
+    with process.terminate_as_interrupt():
+        cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
     report(cal, stream)
     command = ("stagefront calibrate --models " + str(args.models) + f" --nmos {args.nmos} --pmos {args.pmos}"
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"
