@@ -96,12 +96,23 @@ def plain_number(value) -> bool:
                                                     value) is not None
 
 
+# The largest drawn size read from a file: 10 cm, far beyond any device, so that a size
+# written in the wrong unit (nanometres as micrometres, say) is refused, not taken
+# ("common practice, no source"). front.csv is held to the same ceiling.
+MAX_SIZE_M = 0.1
+
+
 def micrometres(where: str, table: str, key: str, value) -> float:
     """A size in metres: a plain number (also as a string) is micrometres; a string with a
-    scale letter ("60u", "0.35u") is metres."""
+    scale letter ("60u", "0.35u") is metres. Sizes above MAX_SIZE_M are refused."""
     if plain_number(value):
-        return number(where, table, key, value, "") * 1e-6
-    return number(where, table, key, value, "m")
+        result = number(where, table, key, value, "") * 1e-6
+    else:
+        result = number(where, table, key, value, "m")
+    if abs(result) > MAX_SIZE_M:
+        raise InputError(where, f"{table_prefix(table)}{key} = {show(value)} is {result:g} m, larger than any device",
+                         f"at most {MAX_SIZE_M * 1e6:g} um", "plain numbers are micrometres; \"60u\" is 60 um too")
+    return result
 
 
 def build(where: str, table: str, cls, kwargs: dict):
