@@ -239,3 +239,40 @@ def test_dollar_signs_in_folder_names_and_ids_reach_the_figures(run, tmp_path, c
     assert main(["compare", str(odd), str(run), "--out", str(tmp_path / "cmp")]) == 0
     assert (tmp_path / "cmp" / "compare.png").stat().st_size > 0
     assert "Traceback" not in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda r: r.update(architectures={"class-d": {}}), ["'class-d'", "not an architecture"]),
+    (lambda r: r["architectures"]["floating-loop"].update(hypervolume=["0.3", 0.4]), ["hypervolume"]),
+    (lambda r: r.update(population=True), ["population"]),
+    (lambda r: r.update(generations=-2), ["generations", ">= 0"]),
+    (lambda r: r.update(objectives={"power_w": "smallest"}), ["objectives"]),
+    (lambda r: r["architectures"]["floating-loop"].update(blocked="no"), ["blocked"]),
+])
+def test_run_json_types_and_ranges_are_checked(run, change, words):
+    import json
+
+    from optimise.search.frontfile import check_run_record
+
+    record = json.loads((run / "run.json").read_text())
+    check_run_record(record, "run.json")  # the real one passes
+    change(record)
+    with pytest.raises(InputError) as err:
+        check_run_record(record, "run.json")
+    for w in words:
+        assert w in str(err.value), str(err.value)
+
+
+def test_a_checkpoint_record_with_wrong_types_is_refused_on_resume(run, tmp_path, capsys):
+    import json
+
+    copy = tmp_path / "resume"
+    shutil.copytree(run, copy)
+    meta = copy / "checkpoint" / "meta.json"
+    record = json.loads(meta.read_text())
+    record["population"] = "many"
+    meta.write_text(json.dumps(record))
+    study = tiny_study(tmp_path, population=8, generations=3)
+    assert main(["optimise", str(study), "--out", str(copy), "--resume"]) == 2
+    err = capsys.readouterr().err
+    assert "meta.json" in err and "'population'" in err and "Traceback" not in err
