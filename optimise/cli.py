@@ -79,10 +79,20 @@ def _print_table(out: dict, mc: dict | None) -> None:
     if mc:
         print()
         print(f"Monte Carlo ({mc['samples']} samples, {mc['corner']}, {mc['temp_c']:g} C, {mc['vdd_v']:g} V): "
-              f"Iq mean {format_eng(mc['iq_mean_a'], 'A')}, sigma {mc['iq_sigma_pct']:.3f} % "
+              f"Iq mean {'n/a' if mc['iq_mean_a'] is None else format_eng(mc['iq_mean_a'], 'A')}, sigma "
+              f"{'n/a' if mc['iq_sigma_pct'] is None else format(mc['iq_sigma_pct'], '.3f') + ' %'} "
               f"(linear estimate {mc['linear_sigma_pct']:.3f} %), failed solves {mc['failed']}")
+        if mc["iq_sigma_pct"] is None:
+            print(f"  sigma n/a: {_no_sigma(mc)}")
     print()
     print(CAUTION)
+
+
+def _no_sigma(mc: dict) -> str:
+    """Why the Monte Carlo sigma is missing."""
+    if mc["samples"] - mc["failed"] < 2:
+        return f"fewer than two of the {mc['samples']} draws solved"
+    return "Iq is zero in every solved draw (the stage is cut off), so a spread in percent of Iq is undefined"
 
 
 def cmd_evaluate(args) -> int:
@@ -102,6 +112,8 @@ def cmd_evaluate(args) -> int:
     if args.json:
         notes: list = []
         out = json_safe(out, notes=notes)
+        if mc is not None and mc["iq_sigma_pct"] is None:
+            notes.append(f"montecarlo.iq_sigma_pct is null: {_no_sigma(mc)}")
         if notes:  # the reason beside the null, where a reader of violations looks
             out["violations"] = out["violations"] + [f"Monte Carlo: {n}" if n.startswith("montecarlo") else n
                                                      for n in notes]
@@ -153,6 +165,9 @@ def _ngspice_guard(run):
     except NgspiceError as err:
         print(f"stagefront: ngspice: {err}", file=sys.stderr)
         return 1
+    except KeyboardInterrupt:  # Ctrl-C or SIGTERM: ngspice is stopped, its temporary folder removed
+        print("stagefront: interrupted; nothing more was written", file=sys.stderr)
+        return 130
 
 
 def cmd_netlist(args) -> int:

@@ -93,3 +93,22 @@ def test_negative_seed_is_refused(tmp_path, capsys):
     assert main(["optimise", str(study), "--out", str(tmp_path / "r"), "--seed", "-1"]) == 2
     err = capsys.readouterr().err
     assert "--seed" in err and "Traceback" not in err and not (tmp_path / "r").exists()
+
+
+def test_sweep_overwrite_keeps_technology_files_an_axis_points_into_the_folder(tmp_path, capsys):
+    from test_sweep import TINY_SEARCH, write_grid
+    from optimise.files.folders import mark
+
+    out = tmp_path / "sw"
+    out.mkdir()
+    mark(out, "sweep")  # a sweep folder stagefront made, so only the technology file protects it
+    tech = out / "mine.toml"
+    tech.write_text((Path(__file__).resolve().parent.parent / "studies" / "tech" / "demo350-invented.toml")
+                    .read_text())
+    (out / "cells").mkdir()
+    grid = write_grid(tmp_path, f'base = "base.toml"\n{TINY_SEARCH}[axes]\ntechnology = ["sw/mine.toml"]\n')
+    before = _listing(out)
+    assert main(["sweep", str(grid), "--out", str(out), "--overwrite"]) == 2
+    err = capsys.readouterr().err
+    assert "--overwrite refused" in err and "mine.toml" in err and "nothing was deleted" in err
+    assert _listing(out) == before and tech.is_file()

@@ -149,7 +149,7 @@ def test_missing_file(tmp_path):
 
 
 def test_directory_instead_of_file(tmp_path):
-    with pytest.raises(InputError, match="cannot read the file"):
+    with pytest.raises(InputError, match="is a folder, not a file"):
         load_tech(tmp_path)
 
 

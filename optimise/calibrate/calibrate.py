@@ -18,6 +18,7 @@ sections, the corners come from --base or are defaults marked as such in the fil
 """
 from __future__ import annotations
 
+import re
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -31,7 +32,9 @@ from ..files.atomic import write_text
 from ..files.errors import InputError
 from ..files.techfile import load_tech, tech_from_dict
 from ..files.units import format_eng, parse_quantity
+from ..spice import process
 from ..spice import testbench as tb
+from ..spice.cards import comment_safe
 from .devicefit import (
     WIDTH,
     early_voltages,
@@ -47,6 +50,8 @@ from .devicefit import (
 LENGTH_FACTORS = (1, 2, 4, 8)  # default lengths, multiples of lmin
 TEMPS_C = (-40.0, 125.0)  # degC, the two more temperatures
 # Defaults for what DC sweeps cannot measure; written into the file as "default, not calibrated".
+# A technology name as calibrate writes it (between double quotes in the TOML file).
+_NAME = re.compile(r"[^\x00-\x1f\x7f\x85\u2028\u2029\"\\]{1,80}")
 DEFAULTS = {"a_vt": 5e-9, "a_beta": 1e-8, "cox": 8.5e-3, "cov": 3.5e-10}
 
 
@@ -250,8 +255,18 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
     stream = stream or sys.stdout
     err_stream = err_stream or sys.stderr
     out = Path(args.out)
+    if out.exists() and out.is_dir():
+        raise InputError(f"--out {out}", "is a folder", "a technology file path, e.g. tech/mine.toml")
     if out.exists() and not args.overwrite:
         raise InputError(f"--out {out}", "exists", hint="choose another file or add --overwrite")
+    if not out.resolve().parent.is_dir():
+        raise InputError(f"--out {out}", f"its folder {out.parent} does not exist", hint="create it first")
+    name = args.name or out.stem
+    # Checked before the minutes of sweeps: the name is written between quotes into the file.
+    if not _NAME.fullmatch(name):
+        raise InputError("--name" if args.name else f"--out {out}", f"technology name {name!r} cannot be used",
+                         "1 to 80 printable characters without quotes, backslashes or control characters",
+                         "give a plain name with --name, e.g. --name mine-180")
     models = tb.load_models(args.models, args.nmos, args.pmos, trust=getattr(args, "trust_card", False))
     corner = args.corner
     if corner not in tb.CORNERS:
@@ -285,15 +300,15 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
         options = table_options(args, lmin, vdd)
     tb.require_ngspice()
     kind = ModelKind(args.kind)
-    cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
+    with process.terminate_as_interrupt():
+        cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
     report(cal, stream)
-    name = args.name or out.stem
     command = ("stagefront calibrate --models " + str(args.models) + f" --nmos {args.nmos} --pmos {args.pmos}"
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"
                + (f" --lengths {args.lengths}" if args.lengths else "") + f" --vdd {args.vdd}"
                + (f" --base {args.base}" if args.base else "") + (f" --name {args.name}" if args.name else "")
                + (" --tables" if with_tables else "") + f" --out {args.out}")
-    text = tech_toml(cal, name, models, lmin, base, command)
+    text = tech_toml(cal, name, models, lmin, base, comment_safe(command))
     try:
         tech_from_dict(tomllib.loads(text), str(out))  # the file must load as it will be read
     except InputError as err:

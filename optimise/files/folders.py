@@ -119,7 +119,15 @@ def locked(folder, command: str):
     if folder.exists() and not folder.is_dir():
         raise InputError(f"--out {folder}", "exists and is not a folder", "a new folder or a run folder")
     created = not folder.exists()
-    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        blocking = next((str(p) for p in folder.parents if p.exists() and not p.is_dir()), str(folder.parent))
+        raise InputError(f"--out {folder}", f"cannot be created: {blocking} is a file, not a folder",
+                         hint="choose a path in a folder") from None
+    except OSError as err:
+        raise InputError(f"--out {folder}", f"cannot be created ({err.strerror or err})",
+                         hint="choose a folder you may write to") from None
     path = folder / LOCK
     mine = {"pid": os.getpid(), "host": socket.gethostname(), "command": command, "started": time.time()}
     for _ in range(3):

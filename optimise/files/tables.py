@@ -9,9 +9,9 @@ import difflib
 import math
 import re
 import tomllib
-from pathlib import Path
 
 from .errors import InputError
+from .inputs import read_input_text
 from .units import parse_quantity
 
 
@@ -96,12 +96,23 @@ def plain_number(value) -> bool:
                                                     value) is not None
 
 
+# The largest drawn size read from a file: 10 cm, far beyond any device, so that a size
+# written in the wrong unit (nanometres as micrometres, say) is refused, not taken
+# ("common practice, no source"). front.csv is held to the same ceiling.
+MAX_SIZE_M = 0.1
+
+
 def micrometres(where: str, table: str, key: str, value) -> float:
     """A size in metres: a plain number (also as a string) is micrometres; a string with a
-    scale letter ("60u", "0.35u") is metres."""
+    scale letter ("60u", "0.35u") is metres. Sizes above MAX_SIZE_M are refused."""
     if plain_number(value):
-        return number(where, table, key, value, "") * 1e-6
-    return number(where, table, key, value, "m")
+        result = number(where, table, key, value, "") * 1e-6
+    else:
+        result = number(where, table, key, value, "m")
+    if abs(result) > MAX_SIZE_M:
+        raise InputError(where, f"{table_prefix(table)}{key} = {show(value)} is {result:g} m, larger than any device",
+                         f"at most {MAX_SIZE_M * 1e6:g} um", "plain numbers are micrometres; \"60u\" is 60 um too")
+    return result
 
 
 def build(where: str, table: str, cls, kwargs: dict):
@@ -113,21 +124,11 @@ def build(where: str, table: str, cls, kwargs: dict):
 
 
 def read_toml(path, hint: str = "") -> dict:
-    """Parse a TOML file. A missing or unreadable file, text that is not UTF-8 and every
-    TOML error become InputError naming the path; `hint` is added to a missing file's message."""
+    """Parse a TOML file. A missing or unreadable file, a folder, FIFO or device, a file
+    over the size limit (`optimise.files.inputs`), text that is not UTF-8 and every TOML
+    error become InputError naming the path; `hint` is added to a missing file's message."""
     where = str(path)
-    try:
-        with open(Path(path), "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise InputError(where, "file not found", hint=f"check the path{'; ' + hint if hint else ''}") from None
-    except (OSError, TypeError, ValueError) as err:
-        reason = getattr(err, "strerror", None) or str(err)
-        raise InputError(where, f"cannot read the file ({reason})", "a readable TOML file") from None
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise InputError(where, f"not UTF-8 text ({err.reason} at byte {err.start})", "a UTF-8 TOML file") from None
+    text = read_input_text(path, where, hint=hint)
     return loads_toml(text, where)
 
 

@@ -7,7 +7,7 @@ import numpy as np
 
 from models.devices.constants import ZERO_CELSIUS
 
-from ..search.plots import png_bytes
+from ..search.plots import plain, png_bytes
 from .data import ReportData
 
 
@@ -50,8 +50,8 @@ def mismatch_figure(data: ReportData) -> bytes:
                            label=f"linear +-{k} sigma" if sign > 0 else None)
     ax.set_xlabel("Iq [uA]")
     ax.set_ylabel("samples per bin")
-    ax.set_title(f"Iq under mismatch: {data.picks['id'].iloc[0]}, {mc.corner.value}, "
-                 f"{mc.temp - ZERO_CELSIUS:g} C, {mc.vdd:g} V")
+    ax.set_title(plain(f"Iq under mismatch: {data.picks['id'].iloc[0]}, {mc.corner.value}, "
+                       f"{mc.temp - ZERO_CELSIUS:g} C, {mc.vdd:g} V"))
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()
@@ -68,7 +68,7 @@ def supply_figure(data: ReportData) -> bytes:
         v, iq = data.sweep[rid]
         i_nom = iq[np.argmin(np.abs(v - c.vdd_nom))]
         style = dict(marker="o" if k == 0 else ".", lw=2.2 if k == 0 else 1.0, ms=4, zorder=3 if k == 0 else 2)
-        ax.plot(v, iq * 1e6, label=f"{rid} ({pick})", **style)
+        ax.plot(v, iq * 1e6, label=plain(f"{rid} ({pick})"), **style)
         if i_nom > 0:
             rel.plot(v, 100 * (iq / i_nom - 1), **style)
     for limit, name in ((t.iq_min, "Iq window min"), (t.iq_max, "Iq window max")):

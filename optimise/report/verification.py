@@ -6,12 +6,15 @@ are simulator minus model: relative for currents, absolute volts for headrooms.
 """
 from __future__ import annotations
 
+import io
 import re
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from ..files.errors import InputError
+from ..files.inputs import MAX_TABLE_BYTES, read_input_text
 from ..files.units import format_eng
 from .render import Cell, Details, Table, short
 
@@ -35,13 +38,21 @@ def read_verification(run_path: Path) -> tuple:
     """RUN/verify.csv as (table with canonical column names where recognised, note).
 
     Column names are matched loosely (case, spaces and a few synonyms); unknown columns
-    are kept as they are. Returns (None, note) when the file is absent or unreadable.
+    are kept as they are. Returns (None, note) when the file is absent or not CSV.
+
+    Raises
+    ------
+    InputError
+        verify.csv is not a regular file, is too large (`optimise.files.inputs`), or a cell
+        of a numeric column (temp_c, vdd_v, model, simulator, error) is neither empty nor a
+        finite number; the message names the file, line and column.
     """
     path = Path(run_path) / "verify.csv"
-    if not path.is_file():
+    if not path.exists():
         return None, "Verification has not been run: this run folder has no verify.csv (`stagefront verify RUN`)."
+    text = read_input_text(path, str(path), MAX_TABLE_BYTES)
     try:
-        table = pd.read_csv(path, keep_default_na=False, na_values=[""])
+        table = pd.read_csv(io.StringIO(text), keep_default_na=False, na_values=[""], dtype=str)
     except (OSError, ValueError) as err:
         return None, f"verify.csv is present but cannot be read ({err}); it is left out."
     rename, taken = {}, set()
@@ -55,9 +66,26 @@ def read_verification(run_path: Path) -> tuple:
     table = table.rename(columns=rename)
     order = [c for c in _VERIFY_NAMES if c in table.columns] + [c for c in table.columns if c not in _VERIFY_NAMES]
     table = table[order]
+    for col in _NUMERIC:
+        if col in table:
+            table[col] = [_finite(v, path, k + 2, col) for k, v in enumerate(table[col])]
     done = int(pd.to_numeric(table["error"], errors="coerce").notna().sum()) if "error" in table else len(table)
     return table, (f"From {path.name}: {len(table)} comparisons, {done} with a simulator result"
                    + (f", {len(table) - done} without (see the note column)." if done < len(table) else "."))
+
+
+_NUMERIC = ("temp_c", "vdd_v", "model", "simulator", "error")
+_NUMBER = re.compile(r"\s*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?\s*")
+
+
+def _finite(value, path: Path, line: int, col: str) -> float:
+    """A numeric cell of verify.csv: NaN when empty, else a finite number (InputError otherwise)."""
+    if value is None or (isinstance(value, float) and np.isnan(value)) or not str(value).strip():
+        return np.nan
+    if not _NUMBER.fullmatch(str(value)):
+        raise InputError(str(path), f"line {line}, column {col}: {str(value)[:40]!r} is not a finite number",
+                         "a finite decimal number, or empty where the simulator gave no result")
+    return float(value)
 
 
 def _volts(row: dict) -> bool:

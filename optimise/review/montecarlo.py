@@ -45,8 +45,11 @@ class Confirmation:
 
     @property
     def sigma_pct(self) -> float | None:
-        """Sample 1-sigma of Iq in percent of its mean; None with fewer than two solved draws."""
-        return float(100 * self.iq.std(ddof=1) / self.iq.mean()) if self.iq.size > 1 else None
+        """Sample 1-sigma of Iq in percent of its mean; None with fewer than two solved draws
+        or a zero mean (a stage cut off in every draw)."""
+        if self.iq.size < 2 or self.iq.mean() == 0:
+            return None
+        return float(100 * self.iq.std(ddof=1) / self.iq.mean())
 
     def as_dict(self) -> dict:
         """The keys `stagefront evaluate --montecarlo` prints (JSON-safe)."""

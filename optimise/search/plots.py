@@ -29,6 +29,12 @@ def _plt():
     return plt
 
 
+def plain(text) -> str:
+    """`text` shown as it is: every ``$`` escaped, so that matplotlib never reads a run
+    folder's name or a row id holding two of them as mathtext (which may fail to parse)."""
+    return str(text).replace("$", r"\$")
+
+
 def label(name: str) -> str:
     text, unit, _ = LABELS.get(name, (name, "", 1.0))
     return f"{text} [{unit}]" if unit else text
@@ -76,7 +82,7 @@ def objective_matrix(table: pd.DataFrame, objectives, title: str = "", group: st
             for lab, sub in table.groupby(group, sort=False):
                 marker, colour = style.get(lab, ("x", "black"))
                 ax.scatter(scaled(sub, names[c]), scaled(sub, names[r]), s=14, marker=marker, color=colour,
-                           label=lab, alpha=0.8)
+                           label=plain(lab), alpha=0.8)
             if r == m - 1:
                 ax.set_xlabel(label(names[c]))
             if c == 0:
@@ -92,8 +98,8 @@ def objective_matrix(table: pd.DataFrame, objectives, title: str = "", group: st
                     labels.append(ll)
     if handles:  # the legend sits in the right margin: labels longer than an architecture's name in 7 pt
         long = max(len(str(lab)) for lab in labels) > max(len(a) for a in STYLE)
-        fig.legend(handles, labels, loc="upper right", title=group, fontsize=7 if long else None)
-    fig.suptitle(title or "Pareto fronts (feasible, non-dominated designs)")
+        fig.legend(handles, labels, loc="upper right", title=plain(group), fontsize=7 if long else None)
+    fig.suptitle(plain(title) if title else "Pareto fronts (feasible, non-dominated designs)")
     fig.tight_layout(rect=(0, 0, 0.85 if m > 2 else 0.75, 0.95))
     return fig
 
@@ -105,7 +111,7 @@ def hypervolume_curve(hv: dict, ax=None):
         _, ax = plt.subplots(figsize=(6, 4))
     for arch, values in hv.items():
         marker, colour = STYLE.get(arch, ("x", "black"))
-        ax.plot(np.arange(1, len(values) + 1), values, marker=marker, markersize=3, color=colour, label=arch)
+        ax.plot(np.arange(1, len(values) + 1), values, marker=marker, markersize=3, color=colour, label=plain(arch))
     ax.set_xlabel("generation")
     ax.set_ylabel("hypervolume [normalised objective box]")
     ax.set_title("Search progress")
@@ -128,7 +134,7 @@ def parallel_coordinates(table: pd.DataFrame, objectives, ax=None):
     for arch, row in zip(table["architecture"], data):
         marker, colour = STYLE.get(arch, ("x", "black"))
         ax.plot(range(len(names)), (row - lo) / span, color=colour, alpha=0.5, lw=1,
-                label=None if arch in seen else arch)
+                label=None if arch in seen else plain(arch))
         seen.add(arch)
     ax.set_xticks(range(len(names)))
     ax.set_xticklabels([f"{label(n)}\n{lo[k]:.3g} .. {hi[k]:.3g}" for k, n in enumerate(names)], fontsize=8)

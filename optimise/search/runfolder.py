@@ -3,7 +3,6 @@ the copies run.json keeps (`study_of_run`), and front rows as populations (`popu
 """
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -13,11 +12,11 @@ import pandas as pd
 from models.evaluate import Design
 
 from ..files.errors import InputError
-from ..files.space import OBJECTIVES
 from ..files.study import Study, load_study, study_from_dict
 from ..files.tables import loads_toml
 from ..files.techfile import tech_from_dict
 from .export import design_from_row
+from .frontfile import read_front_checked, read_run_record
 
 
 @dataclass(frozen=True)
@@ -49,7 +48,8 @@ def load_run(path) -> RunFolder:
     ------
     InputError
         A missing folder or file, unreadable JSON, objectives that are not a name -> sense
-        table, or a front.csv without a column for one of the objectives.
+        table, a front.csv without a column for one of the objectives, and every cell or key
+        that `optimise.search.frontfile` refuses (naming file, line, row and column).
     """
     path = Path(path)
     if not path.is_dir():
@@ -59,24 +59,18 @@ def load_run(path) -> RunFolder:
         if not (path / name).is_file():
             raise InputError(str(path), f"has no {name}", "a folder written by `stagefront optimise`",
                              "an interrupted run writes both; a folder with only checkpoint/ needs --resume")
-    try:
-        record = json.loads((path / "run.json").read_text())
-    except (OSError, ValueError) as err:
-        raise InputError(str(path / "run.json"), f"cannot be read: {err}") from None
-    objectives = record.get("objectives") if isinstance(record, dict) else None
-    if (not isinstance(objectives, dict) or not objectives
-            or any(n not in OBJECTIVES or s not in ("min", "max") for n, s in objectives.items())):
-        raise InputError(str(path / "run.json"), f"'objectives' = {objectives!r} is not usable",
-                         f"a table of objective -> \"min\"|\"max\" with names from {', '.join(OBJECTIVES)}")
-    try:
-        table = pd.read_csv(path / "front.csv")
-    except (OSError, ValueError) as err:
-        raise InputError(str(path / "front.csv"), f"cannot be read: {err}") from None
-    need = ["id", "architecture"] + (list(objectives) if len(table) else [])
-    missing = [c for c in need if c not in table.columns]
+    record = read_run_record(path / "run.json")
+    objectives = record["objectives"]
+    table = read_front_checked(path / "front.csv")
+    missing = [c for c in objectives if c not in table.columns] if len(table) else []
     if missing:
         raise InputError(str(path / "front.csv"), f"has no column {', '.join(missing)}",
                          "the columns `stagefront optimise` writes", "re-run the search with this version")
+    for name in objectives:
+        empty = table["id"][table[name].isna()].tolist() if name in table.columns else []
+        if empty:
+            raise InputError(str(path / "front.csv"), f"row {empty[0]!r}, column {name}: is empty",
+                             "a number in every objective column", "restore the file `stagefront optimise` wrote")
     return RunFolder(path, path.resolve().name or str(path), dict(objectives), table, record)
 
 

@@ -22,6 +22,7 @@ from .. import CAUTION
 from ..files.atomic import write_bytes
 from ..files.errors import InputError
 from ..files.folders import clear, component, is_empty, locked, mark
+from ..files.inputs import load_json
 from ..files.space import load_search
 from ..files.study import load_study
 from .export import (
@@ -47,12 +48,17 @@ def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict, inputs=()) ->
             raise InputError(str(out), "has no checkpoint to resume from",
                              hint="start a new run without --resume")
         try:
-            saved = json.loads(meta_path.read_text())
+            saved = load_json(meta_path)
             if not isinstance(saved, dict):
-                raise ValueError("not a JSON object")
-        except (OSError, ValueError) as exc:
-            raise InputError(str(meta_path), f"is not a readable checkpoint record ({exc})",
-                             hint="start a new run folder")
+                raise InputError(str(meta_path), "holds no JSON object")
+        except InputError as exc:
+            raise InputError(str(meta_path), f"is not a readable checkpoint record ({exc.what})",
+                             hint="start a new run folder") from None
+        for key, low in (("seed", 0), ("population", 4), ("generations", 1)):
+            value = saved.get(key)
+            if not isinstance(value, int) or isinstance(value, bool) or value < low:
+                raise InputError(str(meta_path), f"{key!r} = {value!r} is not usable", f"an integer >= {low}",
+                                 "start a new run folder")
         for key in ("seed", "population", "generations", "study_toml", "inputs_sha256"):
             if key in meta and meta[key] is not None and saved.get(key) != meta[key]:
                 shown = {"study_toml": "the study file changed",

@@ -13,6 +13,7 @@ import re
 from pathlib import Path
 
 from ..files.errors import InputError
+from ..files.inputs import MAX_CARD_BYTES, read_input_text
 
 NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_.]{0,63}")
 _BREAKS = re.compile(r"[\x00-\x1f\x7f\x85\u2028\u2029]+")
@@ -58,9 +59,12 @@ def scan_card(where: str, path: Path, text: str, trust: bool = False, depth: int
         if m and depth < 8:
             target = Path(m.group(2).strip("\"'"))
             target = target if target.is_absolute() else path.parent / target
-            if target.is_file():
+            if target.exists():  # a FIFO or device here would stall ngspice: read_input refuses it
                 try:
-                    inner = target.read_text()
-                except (OSError, UnicodeDecodeError):
-                    continue
+                    inner = read_input_text(target, f"{where} {path}: line {number} includes {target}",
+                                            MAX_CARD_BYTES)
+                except InputError as err:
+                    if "not UTF-8" in err.what:
+                        continue
+                    raise
                 scan_card(where, target, inner, trust, depth + 1)

@@ -39,7 +39,6 @@ import os
 import re
 import shutil
 import subprocess
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -48,6 +47,8 @@ import numpy as np
 from models.devices.constants import T_NOMINAL, ZERO_CELSIUS
 from models.devices.mos import at_conditions
 from models.devices.tech import ModelKind, MosTech, Polarity
+
+from . import process
 
 ENV_EXECUTABLE = "STAGEFRONT_NGSPICE"
 RAWFILE = "stagefront.raw"
@@ -66,7 +67,8 @@ _CONTROL = re.compile(r"^\s*\.control\b", re.IGNORECASE | re.MULTILINE)
 class NgspiceError(Exception):
     """ngspice could not be run, or the run failed; the message quotes ngspice itself.
 
-    Attributes: `returncode` (None if the process never finished), `stdout`, `stderr`.
+    Attributes: `returncode` (None if the process never finished), `stdout`, `stderr`,
+    `timed_out` (the run reached its time limit).
     """
 
     def __init__(self, message: str, returncode: int | None = None, stdout: str = "", stderr: str = ""):
@@ -74,6 +76,7 @@ class NgspiceError(Exception):
         self.returncode = returncode
         self.stdout = stdout
         self.stderr = stderr
+        self.timed_out = False
 
 
 @dataclass
@@ -122,7 +125,7 @@ def require_executable() -> str:
 # ---------------------------------------------------------------------------------------
 # Running
 # ---------------------------------------------------------------------------------------
-def run_plots(netlist: str, timeout: float = 60) -> list[Plot]:
+def run_plots(netlist: str, timeout: float = 60, progress=None) -> list[Plot]:
     """Run a deck in ngspice batch mode and return every plot it wrote, in file order.
 
     Parameters
@@ -132,6 +135,8 @@ def run_plots(netlist: str, timeout: float = 60) -> list[Plot]:
         with a ``.control`` block.
     timeout : float
         Wall-clock limit [s] for the ngspice process.
+    progress : callable, optional
+        Called with the seconds elapsed every 10 s while ngspice runs (`process.run`).
 
     Returns
     -------
@@ -140,22 +145,23 @@ def run_plots(netlist: str, timeout: float = 60) -> list[Plot]:
     Raises
     ------
     NgspiceError
-        When ngspice is missing, cannot start, times out or reports a failure.
+        When ngspice is missing, cannot start, times out (``timed_out`` is then True) or
+        reports a failure. The private folder of the run is removed on every exit path
+        (`optimise.spice.process`).
     """
     exe = require_executable()
     has_control = _CONTROL.search(netlist) is not None
-    with tempfile.TemporaryDirectory(prefix="stagefront-ngspice-") as tmp:
+    with process.private_folder() as tmp:
         deck = Path(tmp) / DECKFILE
         deck.write_text(netlist if netlist.endswith("\n") else netlist + "\n")
         args = [exe, "-b", "-n"] + ([] if has_control else ["-r", RAWFILE]) + [DECKFILE]
         try:
-            proc = subprocess.run(
-                args, cwd=tmp, stdin=subprocess.DEVNULL, capture_output=True, text=True,
-                errors="replace", timeout=timeout,
-            )
+            proc = process.run(args, tmp, timeout, progress)
         except subprocess.TimeoutExpired as err:
-            raise NgspiceError(f"ngspice did not finish within {timeout:g} s", None,
-                               _text(err.stdout), _text(err.stderr)) from err
+            failure = NgspiceError(f"ngspice did not finish within {timeout:.3g} s", None,
+                                   _text(err.stdout), _text(err.stderr))
+            failure.timed_out = True
+            raise failure from None
         except OSError as err:
             raise NgspiceError(f"cannot start ngspice ({exe}): {err}") from err
         errors = [ln.strip() for ln in proc.stderr.splitlines()

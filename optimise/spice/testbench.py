@@ -54,6 +54,7 @@ from models.evaluate import Design, Targets, corner_shifts, devices_at, rest_poi
 from models.stages import get_stage
 
 from ..files.errors import InputError
+from ..files.inputs import MAX_CARD_BYTES, read_input_text
 from .cards import check_card_path, check_model_name, comment_safe, scan_card
 from . import netlist, ngspice
 from .netlist import common_source, gate_nodes, stage_module
@@ -108,7 +109,7 @@ class ModelSource:
 
 _SECTION = re.compile(r"^\s*\.lib\s+([A-Za-z0-9_]+)\s*$", re.IGNORECASE)
 _REFERENCE = re.compile(r"^\s*\.(lib|include|inc)\s+\S+", re.IGNORECASE)
-_MODEL = re.compile(r"^\s*\.model\s+(\S+)", re.IGNORECASE)
+_MODEL = re.compile(r"^\s*\.model\s+([^\s(]+)(?:\s*\(?\s*([A-Za-z]+))?", re.IGNORECASE)
 
 
 def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--models",
@@ -141,17 +142,10 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
     check_model_name("--pmos", pmos)
     p = Path(path)
     check_card_path(where, p.resolve())
-    try:
-        text = p.read_text()
-    except FileNotFoundError:
-        raise InputError(f"{where} {p}", "file not found", hint="give the path of a SPICE model card (.lib or .mod)") \
-            from None
-    except IsADirectoryError:
-        raise InputError(f"{where} {p}", "is a folder, not a model file") from None
-    except (OSError, UnicodeDecodeError) as err:
-        raise InputError(f"{where} {p}", f"cannot be read as text ({err})") from None
+    text = read_input_text(p, f"{where} {p}", MAX_CARD_BYTES,
+                           hint="give the path of a SPICE model card (.lib or .mod)")
     scan_card(where, p, text, trust)
-    sections, models, refs = [], set(), False
+    sections, models, refs = [], {}, False
     for line in text.splitlines():
         m = _SECTION.match(line)
         if m:
@@ -160,8 +154,8 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
         if _REFERENCE.match(line):
             refs = True
         m = _MODEL.match(line)
-        if m:
-            models.add(m.group(1).lower().split(".")[0])
+        if m:  # name -> the device types the card declares it with (nmos, pmos)
+            models.setdefault(m.group(1).lower().split(".")[0], set()).add((m.group(2) or "").lower())
     if not models and not refs:
         raise InputError(f"{where} {p}", "holds no .model card", hint="a SPICE model file defines its devices with "
                          "'.model NAME nmos (...)' lines, optionally inside '.lib tt' ... '.endl tt' sections")
@@ -170,6 +164,13 @@ def load_models(path, nmos: str = "nch", pmos: str = "pch", where: str = "--mode
             if name.lower() not in models:
                 raise InputError(f"{where} {p}", f"defines no model {name!r} ({option})",
                                  ", ".join(sorted(models)), f"name the file's models with {option}")
+            kind = option.lstrip("-")
+            other = {"nmos": "pmos", "pmos": "nmos"}[kind]
+            if other in models[name.lower()]:
+                raise InputError(f"{where} {p}", f"model {name!r} ({option}) is declared {other.upper()} in the card "
+                                 f"('.model {name} {other}')", f"{'an' if kind == 'nmos' else 'a'} {kind.upper()} model for {option}",
+                                 f"name the card's {kind.upper()} model with {option}; "
+                                 f"{'--pmos' if kind == 'nmos' else '--nmos'} takes the {other.upper()} one")
     # Sections that are not corners (a shared body, say) are allowed and not simulated.
     corners = tuple(s for s in CORNERS if s in sections)
     if sections and not corners:

@@ -37,12 +37,24 @@ from ..files.atomic import write_text
 from ..files.folders import locked
 from ..files.errors import InputError
 from ..search import runfolder
-from . import ngspice
+from . import ngspice, process
 from . import testbench as tb
 from .deck import load_run
 from .ngspice import NgspiceError
 
 BATCH = 16  # designs per ngspice process (each at every supply of the study)
+# Time limit of one ngspice process, scaled to its deck: a start-up allowance plus a share per
+# design x supply (a rest point and two 100-point drive sweeps). A BSIM3 deck measured here
+# takes about 0.1 s per design x supply on a loaded 2-core machine; the limit allows ten
+# times that, so only a run that is stuck (a card that does not converge) reaches it.
+TIME_BASE_S = 10.0
+TIME_PER_POINT_S = 1.0
+PROGRESS_S = 10.0  # a progress line on stderr this often while one ngspice process runs
+
+
+def time_limit(designs: int, supplies: int) -> float:
+    """Wall-clock limit [s] of one verify deck of `designs` designs at `supplies` supplies."""
+    return TIME_BASE_S + TIME_PER_POINT_S * designs * supplies
 METRICS = ("iq_a", "headroom_high_v", "headroom_low_v", "iout_source_a", "iout_sink_a")
 ABSOLUTE = ("headroom_high_v", "headroom_low_v")  # compared in volts; the rest relatively
 COLUMNS = ("id", "architecture", "corner", "temp_c", "vdd_v", "metric", "model", "simulator", "error",
@@ -94,11 +106,12 @@ def choose_rows(front, rows: str | None, all_rows: bool) -> list[str]:
 # One deck
 # ---------------------------------------------------------------------------------------
 def simulate(pop: Population, members: list[int], study, models: tb.ModelSource, corner: Corner, temp: float,
-             timeout: float = 300) -> dict:
+             timeout: float | None = None, log=None) -> dict:
     """ngspice's figures for designs `members` of `pop` at every supply, one process.
 
-    Returns {(member, vdd): {metric: value, "note": str}}. Raises NgspiceError when the
-    run fails as a whole.
+    `timeout` defaults to `time_limit` of the deck; `log`, when given, gets a progress line
+    every PROGRESS_S seconds while ngspice runs. Returns {(member, vdd): {metric: value,
+    "note": str}}. Raises NgspiceError when the run fails as a whole.
     """
     mod = get_stage(pop.design.architecture)
     tech, targets = study.tech, study.targets
@@ -130,7 +143,11 @@ def simulate(pop: Population, members: list[int], study, models: tb.ModelSource,
     if nodeset:
         lines.append(".nodeset " + " ".join(nodeset))
     lines += [".save all " + " ".join(saves), ".op", f".dc V_SWEEP 0 1 {1.0 / tb.SWEEP_POINTS!r}", ".end"]
-    plots = ngspice.run_plots("\n".join(lines), timeout=timeout)
+    timeout = time_limit(len(members), len(supplies)) if timeout is None else timeout
+    what = f"{mod.NAME} {corner.value} {temp - ZERO_CELSIUS:g} C, {len(members)} design(s)"
+    progress = (lambda t: log(f"    ... {what}: ngspice still running after {t:.0f} s (limit {timeout:.0f} s)")) \
+        if log else None
+    plots = ngspice.run_plots("\n".join(lines), timeout=timeout, progress=progress)
     op = next((p.vectors for p in plots if p.name.lower().startswith("operating")), None)
     dc = next((p.vectors for p in plots if p.name.lower().startswith("dc")), None)
     if op is None or dc is None:
@@ -161,24 +178,41 @@ def _first_lines(err: Exception, n: int = 4) -> str:
 
 
 def simulate_all(pop: Population, study, models, corner, temp, log) -> dict:
-    """Every design of `pop` at one corner and temperature: batched, then one by one on failure."""
+    """Every design of `pop` at one corner and temperature: batched, then one by one on failure.
+
+    After two designs in a row time out alone, the rest of their batch is recorded as not
+    simulated (a card that does not converge would otherwise cost a time limit per design).
+    """
     n = pop.design.size
     results = {}
+    where = f"{pop.design.architecture} {corner.value} {temp - ZERO_CELSIUS:g} C"
     for start in range(0, n, BATCH):
         members = list(range(start, min(start + BATCH, n)))
+        if n > BATCH:
+            log(f"  {where}: designs {start + 1}-{members[-1] + 1} of {n}")
         try:
-            results.update(simulate(pop, members, study, models, corner, temp))
+            results.update(simulate(pop, members, study, models, corner, temp, log=log))
             continue
         except NgspiceError as err:
             if len(members) == 1:
                 pop.failures.setdefault(pop.ids[members[0]], {})[(corner, temp)] = _first_lines(err)
                 continue
             log(f"  batch of {len(members)} failed ({_first_lines(err, 1)}); running its designs one by one")
-        for k in members:
+        timeouts = 0
+        for j, k in enumerate(members):
+            if timeouts >= 2:
+                pop.failures.setdefault(pop.ids[k], {})[(corner, temp)] = \
+                    "not simulated: two designs before it in its batch timed out"
+                continue
+            log(f"  {where}: design {pop.ids[k]} ({j + 1} of {len(members)}) alone")
             try:
-                results.update(simulate(pop, [k], study, models, corner, temp))
+                results.update(simulate(pop, [k], study, models, corner, temp, log=log))
+                timeouts = 0
             except NgspiceError as err:
+                timeouts = timeouts + 1 if getattr(err, "timed_out", False) else 0
                 pop.failures.setdefault(pop.ids[k], {})[(corner, temp)] = _first_lines(err)
+        if timeouts >= 2:
+            log(f"  {where}: two designs in a row timed out; the rest of the batch is left out")
     return results
 
 
@@ -198,7 +232,7 @@ def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmo
     err_stream = err_stream or sys.stderr
     log = lambda s: print(s, file=err_stream, flush=True)  # noqa: E731
     study, front, folder = load_run(run)
-    with locked(folder, "verify"):
+    with locked(folder, "verify"), process.terminate_as_interrupt():
         return _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log, trust)
 
 

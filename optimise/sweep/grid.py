@@ -278,12 +278,17 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
         setting = ", ".join(f"{k} = {_inline(v)}" for k, v in values.items())
         if "description" in data:
             data["description"] = f"{data['description']} [{name}: {setting}]"
-        header = (f"# Cell {cname} of the sweep {name}: the base study {base.name} with\n"
-                  f"# {setting}.\n"
+        header = (f"# Cell {cname} of the sweep {_one_line(name)}: the base study {_one_line(base.name)} with\n"
+                  f"# {_one_line(setting)}.\n"
                   "# Written by `stagefront sweep`; run it on its own with `stagefront optimise THIS-FILE`.\n"
                   f"# {CAUTION}\n")
         cells.append(Cell(cname, values, header + dumps(data)))
     return tuple(cells)
+
+
+def _one_line(text) -> str:
+    """`text` fit for a TOML comment: control characters and line breaks become spaces."""
+    return re.sub(r"[\x00-\x1f\x7f\x85\u2028\u2029]+", " ", str(text))
 
 
 # ------------------------------------------------------------------------- TOML writer

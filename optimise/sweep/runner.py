@@ -43,6 +43,8 @@ from pathlib import Path
 from ..files.atomic import write_text
 from ..files.errors import InputError
 from ..files.folders import clear, component, is_empty, locked, mark
+from ..files.inputs import read_input_text
+from ..search.frontfile import read_run_record
 from ..search.runtime import keep_freed_memory
 from .grid import Grid, load_grid
 from .summary import CAUTION, cell_row, joint_front, knee_rows, write_summary
@@ -182,14 +184,27 @@ def _prepare(out: Path, overwrite: bool, inputs=()) -> None:
     mark(out, "sweep")
 
 
+def _inputs(grid: Grid) -> list:
+    """Every file the sweep reads: the grid, its base study and each cell's technology file
+    (an axis may point into the sweep folder; `--overwrite` must never delete it)."""
+    import tomllib
+
+    files = [grid.path, grid.base]
+    for cell in grid.cells:
+        tech = tomllib.loads(cell.toml).get("technology")
+        if isinstance(tech, str) and tech not in files:
+            files.append(tech)
+    return files
+
+
 def _reusable(study_file: Path, run: Path) -> bool:
     """Whether `run` holds a finished run of exactly this study and technology text."""
     try:
-        record = json.loads((run / "run.json").read_text())
-        tech = Path(record["technology"]).read_text()
+        record = read_run_record(run / "run.json")
+        tech = read_input_text(record["technology"])
         return (record.get("status") == "finished" and (run / "front.csv").is_file()
                 and record.get("study_toml") == study_file.read_text() and record.get("technology_toml") == tech)
-    except (OSError, ValueError, KeyError, TypeError):
+    except (InputError, OSError, ValueError, KeyError, TypeError):
         return False
 
 
@@ -243,7 +258,7 @@ def run_sweep(grid_path, out=None, scheduler: str | None = None, workers: int | 
 def _sweep(grid: Grid, out: Path, overwrite: bool, scheduler, workers: int, montecarlo: int, mc_seed: int,
            p) -> int:
     """The body of `run_sweep`, with the sweep folder locked."""
-    _prepare(out, overwrite, (grid.path, grid.base))
+    _prepare(out, overwrite, _inputs(grid))
     t0 = time.perf_counter()
     record = {"grid": str(grid.path), "grid_toml": grid.path.read_text(), "name": grid.name, "base": str(grid.base),
               "cluster": scheduler or f"local: {workers} worker process(es), 1 thread each"}

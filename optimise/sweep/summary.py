@@ -23,7 +23,7 @@ DONE = ("finished", "reused")
 
 def cell_row(grid: Grid, cell, state: dict, out: Path) -> dict:
     from ..review.compare import minimised
-    from ..search.export import read_front
+    from ..search.frontfile import read_front_checked, read_run_record
 
     row = {"cell": cell.name}
     row.update({k: (v if isinstance(v, (str, int, float)) else json.dumps(v)) for k, v in cell.values.items()})
@@ -31,8 +31,8 @@ def cell_row(grid: Grid, cell, state: dict, out: Path) -> dict:
                evaluations=np.nan, wall_time_s=state.get("wall_time_s", np.nan))
     run = out / "cells" / cell.name
     if state["status"] in DONE:
-        record = json.loads((run / "run.json").read_text())
-        table = read_front(run / "front.csv")
+        record = read_run_record(run / "run.json")
+        table = read_front_checked(run / "front.csv")
         archs = record.get("architectures", {})
         finals = [a["hypervolume"][-1] for a in archs.values() if a.get("hypervolume")]
         row.update(front_size=len(table), hypervolume=max(finals) if finals else 0.0,
@@ -147,12 +147,12 @@ def knee_rows(grid: Grid, out: Path, rows: list[dict]) -> dict:
     `stagefront pick`'s (`optimise.review.pick.rank`)."""
     from ..files.study import load_study
     from ..review.pick import rank
-    from ..search.export import read_front
+    from ..search.frontfile import read_front_checked
 
     jobs = {}
     for r in rows:
         if r["status"] in DONE and r["front_size"]:
-            knee = rank(read_front(Path(r["run_folder"]) / "front.csv"), grid.objectives, "knee").iloc[0]
+            knee = rank(read_front_checked(Path(r["run_folder"]) / "front.csv"), grid.objectives, "knee").iloc[0]
             r["mc_design_id"] = str(knee["id"])
             jobs[r["cell"]] = (load_study(r["study_file"]), knee.drop("knee_distance").to_dict())
     return jobs
