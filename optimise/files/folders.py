@@ -90,7 +90,8 @@ def is_empty(folder: Path) -> bool:
 LOCK = ".stagefront-lock"
 
 
-def _alive(pid: int) -> bool:
+def process_alive(pid: int) -> bool:
+    """Whether a process with this id runs on this machine (another user's counts)."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
@@ -135,7 +136,7 @@ def locked(folder, command: str):
             fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
         except FileExistsError:
             other = _holder(path)
-            stale = other and other.get("host") == mine["host"] and not _alive(other["pid"])
+            stale = other and other.get("host") == mine["host"] and not process_alive(other["pid"])
             if stale or (not other and time.time() - path.stat().st_mtime > 60):
                 path.unlink(missing_ok=True)
                 continue

@@ -20,19 +20,11 @@ import threading
 import time
 from pathlib import Path
 
+from ..files.folders import process_alive
+
 PREFIX = "stagefront-ngspice-"
 _OWNED = re.compile(re.escape(PREFIX) + r"(\d+)-")
 _swept = False
-
-
-def _alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:  # another user's process
-        return True
-    return True
 
 
 def remove_stale(folder=None) -> list[Path]:
@@ -45,7 +37,7 @@ def remove_stale(folder=None) -> list[Path]:
         return removed
     for entry in entries:
         m = _OWNED.match(entry.name)
-        if m and int(m.group(1)) != os.getpid() and not _alive(int(m.group(1))) and entry.is_dir() \
+        if m and int(m.group(1)) != os.getpid() and not process_alive(int(m.group(1))) and entry.is_dir() \
                 and not entry.is_symlink():
             shutil.rmtree(entry, ignore_errors=True)
             removed.append(entry)
