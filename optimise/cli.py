@@ -13,6 +13,7 @@ from models.evaluate import evaluate
 
 from . import CAUTION
 from .files.errors import InputError
+from .files.space import study_ties
 from .files.study import load_design, load_study
 from .files.units import format_eng
 from .review.evaluation import json_safe, result_to_dict
@@ -24,21 +25,24 @@ from .search.runtime import keep_freed_memory
 MAX_MONTECARLO = 1_000_000
 
 SUMMARY_UNITS = {
-    "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",
-    "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "ab_ratio": "",
-    "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
+    "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "power_max_w": "W", "headroom_high_v": "V",
+    "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "iout_peak_a": "A",
+    "ab_ratio": "", "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
     "fp2_hz": "Hz", "c_drive_f": "F",
 }
 SUMMARY_MEANING = {
     "iq_a": "quiescent current (tt, nominal supply and temperature)",
     "iq_min_a": "lowest Iq over PVT", "iq_max_a": "highest Iq over PVT",
-    "power_w": "supply x (Iq + bias branches), nominal",
+    "power_w": "supply x (Iq + bias branches), typical (tt, nominal)",
+    "power_max_w": "supply x (Iq + bias branches), worst over PVT",
     "headroom_high_v": "worst distance from VDD at the peak load",
     "headroom_low_v": "worst distance from ground at the peak load",
     "swing_v": "worst VDD minus both headrooms",
+    "delivers_load": "the stage delivers the peak load both ways at every PVT point",
     "iout_source_a": "lowest peak source current at mid-supply",
     "iout_sink_a": "lowest peak sink current at mid-supply",
-    "ab_ratio": "lowest idle-device current at peak load / Iq",
+    "iout_peak_a": "highest peak output current at full drive (short circuit)",
+    "ab_ratio": "smallest idle-device current over the output range / Iq",
     "area_um2": "sum of W L (times the layout factor)",
     "iq_sigma_pct": "worst 1-sigma Iq spread from mismatch",
     "supply_sens_pct_per_v": "worst Iq change per volt of supply",
@@ -46,28 +50,39 @@ SUMMARY_MEANING = {
     "fp2_hz": "lowest output pole gm_out / (2 pi C_load)",
     "c_drive_f": "gate capacitance the stage loads its driver with",
 }
+LIMIT_WORDS = ("limits: what stops the drive on each side (source/sink). compliance: the driver got within "
+               "its compliance of the rail; control-saturation: the bias loop's control device left saturation "
+               "first, so the loop, not the driver, caps the drive.")
+
+
+def _shown(name: str, value, unit: str) -> str:
+    if name == "delivers_load":
+        return "yes" if value else "CANNOT DELIVER"
+    if value is None:
+        return "cannot deliver" if name in ("headroom_high_v", "headroom_low_v", "swing_v") else "n/a"
+    return f"{value:.4g} {unit}".rstrip() if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit)
 
 
 def _print_table(out: dict, mc: dict | None) -> None:
     print(f"architecture: {out['architecture']}    feasible: {'yes' if out['feasible'] else 'no'}")
     print()
     for name, value in out["summary"].items():
-        unit = SUMMARY_UNITS.get(name, "")
-        shown = "n/a" if value is None else (
-            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit))
-        print(f"  {name:24s} {shown:>14s}   {SUMMARY_MEANING.get(name, '')}")
+        print(f"  {name:24s} {_shown(name, value, SUMMARY_UNITS.get(name, '')):>14s}   {SUMMARY_MEANING.get(name, '')}")
     print()
-    head = f"  {'corner':6s} {'temp':>6s} {'vdd':>6s} {'Iq':>10s} {'sigma':>7s} {'hr_high':>8s} {'hr_low':>8s} " \
-           f"{'ab':>6s} {'vdd_min':>8s}  limits (source/sink)"
-    print(head)
+    print(f"  {'corner':6s} {'temp[C]':>7s} {'vdd[V]':>6s} {'Iq':>10s} {'sigma[%]':>8s} {'hr_high[mV]':>11s} "
+          f"{'hr_low[mV]':>10s} {'ab[1]':>6s} {'vdd_min[V]':>10s} {'power':>9s}  limits (source/sink)")
     for row in out["pvt"]:
-        def f(key, fmt):
-            return "n/a" if row[key] is None else fmt.format(row[key])
-        print(f"  {row['corner']:6s} {row['temp_c']:6.0f} {row['vdd_v']:6.2f} "
-              f"{format_eng(row['iq_a'], 'A') if row['iq_a'] is not None else 'n/a':>10s} {f('iq_sigma_pct', '{:.2f}%'):>7s} "
-              f"{f('headroom_high_v', '{:.3f}'):>8s} {f('headroom_low_v', '{:.3f}'):>8s} {f('ab_ratio', '{:.3f}'):>6s} "
-              f"{f('vdd_min_v', '{:.3f}'):>8s}  {row['limit_source']}/{row['limit_sink']}"
-              f"{'' if row['converged'] else '  NOT CONVERGED'}")
+        def f(key, fmt, scale=1.0):
+            if row[key] is None:
+                return "cannot" if key.startswith("headroom") else "n/a"
+            return fmt.format(row[key] * scale)
+        print(f"  {row['corner']:6s} {row['temp_c']:7.0f} {row['vdd_v']:6.2f} "
+              f"{format_eng(row['iq_a'], 'A') if row['iq_a'] is not None else 'n/a':>10s} "
+              f"{f('iq_sigma_pct', '{:.2f}'):>8s} {f('headroom_high_v', '{:.1f}', 1e3):>11s} "
+              f"{f('headroom_low_v', '{:.1f}', 1e3):>10s} {f('ab_ratio', '{:.3f}'):>6s} "
+              f"{f('vdd_min_v', '{:.3f}'):>10s} {format_eng(row['power_w'], 'W', 3) if row['power_w'] is not None else 'n/a':>9s}"
+              f"  {row['limit_source']}/{row['limit_sink']}{'' if row['converged'] else '  NOT CONVERGED'}")
+    print(f"  {LIMIT_WORDS} cannot: the stage cannot deliver the peak load that way (no headroom exists).")
     print()
     if out["violations"]:
         print("violations:")
@@ -86,7 +101,7 @@ def _print_table(out: dict, mc: dict | None) -> None:
 
 def cmd_evaluate(args) -> int:
     study = load_study(args.study)
-    design = load_design(args.design, study.tech)
+    design = load_design(args.design, study.tech, lambda arch: study_ties(study, arch))
     res = evaluate(design, study.tech, study.conditions, study.targets)
     out = result_to_dict(res)
     mc = None
@@ -125,7 +140,14 @@ def cmd_compare(args) -> int:
 def cmd_pick(args) -> int:
     from .review.pick import pick_designs
 
-    return pick_designs(args.run, args.where, args.by, args.count, args.format)
+    return pick_designs(args.run, args.where, args.by, args.count, "csv" if args.csv else args.format,
+                        wide=args.wide)
+
+
+def cmd_export_design(args) -> int:
+    from .review.designfile import export_design
+
+    return export_design(args.run, args.id, args.out, args.overwrite)
 
 
 def cmd_sweep(args) -> int:
@@ -282,8 +304,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--by", default="knee", metavar="knee|OBJECTIVE",
                    help="rank by the knee (default) or by one of the run's objectives, best first")
     p.add_argument("--count", type=int, default=10, metavar="N", help="designs to show (default 10)")
-    p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown table (default) or CSV")
+    p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown tables (default) or CSV")
+    p.add_argument("--wide", action="store_true", help="one Markdown table with every column (wider than 100 "
+                                                       "characters) instead of the compact tables")
+    p.add_argument("--csv", action="store_true", help="every front.csv column of the rows shown, as CSV "
+                                                      "(same as --format csv)")
     p.set_defaults(func=cmd_pick)
+
+    p = sub.add_parser(
+        "export-design", help="write one front.csv row as a design file for evaluate (or for editing)",
+        description="Write the row's architecture, every device's W/L (um) and bias as a design file; "
+                    "`stagefront evaluate STUDY --design FILE` then shows its full PVT table and gives the "
+                    "row's metrics.")
+    p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
+    p.add_argument("id", metavar="ID", help="front.csv row id, e.g. fl-003")
+    p.add_argument("--out", metavar="FILE.toml", help="write here (atomically) instead of to stdout")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --out file")
+    p.set_defaults(func=cmd_export_design)
 
     p = sub.add_parser(
         "sweep", help="run every cell of a grid file (a base study and axes to vary) on a Dask cluster",

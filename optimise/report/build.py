@@ -141,7 +141,7 @@ def _fronts(data: ReportData) -> list:
         if b:
             why = "; ".join(b.get("closest_violations", [])[:3])
             blocked.append(f"{arch}: no feasible design. The constraint '{b.get('blocking_constraint')}' blocks the "
-                           f"closest design (worst relative margin {short(b.get('closest_margin', float('nan')), 3)}); "
+                           f"closest design (worst margin {short(100 * b.get('closest_margin', float('nan')), 3)} % of its limit); "
                            f"it misses: {why}.")
         elif not n:
             blocked.append(f"{arch}: no design in front.csv.")

@@ -151,7 +151,7 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
         if r.architecture in blocked:
             b = blocked[r.architecture]
             p(f"  no feasible design: '{b['blocking_constraint']}' blocks the closest design "
-              f"(worst margin {b['closest_margin']:.3g}):")
+              f"(worst margin {100 * b['closest_margin']:.3g} % of its limit):")
             for v in b["closest_violations"][:4]:
                 p(f"    - {v}")
     p(f"front:  {out / 'front.csv'}")
