@@ -34,6 +34,8 @@ def test_evaluate_json_has_every_contract_key(capsys, arch):
     assert out["architecture"] == arch
     for name in SECTION4:
         assert name in out["summary"], name
+        if name in ("headroom_high_v", "headroom_low_v", "swing_v") and not out["summary"]["delivers_load"]:
+            continue  # null: "cannot deliver", flagged by delivers_load (tested below)
         assert out["summary"][name] is not None and math.isfinite(out["summary"][name])
     # 5 corners x 3 temperatures x 3 supplies in the demo study
     assert len(out["pvt"]) == 45
@@ -149,5 +151,5 @@ def test_design_that_cannot_bias_at_lowest_supply_names_device_and_margin(tmp_pa
     design = write(tmp_path, "d.toml", text)
     code, out = run_json(capsys, "--design", str(design))
     assert code == 0 and not out["feasible"]
-    line = next(v for v in out["violations"] if "2.7 V" in v and "needs" in v)
-    assert "by" in line and ("compliance" in line or "saturation" in line)
+    line = next(v for v in out["violations"] if "2.7 V" in v and v.startswith("vdd_min = "))
+    assert "set by" in line and ("compliance" in line or "saturation" in line)

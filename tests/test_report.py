@@ -198,8 +198,9 @@ def test_verification_table_with_loosely_named_columns(report, tmp_path):
     assert [c[0] for c in column(ver, "error")] == ["-0.1 %", "-0.5 mV"]
     assert column(ver, "model")[0][0] == "11 uA"
     summary = tables_of(page2)["verification-summary"]
-    assert [c[0] for c in column(summary, "metric")] == ["iq_a", "headroom_high_v"]
-    assert [c[0] for c in column(summary, "worst")] == ["-0.1 %", "-0.5 mV"]
+    assert [c[0] for c in column(summary, "metric")] == ["iq_a", "iq_a", "headroom_high_v", "headroom_high_v"]
+    assert [c[0] for c in column(summary, "corner")] == ["all", "tt", "all", "ss"]
+    assert [c[0] for c in column(summary, "worst")] == ["-0.1 %", "-0.1 %", "-0.5 mV", "-0.5 mV"]
     assert "Verification has not been run" not in page2 and "| -0.5 mV |" in md2
 
 

@@ -127,14 +127,17 @@ def compact(rows: pd.DataFrame, objectives: dict, width: int = WIDTH) -> str:
 
 
 def wide(rows: pd.DataFrame, objectives: dict, fmt: str = "md") -> str:
-    """Every column in one table: Markdown ("md") or CSV ("csv", numbers with 6 digits)."""
+    """Every column in one table: Markdown ("md"), or CSV ("csv": rank, then every front.csv
+    column under its contract name and in its SI unit, then knee_distance; shortest exact
+    numbers, for a spreadsheet or a script)."""
     cols, notes = columns(rows, objectives)
     if fmt == "md":
         text = markdown_table([h for _, h, _ in cols], [list(r) for r in zip(*[c for _, _, c in cols])])
         return text + "\n\n" + "\n".join(notes) + ("\n" if notes else "")
     frame = rows.copy()
-    keep = ["id", "architecture", "overall_front"] + [c for c in frame.columns if c not in
-                                                      ("id", "architecture", "overall_front")]
+    frame.insert(0, "rank", np.arange(1, len(frame) + 1))
+    keep = ["rank", "id", "architecture", "overall_front"] + [c for c in frame.columns if c not in
+                                                              ("rank", "id", "architecture", "overall_front")]
     buf = io.StringIO()
-    frame[[c for c in keep if c in frame.columns]].to_csv(buf, index=False, float_format="%.6g")
+    frame[[c for c in keep if c in frame.columns]].to_csv(buf, index=False)
     return buf.getvalue()

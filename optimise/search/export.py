@@ -9,8 +9,8 @@ worst margin over PVT in percent of its limit, >= 0 when met).
 Numbers are clean: W and L as the drawing grid gives them (micrometres, rounded to the
 picometre, so 21.08 and never 21.080000000000002), bias values to 6 significant digits,
 and the rows are evaluated with exactly these values, so `stagefront evaluate` on a
-row's design (`stagefront export-design`) reproduces its metrics. Every float is written
-with 12 significant digits.
+row's design (`stagefront export-design`) reproduces its metrics. Metrics are written in
+their shortest exact (round-trip) form.
 """
 from __future__ import annotations
 
@@ -37,7 +37,6 @@ METRICS = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "headroom_high_v", "headro
            "vdd_min_v", "fp2_hz", "c_drive_f", "power_max_w", "iout_peak_a", "delivers_load")
 # Significant digits of a bias value in front.csv (far below any model's accuracy).
 BIAS_DIGITS = 6
-FLOAT_FORMAT = "%.12g"
 
 
 def margin_column(name: str) -> str:
@@ -154,10 +153,10 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
 
 
 def write_front(path: Path, table: pd.DataFrame) -> None:
-    """front.csv, atomically; floats with 12 significant digits (the variables are exact
-    at that: see `clean_design`)."""
+    """front.csv, atomically; floats in their shortest exact (round-trip) form (the
+    variables are clean numbers already: see `clean_design`)."""
     buf = io.StringIO()
-    table.to_csv(buf, index=False, float_format=FLOAT_FORMAT)
+    table.to_csv(buf, index=False)
     write_text(path, buf.getvalue())
 
 

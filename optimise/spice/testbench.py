@@ -55,6 +55,7 @@ from models.stages import get_stage
 from ..files.errors import InputError
 from .cards import check_card_path, check_model_name, comment_safe, scan_card
 from . import netlist, ngspice
+from .diffusion import add_geometry
 from .netlist import common_source, gate_nodes, stage_module
 from .ngspice import number, vector
 
@@ -184,9 +185,12 @@ def design_models(stage, design: Design, i: int, tech: Tech, models: ModelSource
     if models.level1:
         # Level-1 cards named after the subcircuit, ``<name>_<role>``, at this corner and temperature.
         return (netlist.model_cards(mod, design, i, tech, corner, temp, name),
-                netlist.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod)))
+                add_geometry(netlist.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod)),
+                             mod, tech, netlist.device_name))
     names = {s.role: (models.nmos if s.polarity == Polarity.N else models.pmos) for s in mod.TOPOLOGY.devices}
-    return "", netlist.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name, extra_ports=gate_nodes(mod))
+    return "", add_geometry(netlist.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name,
+                                                     extra_ports=gate_nodes(mod)), mod, tech,
+                            netlist.device_name)
 
 
 def header(title: str, models: ModelSource, corner: Corner, temp: float) -> list[str]:
