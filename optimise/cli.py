@@ -11,7 +11,7 @@ import sys
 
 from models.evaluate import evaluate
 
-from . import CAUTION
+from . import CAUTION, __version__
 from .files.errors import InputError
 from .files.space import study_ties
 from .files.study import load_design, load_study
@@ -207,7 +207,7 @@ def add_handoff_commands(sub) -> None:
         description="One subcircuit from the architecture's topology (devices named by role, W/L on the "
                     "drawing grid) and a test bench: the rest point (.op, output held at VDD/2 by feedback), "
                     "a load-current sweep at mid-supply and the two drive-limit sweeps (driven gate at the "
-                    "model's limit, output swept). " + CAUTION)
+                    "model's limit, output swept).")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--row", required=True, metavar="ID", help="front.csv row id, e.g. fl-003")
     p.add_argument("--models", metavar="FILE", help="your model card (.lib with corner sections, or a plain card); "
@@ -220,8 +220,7 @@ def add_handoff_commands(sub) -> None:
         "verify", parents=[models], help="simulate chosen designs in ngspice and compare with the model",
         description="Run ngspice on each chosen design at the study's PVT points the model file supports; "
                     "compare Iq, headrooms and peak currents with the model; write RUN/verify.csv and print "
-                    "the median and worst error per metric. Exit status 1 when nothing could be verified. "
-                    + CAUTION)
+                    "the median and worst error per metric. Exit status 1 when nothing could be verified.")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--rows", metavar="IDS", help="row ids, comma separated (default: the overall front)")
     p.add_argument("--all", action="store_true", help="every row of front.csv")
@@ -233,7 +232,7 @@ def add_handoff_commands(sub) -> None:
         description="Sweep single NMOS and PMOS devices of the card in ngspice (Id-VGS from weak to strong "
                     "inversion at several L and VSB, Id-VDS for the Early voltage, two more temperatures, every "
                     "corner section), fit the technology parameters by least squares, print the fit error per "
-                    "region and write a technology TOML. " + CAUTION)
+                    "region and write a technology TOML.")
     p.add_argument("--models", required=True, metavar="FILE", help="the model card (.lib with sections, or plain)")
     p.add_argument("--out", required=True, metavar="TECH.toml", help="technology file to write")
     p.add_argument("--kind", choices=("ekv", "square-law"), default="ekv", help="model kind to fit (default ekv)")
@@ -254,13 +253,14 @@ def build_parser() -> argparse.ArgumentParser:
         prog="stagefront",
         description="Size class-AB CMOS output stages with analytic all-region models. " + CAUTION,
     )
+    parser.add_argument("--version", action="version", version=f"stagefront {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
     p = sub.add_parser(
         "evaluate", help="solve one design at every PVT point of a study and print all metrics",
         description="Solve one design exactly (rest point, both drive limits, mismatch sigma) at every "
                     "corner x temperature x supply of the study, and print every metric and every "
-                    "violated target. " + CAUTION)
+                    "violated target.")
     p.add_argument("study", help="study file (TOML), e.g. studies/sensor-buffer.toml")
     p.add_argument("--design", required=True, help="design file (TOML): architecture, [devices.ROLE] w/l in um, [bias]")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
@@ -272,7 +272,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser(
         "optimise", help="search sizes and bias of every architecture of a study (NSGA-II) and write a run folder",
         description="Search every architecture of the study with NSGA-II on the same objectives and "
-                    "constraints; write front.csv, run.json and plots into the run folder. " + CAUTION)
+                    "constraints; write front.csv, run.json and plots into the run folder.")
     p.add_argument("study", help="study file (TOML) with [objectives], [bounds.ARCH], [ties.ARCH], [search]")
     p.add_argument("--out", help="run folder (default runs/STUDY-NAME); never overwritten unless --overwrite")
     p.add_argument("--seed", type=int, help="random seed (default: the study's)")
@@ -286,7 +286,7 @@ def build_parser() -> argparse.ArgumentParser:
         "compare", help="put the fronts of several run folders on the same axes: who dominates where",
         description="Load run folders made with the same objectives; for every pair of (run, architecture) "
                     "groups report the share of one group's designs that a design of the other dominates, "
-                    "and the best value each group reaches per objective. " + CAUTION)
+                    "and the best value each group reaches per objective.")
     p.add_argument("runs", nargs="+", metavar="RUN", help="run folders (each with front.csv and run.json)")
     p.add_argument("--out", help="folder for compare.csv, compare.md and compare.png")
     p.add_argument("--overwrite", action="store_true", help="write into an --out folder that is not empty")
@@ -296,7 +296,7 @@ def build_parser() -> argparse.ArgumentParser:
         "pick", help="filter a run's front by budgets and rank it (knee or one objective) for hand-off",
         description="Keep the front designs that meet every --where budget, rank them by the knee of the "
                     "front or by one objective, and print sizes (um), bias currents (uA), r_bias (kohm), "
-                    "objectives and constraint margins (%). Exit status 1 when no design is left. " + CAUTION)
+                    "objectives and constraint margins (%). Exit status 1 when no design is left.")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--where", action="append", default=[], metavar="BUDGET",
                    help="NAME OP VALUE, e.g. \"power_w<=200u\"; OP one of <= >= < > ==; NAME a front.csv "
@@ -327,7 +327,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Expand a grid file into one study per cell, run each as a Dask task (local worker "
                     "processes, or the cluster at --scheduler), reuse cells already finished, and write "
                     "summary.csv, summary.md and fronts.png across the cells. Exit status 1 when a cell "
-                    "failed. " + CAUTION)
+                    "failed.")
     p.add_argument("grid", help="grid file (TOML): base = STUDY, [axes], optional [search]")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler to use, e.g. tcp://10.0.0.5:8786 "
                                                            "(default: start a local cluster)")
@@ -343,7 +343,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="One HTML page (figures embedded, no network needed) and a Markdown twin with the study, "
                     "every architecture's front, the picked designs (knee first), the knee at every PVT point, "
                     "its mismatch spread, Iq against supply, the simulator verification when verify.csv "
-                    "exists, and the assumptions. " + CAUTION)
+                    "exists, and the assumptions.")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--out", metavar="FILE", help="HTML file (default RUN/report.html); the Markdown twin and "
                                                  "its PNG figures go beside it (report.md, report-*.png)")
