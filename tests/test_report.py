@@ -111,7 +111,7 @@ def test_page_needs_no_outside_resource(report):
     assert not re.search(r"https?:", page, flags=re.I)
     assert not re.search(r"""(?:src|href)\s*=\s*["']?//""", page, flags=re.I)
     srcs = re.findall(r'<img[^>]*\ssrc="([^"]*)"', page)
-    assert len(srcs) == 3  # fronts, mismatch, supply
+    assert len(srcs) == 4  # fronts, parallel coordinates, mismatch, supply
     for src in srcs:
         head, data = src.split(",", 1)
         assert head == "data:image/png;base64"
@@ -122,7 +122,7 @@ def test_page_needs_no_outside_resource(report):
 def test_markdown_figures_are_written_beside_it(report):
     run, _, md = report
     names = re.findall(r"!\[[^\]]*\]\(([^)]+)\)", md)
-    assert names == ["report-fronts.png", "report-mismatch.png", "report-supply.png"]
+    assert names == ["report-fronts.png", "report-parallel.png", "report-mismatch.png", "report-supply.png"]
     for name in names:
         assert (run / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 

@@ -43,7 +43,7 @@ from ..files.space import OBJECTIVES
 from ..files.units import format_eng
 from ..search.export import UNIT_SUFFIX
 from .data import MC_SAMPLES, OBJ_SHOW, ReportData, gather
-from .figures import fronts_figure, mismatch_figure, supply_figure
+from .figures import fronts_figure, mismatch_figure, parallel_figure, supply_figure
 from .render import (
     CLOSE,
     TIGHT,
@@ -216,7 +216,9 @@ def _picked(data: ReportData) -> list:
             f"(devices of equal size in every row share a column); bias currents in uA, resistors in kohm; power is "
             f"typical (the objective) and worst over PVT; margins are each constraint's worst margin over PVT in % "
             f"of its limit, as in front.csv. Click a column header to sort.",
-            Table("picked", header, rows), Legend()]
+            Table("picked", header, rows), Legend(),
+            Figure("parallel", parallel_figure(data), "Every front design across the objectives, each axis turned so "
+                   "that up is better and scaled to the front's range; the picked designs are drawn bold.")]
 
 
 def _knee_pvt(data: ReportData) -> list:

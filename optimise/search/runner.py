@@ -76,7 +76,8 @@ def _plots(out: Path, table, objectives, hv) -> None:
 
     for name, make in (("objectives.png", lambda: plots.objective_matrix(table, objectives)),
                        ("hypervolume.png", lambda: plots.hypervolume_curve(hv)),
-                       ("parallel.png", lambda: plots.parallel_coordinates(table, objectives))):
+                       ("parallel.png", lambda: plots.parallel_coordinates(
+                           table, objectives, highlight=plots.best_per_objective(table, objectives)))):
         write_bytes(out / name, plots.png_bytes(make()))
 
 
