@@ -181,3 +181,28 @@ def test_report_stays_small_with_a_large_verify_csv(run, tmp_path):
     from optimise import CAUTION
 
     assert page.count(html.escape(CAUTION)) == 1 and md.count(CAUTION) == 1
+
+
+def test_parallel_plot_is_translucent_up_is_better_and_highlights_picks(run):
+    from optimise.search import plots
+
+    r = load_run(run)
+    picks = plots.best_per_objective(r.table, r.objectives)
+    assert len(picks) >= 1 and all(v.startswith("best ") for v in picks.values())
+    ax = plots.parallel_coordinates(r.table, r.objectives, highlight=picks)
+    lines = ax.get_lines()
+    faint = [ln for ln in lines if ln.get_linewidth() < 1.0]
+    bold = [ln for ln in lines if ln.get_linewidth() > 2.0]
+    assert len(faint) == len(r.table) and all(ln.get_alpha() < 1.0 for ln in faint)
+    assert len(bold) == len(picks)
+    # up is better: the design best in power sits at the top of the power axis
+    k = list(r.objectives).index("power_w")
+    best = r.table["id"].iloc[int(np.argmin(r.table["power_w"]))]
+    row = next(ln for ln in bold if ln.get_label().startswith(best))
+    assert row.get_ydata()[k] == pytest.approx(1.0)
+    ticks = [t.get_text() for t in ax.get_xticklabels()]
+    assert any("µW" in t for t in ticks) and any("µm²" in t for t in ticks)
+    assert "(higher is better)" in plots.label("swing_v", "max") and "(lower is better)" in plots.label("power_w", "min")
+    import matplotlib.pyplot as plt
+
+    plt.close(ax.figure)

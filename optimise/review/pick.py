@@ -21,6 +21,7 @@ import difflib
 import operator
 import re
 import sys
+import textwrap
 from dataclasses import dataclass
 
 import numpy as np
@@ -317,6 +318,6 @@ def pick_designs(run, where=(), by: str = "knee", count: int = 10, fmt: str = "m
         err.write(note + "\n")
         return 0
     stream.write(handoff.wide(shown, r.objectives) if wide else handoff.compact(shown, r.objectives))
-    stream.write(f"\n{note} Margins: worst over PVT in % of each limit (>= 0 met), as in front.csv."
-                 f"\n\n{CAUTION}\n")
+    note += " Margins: worst over PVT in % of each limit (>= 0 met), as in front.csv."
+    stream.write(f"\n{textwrap.fill(note, handoff.WIDTH)}\n\n{textwrap.fill(CAUTION, handoff.WIDTH)}\n")
     return 0
