@@ -271,8 +271,11 @@ def _records(pop: Population, corner: Corner, temp: float, sim: dict) -> list[di
                        "error_unit": "V" if metric in ABSOLUTE else "rel", "note": ""}
                 if got is not None:
                     rec["simulator"] = float(got[metric])
-                    rec["error"] = _error(metric, model, rec["simulator"])
-                    rec["note"] = got["note"]
+                    rec["error"] = _error(metric, model, rec["simulator"]) if np.isfinite(model) else None
+                    rec["note"] = got["note"] if np.isfinite(model) else \
+                        "the model's stage cannot deliver the peak load here: no headroom to compare"
+                    if not np.isfinite(model):
+                        rec["model"] = None
                 else:
                     rec["note"] = f"ngspice failed: {fail}" if fail else "not simulated"
                 out.append(rec)
