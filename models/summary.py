@@ -132,7 +132,8 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
 
     def ab(i, j):
         return (f"ab_ratio (smallest idle-device current / Iq) = {pvt['ab_ratio'][i, j]:.3g} "
-                f"({eng(pvt['ab_ratio'][i, j] * iq[i, j], 'A')} of {eng(iq[i, j], 'A')}) < {targets.ab_min:.3g} {at(j)}")
+                f"({eng(pvt['ab_ratio'][i, j] * iq[i, j], 'A')} of {eng(iq[i, j], 'A')}) < {targets.ab_min:.3g} "
+                f"{at(j)}")
 
     labels = {
         "iq_low": lambda i, j: f"Iq{sig.format('-')} = {eng(iq_lo[i, j], 'A')} < {eng(targets.iq_min, 'A')} {at(j)}",

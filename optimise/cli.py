@@ -80,7 +80,8 @@ def _print_table(out: dict, mc: dict | None) -> None:
               f"{format_eng(row['iq_a'], 'A') if row['iq_a'] is not None else 'n/a':>10s} "
               f"{f('iq_sigma_pct', '{:.2f}'):>8s} {f('headroom_high_v', '{:.1f}', 1e3):>11s} "
               f"{f('headroom_low_v', '{:.1f}', 1e3):>10s} {f('ab_ratio', '{:.3f}'):>6s} "
-              f"{f('vdd_min_v', '{:.3f}'):>10s} {format_eng(row['power_w'], 'W', 3) if row['power_w'] is not None else 'n/a':>9s}"
+              f"{f('vdd_min_v', '{:.3f}'):>10s} "
+              f"{format_eng(row['power_w'], 'W', 3) if row['power_w'] is not None else 'n/a':>9s}"
               f"  {row['limit_source']}/{row['limit_sink']}{'' if row['converged'] else '  NOT CONVERGED'}")
     print(f"  {LIMIT_WORDS} cannot: the stage cannot deliver the peak load that way (no headroom exists).")
     print()

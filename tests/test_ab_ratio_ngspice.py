@@ -53,6 +53,10 @@ def drive_points():
     return out
 
 
+def size(role: str) -> str:
+    return f"w={float(DESIGN.w[role][0])!r} l={float(DESIGN.l[role][0])!r}"
+
+
 def idle_sweep(gn: float, gp: float, v_from: float, v_to: float, idle: str) -> np.ndarray:
     """ngspice: both output devices with their gates held, the output swept; the idle
     device's current at every step [A]."""
@@ -68,8 +72,8 @@ def idle_sweep(gn: float, gp: float, v_from: float, v_to: float, idle: str) -> n
         f"V_GP gp 0 dc {gp!r}",
         "V_SN sn 0 dc 0",  # zero-volt sources: their currents are the devices' currents
         "V_SP vdd sp dc 0",
-        f"M_N out gn sn 0 {spice.model_name(mod, 'mn_out')} w={float(DESIGN.w['mn_out'][0])!r} l={float(DESIGN.l['mn_out'][0])!r}",
-        f"M_P out gp sp vdd {spice.model_name(mod, 'mp_out')} w={float(DESIGN.w['mp_out'][0])!r} l={float(DESIGN.l['mp_out'][0])!r}",
+        f"M_N out gn sn 0 {spice.model_name(mod, 'mn_out')} {size('mn_out')}",
+        f"M_P out gp sp vdd {spice.model_name(mod, 'mp_out')} {size('mp_out')}",
         f"V_OUT out 0 dc {v_from!r}",
         f".dc V_OUT {v_from!r} {v_to!r} {(v_to - v_from) / 200!r}",
         ".end",

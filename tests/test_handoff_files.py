@@ -202,7 +202,8 @@ def test_parallel_plot_is_translucent_up_is_better_and_highlights_picks(run):
     assert row.get_ydata()[k] == pytest.approx(1.0)
     ticks = [t.get_text() for t in ax.get_xticklabels()]
     assert any("µW" in t for t in ticks) and any("µm²" in t for t in ticks)
-    assert "(higher is better)" in plots.label("swing_v", "max") and "(lower is better)" in plots.label("power_w", "min")
+    assert "(higher is better)" in plots.label("swing_v", "max")
+    assert "(lower is better)" in plots.label("power_w", "min")
     import matplotlib.pyplot as plt
 
     plt.close(ax.figure)
