@@ -97,9 +97,10 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
             else np.full((n, k), inf)
         m["iq_high"] = (targets.iq_max - iq_hi) / targets.iq_max if np.isfinite(targets.iq_max) \
             else np.full((n, k), inf)
-        # Where the stage cannot deliver the load (headroom nan) the margin counts the
-        # whole half supply as headroom: worse than any delivering point, still a number.
-        hr_checked = np.where(np.isnan(hr), 0.5 * vdd[None, :], hr)
+        # Where the stage cannot deliver the load (headroom nan) the margin counts the whole
+        # supply as headroom: worse than any delivering point (whose headroom is at most half
+        # its supply), still a number for the search.
+        hr_checked = np.where(np.isnan(hr), vdd[None, :], hr)
         m["headroom"] = (targets.headroom_max - hr_checked) / targets.headroom_max \
             if np.isfinite(targets.headroom_max) else np.full((n, k), inf)
         m["load_current"] = (peak_lo - targets.i_load) / targets.i_load

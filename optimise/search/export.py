@@ -228,4 +228,5 @@ def closest_design_report(study: Study, settings, run: ArchRun) -> dict:
     share = {n: float(np.mean(run.G[:, k] > 0)) for k, n in enumerate(names)}
     worst = names[int(np.argmax(run.G[best]))]
     return {"closest_violations": res.violations[0], "blocking_constraint": worst,
-            "closest_margin": float(-run.G[best].max()), "share_of_final_set_violating": share}
+            "closest_margin": float(-run.G[best].max()), "closest_margin_pct": float(-100.0 * run.G[best].max()),
+            "share_of_final_set_violating": share}
