@@ -3,12 +3,14 @@ the caution, a page with no outside resource, the verification table and refusal
 from __future__ import annotations
 
 import base64
+import json
 import re
 import shutil
 from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from models.devices.constants import ZERO_CELSIUS
@@ -236,3 +238,23 @@ def test_sort_keys_are_numbers_where_the_column_is_numeric(report):
     for key in ("iq_a", "power_w", "swing_v", "knee_distance"):
         values = [float(s) for _, s, _ in column(picked, key)]
         assert np.all(np.isfinite(values))
+
+
+def test_verification_of_an_ekv_study_against_level1_cards_says_so_beside_the_figures(report, tmp_path):
+    run, _, _ = report
+    copy = tmp_path / "run"
+    copy.mkdir()
+    for name in ("front.csv", "run.json"):
+        shutil.copy(run / name, copy / name)
+    knee = pd.read_csv(run / "front.csv")["id"].iloc[0]
+    (copy / "verify.csv").write_text("id,corner,temp_c,vdd_v,metric,model,simulator,error,error_unit,note\n"
+                                     f"{knee},tt,27,3.3,iq_a,1.1e-05,1.3e-05,0.18,rel,\n")
+    caveat = ("the level-1 cards made from it run the square law, so these errors compare two device models "
+              "(EKV against level 1)")
+    (copy / "verify.json").write_text(json.dumps({"models": None, "caveat": "note: demo is an ekv technology; "
+                                                  + caveat}))
+    write_report(copy, stream=open("/dev/null", "w"))
+    md = (copy / "report.md").read_text()
+    section = md.split("## Verification against a simulator", 1)[1].split("\n## ", 1)[0]
+    assert caveat in section and "| iq_a " in section
+    assert caveat in md.split("## At a glance", 1)[1].split("\n## ", 1)[0]
