@@ -5,7 +5,7 @@ flattened to n*k elements and processed in chunks, so memory stays bounded whate
 Per element: the rest point (exact), Iq and its mismatch sigma (adjoint sensitivities of
 the full Kirchhoff system, Pelgrom sigmas), the output pole, the lowest supply that keeps
 every device in its region, and both driven points (drive limit, headroom at the peak
-load current, peak current, current left in the idle device).
+load current, peak current, and the idle device's smallest current over the output range).
 
 Numerical failure is reported per element (`converged` False, with a reason); the metric
 values of such elements are not to be used.
@@ -22,6 +22,7 @@ from .devices.tech import Corner, Tech
 from .operating import (
     corner_shifts,
     devices_at,
+    ab_ratio,
     driven_point,
     pull_down_current,
     rest_point,
@@ -30,7 +31,7 @@ from .operating import (
 from .records import LIMIT_NAMES, PVT_METRICS, Conditions, Design, Result, Targets
 from .sources import compliance
 from .stages import get_stage
-from .summary import check, summarise, supply_sensitivity
+from .summary import check, summarise, supply_power, supply_sensitivity
 
 __all__ = ["LIMIT_NAMES", "PVT_METRICS", "Conditions", "Design", "Result", "Targets", "corner_shifts",
            "devices_at", "evaluate", "monte_carlo_iq", "pull_down_current", "rest_point"]
@@ -74,8 +75,9 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     vdd_min = np.max(req, axis=0)
     vdd_min_what = np.argmax(req, axis=0)
 
-    hh, i_src, ab_src, lim_src, ok_src = driven_point(stage, devs, bias, vdd, nodes, +1, targets, iq)
-    hl, i_snk, ab_snk, lim_snk, ok_snk = driven_point(stage, devs, bias, vdd, nodes, -1, targets, iq)
+    hh, i_src, g_src, lim_src, ok_src, can_src, v_src = driven_point(stage, devs, bias, vdd, nodes, +1, targets)
+    hl, i_snk, g_snk, lim_snk, ok_snk, can_snk, v_snk = driven_point(stage, devs, bias, vdd, nodes, -1, targets)
+    ab = ab_ratio(stage, devs, vdd, g_src, g_snk, v_src, v_snk, iq)
 
     c_drive = np.zeros_like(vdd)
     for role in (stage.PULL_DOWN, stage.PULL_UP):
@@ -97,9 +99,10 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
 
     res = {
         "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,
-        "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": np.minimum(ab_src, ab_snk),
+        "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": ab,
         "iq_sigma_pct": sigma_pct, "vdd_min_v": vdd_min, "fp2_hz": fp2, "c_drive_f": c_drive,
-        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what, **extra,
+        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what,
+        "delivers_source": can_src, "delivers_sink": can_snk, **extra,
     }
     return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
 
@@ -148,6 +151,7 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     pvt = {name: arr.reshape(n, k) for name, arr in pvt.items()}
     converged = converged.reshape(n, k)
     supply_sensitivity(pvt, cond, corner, temp, vdd)
+    supply_power(pvt, design, stage, vdd)
     summary = summarise(pvt, design, stage, cond, corner, temp, vdd, targets)
     mirrors = targets.mirrors.get(design.architecture, {})
     if mirrors:

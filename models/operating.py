@@ -67,8 +67,14 @@ def _output_device(stage, devs, role, gate, vdd, v):
     return i, gd if spec.d == "out" else gs
 
 
-def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
-    """Headroom, peak current and idle-device ratio on one side. Shapes (m,)."""
+def driven_point(stage, devs, bias, vdd, nodes, direction, targets):
+    """One side at full drive: headroom, peak current, the gates, the limit and whether
+    the stage delivers the peak load that way. Shapes (m,).
+
+    Returns (headroom, peak, (gn, gp), limit, ok, can, v_at): headroom is nan where the
+    stage cannot deliver the load current (can False), never a stand-in number; v_at is
+    the output voltage at which it delivers it (mid-supply where it cannot).
+    """
     gn, gp, limit, ok = stage.driven(devs, bias, vdd, nodes, direction, targets.drive, targets.vcomp)
     out = 0.5 * vdd
     i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, out)
@@ -81,8 +87,8 @@ def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
         return (u - dn) * direction - i_load, dd * direction
 
     can = peak >= i_load
-    active, idle_role = (stage.PULL_UP, stage.PULL_DOWN) if direction > 0 else (stage.PULL_DOWN, stage.PULL_UP)
-    gate_active, gate_idle = (gp, gn) if direction > 0 else (gn, gp)
+    active = stage.PULL_UP if direction > 0 else stage.PULL_DOWN
+    gate_active = gp if direction > 0 else gn
     rail = vdd if direction > 0 else np.zeros_like(vdd)
     # At the rail the active device has no drain-source voltage and carries nothing, so
     # the function is -(i_load + idle current) < 0 there: only its sign is needed for the
@@ -99,11 +105,33 @@ def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     else:
         v_at, ok_v = solve_bracketed(fun, np.zeros_like(vdd), out, x0=x0, xtol=1e-7, flo=f_rail, fhi=f_mid)
     v_at = np.where(can, v_at, out)
-    headroom = np.where(direction > 0, vdd - v_at, v_at)
-    idle, _ = _output_device(stage, devs, idle_role, gate_idle, vdd, v_at)
+    headroom = np.where(can, np.where(direction > 0, vdd - v_at, v_at), np.nan)
+    return headroom, peak, (gn, gp), limit, ok & (ok_v | ~can), can, v_at
+
+
+def ab_ratio(stage, devs, vdd, gates_source, gates_sink, v_source, v_sink, iq):
+    """Smallest idle-device current over the output range at full drive, over Iq. Shape (m,).
+
+    Sourcing (the pull-up at its drive limit) the pull-down is idle, sinking the pull-up.
+    Each idle device's gate stays where the drive puts it while the output moves over the
+    range that drive direction covers with the study's load returned to mid-supply: from
+    mid-supply (no load current) to the point where the stage delivers the peak load
+    (`v_source`, VDD - headroom_high_v; `v_sink`, headroom_low_v). The idle current rises
+    with that device's drain-source voltage in every model kind (length modulation), so
+    over that range it is smallest at mid-supply, not at the peak-load point where it was
+    once read (length modulation adds 15-20 % there). It is read at both ends and the
+    minimum taken. Outside that range (the output below mid-supply while sourcing, a
+    capacitive load slewing) the idle device's own drain voltage, not the bias, takes its
+    current away, which says nothing about the class-AB bias. Iq = 0 gives 0.
+    """
+    worst = np.full_like(vdd, np.inf)
+    for (gn, gp), idle, v_end in ((gates_source, stage.PULL_DOWN, v_source), (gates_sink, stage.PULL_UP, v_sink)):
+        gate = gn if idle == stage.PULL_DOWN else gp
+        for v in (0.5 * vdd, v_end):
+            i, _ = _output_device(stage, devs, idle, gate, vdd, v)
+            worst = np.minimum(worst, np.abs(i))
     with np.errstate(divide="ignore", invalid="ignore"):
-        ab = np.where(iq > 0, idle / iq, 0.0)
-    return headroom, peak, ab, limit, ok & (ok_v | ~can)
+        return np.where(iq > 0, worst / iq, 0.0)
 
 
 def rest_point(stage, devs, bias, vdd, sensitivity=True, sources=None):

@@ -17,6 +17,7 @@ from .stages import get_stage
 PVT_METRICS = (
     "iq_a", "headroom_high_v", "headroom_low_v", "swing_v", "iout_source_a", "iout_sink_a",
     "ab_ratio", "iq_sigma_pct", "supply_sens_pct_per_v", "vdd_min_v", "fp2_hz",
+    "power_w",
 )
 LIMIT_NAMES = ("compliance", "control-saturation")
 
@@ -139,6 +140,8 @@ class Targets:
     area_max: float = np.inf  # m^2
     fp2_min: float = 0.0  # Hz
     layout_factor: float = 1.0  # 1  area multiplier for routing and spacing
+    power_max: float = np.inf  # W    largest supply power at any PVT point (VDD x (Iq + bias))
+    iout_peak_max: float = np.inf  # A  cap on the peak output current at full drive (short circuit)
     # Bias sources as mirrors: architecture -> study key (`circuit.mirrors.source_keys`) ->
     # `circuit.mirrors.Mirror`; a source not named is ideal (the default for every source).
     mirrors: dict = field(default_factory=dict)
@@ -150,6 +153,9 @@ class Targets:
         if self.drive not in ("both", "p", "n"):
             raise ValueError(f"drive = {self.drive!r} is not one of both, p, n")
         check_range("layout_factor", self.layout_factor, 1.0, 10.0, "")
+        if not self.power_max > 0 or not self.iout_peak_max > 0:
+            raise ValueError(f"power_max = {self.power_max} W and iout_peak_max = {self.iout_peak_max} A must be "
+                             f"positive (inf switches them off)")
         if self.iq_min > self.iq_max:
             raise ValueError(f"iq window is inverted: min {self.iq_min} A > max {self.iq_max} A")
         for arch, table in self.mirrors.items():
@@ -164,7 +170,9 @@ class Targets:
 class Result:
     """Metrics of n designs at k PVT points.
 
-    pvt: name -> (n, k) arrays (names of PVT_METRICS plus limit_source, limit_sink, and
+    pvt: name -> (n, k) arrays (names of PVT_METRICS plus delivers_source and delivers_sink,
+    bool: the stage delivers the peak load that way, else that side's headroom and the
+    swing are nan, "cannot deliver"; limit_source, limit_sink, and
     vdd_min_what, an index into `requirement_names`); summary: name -> (n,);
     converged: (n, k) bool; violations: per design, a list of readable strings (a sequence
     that words a design's entry when it is first read).

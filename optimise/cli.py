@@ -12,8 +12,9 @@ import sys
 from models.evaluate import evaluate
 from models.validity import length_warnings
 
-from . import CAUTION
+from . import CAUTION, __version__
 from .files.errors import InputError
+from .files.space import study_ties
 from .files.study import load_design, load_study
 from .files.units import format_eng
 from .review.evaluation import json_safe, result_to_dict
@@ -25,21 +26,24 @@ from .search.runtime import keep_freed_memory
 MAX_MONTECARLO = 1_000_000
 
 SUMMARY_UNITS = {
-    "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",
-    "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "ab_ratio": "",
-    "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
+    "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "power_max_w": "W", "headroom_high_v": "V",
+    "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "iout_peak_a": "A",
+    "ab_ratio": "", "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
     "fp2_hz": "Hz", "c_drive_f": "F",
 }
 SUMMARY_MEANING = {
     "iq_a": "quiescent current (tt, nominal supply and temperature)",
     "iq_min_a": "lowest Iq over PVT", "iq_max_a": "highest Iq over PVT",
-    "power_w": "supply x (Iq + bias branches), nominal",
+    "power_w": "supply x (Iq + bias branches), typical (tt, nominal)",
+    "power_max_w": "supply x (Iq + bias branches), worst over PVT",
     "headroom_high_v": "worst distance from VDD at the peak load",
     "headroom_low_v": "worst distance from ground at the peak load",
     "swing_v": "worst VDD minus both headrooms",
+    "delivers_load": "the stage delivers the peak load both ways at every PVT point",
     "iout_source_a": "lowest peak source current at mid-supply",
     "iout_sink_a": "lowest peak sink current at mid-supply",
-    "ab_ratio": "lowest idle-device current at peak load / Iq",
+    "iout_peak_a": "highest peak output current at full drive (short circuit)",
+    "ab_ratio": "smallest idle-device current over the output range / Iq",
     "area_um2": "sum of W L (times the layout factor)",
     "iq_sigma_pct": "worst 1-sigma Iq spread from mismatch",
     "supply_sens_pct_per_v": "worst Iq change per volt of supply",
@@ -47,28 +51,40 @@ SUMMARY_MEANING = {
     "fp2_hz": "lowest output pole gm_out / (2 pi C_load)",
     "c_drive_f": "gate capacitance the stage loads its driver with",
 }
+LIMIT_WORDS = ("limits: what stops the drive on each side (source/sink). compliance: the driver got within "
+               "its compliance of the rail; control-saturation: the bias loop's control device left saturation "
+               "first, so the loop, not the driver, caps the drive.")
+
+
+def _shown(name: str, value, unit: str) -> str:
+    if name == "delivers_load":
+        return "yes" if value else "CANNOT DELIVER"
+    if value is None:
+        return "cannot deliver" if name in ("headroom_high_v", "headroom_low_v", "swing_v") else "n/a"
+    return f"{value:.4g} {unit}".rstrip() if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit)
 
 
 def _print_table(out: dict, mc: dict | None) -> None:
     print(f"architecture: {out['architecture']}    feasible: {'yes' if out['feasible'] else 'no'}")
     print()
     for name, value in out["summary"].items():
-        unit = SUMMARY_UNITS.get(name, "")
-        shown = "n/a" if value is None else (
-            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit))
-        print(f"  {name:24s} {shown:>14s}   {SUMMARY_MEANING.get(name, '')}")
+        print(f"  {name:24s} {_shown(name, value, SUMMARY_UNITS.get(name, '')):>14s}   {SUMMARY_MEANING.get(name, '')}")
     print()
-    head = f"  {'corner':6s} {'temp':>6s} {'vdd':>6s} {'Iq':>10s} {'sigma':>7s} {'hr_high':>8s} {'hr_low':>8s} " \
-           f"{'ab':>6s} {'vdd_min':>8s}  limits (source/sink)"
-    print(head)
+    print(f"  {'corner':6s} {'temp[C]':>7s} {'vdd[V]':>6s} {'Iq':>10s} {'sigma[%]':>8s} {'hr_high[mV]':>11s} "
+          f"{'hr_low[mV]':>10s} {'ab[1]':>6s} {'vdd_min[V]':>10s} {'power':>9s}  limits (source/sink)")
     for row in out["pvt"]:
-        def f(key, fmt):
-            return "n/a" if row[key] is None else fmt.format(row[key])
-        print(f"  {row['corner']:6s} {row['temp_c']:6.0f} {row['vdd_v']:6.2f} "
-              f"{format_eng(row['iq_a'], 'A') if row['iq_a'] is not None else 'n/a':>10s} {f('iq_sigma_pct', '{:.2f}%'):>7s} "
-              f"{f('headroom_high_v', '{:.3f}'):>8s} {f('headroom_low_v', '{:.3f}'):>8s} {f('ab_ratio', '{:.3f}'):>6s} "
-              f"{f('vdd_min_v', '{:.3f}'):>8s}  {row['limit_source']}/{row['limit_sink']}"
-              f"{'' if row['converged'] else '  NOT CONVERGED'}")
+        def f(key, fmt, scale=1.0):
+            if row[key] is None:
+                return "cannot" if key.startswith("headroom") else "n/a"
+            return fmt.format(row[key] * scale)
+        print(f"  {row['corner']:6s} {row['temp_c']:7.0f} {row['vdd_v']:6.2f} "
+              f"{format_eng(row['iq_a'], 'A') if row['iq_a'] is not None else 'n/a':>10s} "
+              f"{f('iq_sigma_pct', '{:.2f}'):>8s} {f('headroom_high_v', '{:.1f}', 1e3):>11s} "
+              f"{f('headroom_low_v', '{:.1f}', 1e3):>10s} {f('ab_ratio', '{:.3f}'):>6s} "
+              f"{f('vdd_min_v', '{:.3f}'):>10s} "
+              f"{format_eng(row['power_w'], 'W', 3) if row['power_w'] is not None else 'n/a':>9s}"
+              f"  {row['limit_source']}/{row['limit_sink']}{'' if row['converged'] else '  NOT CONVERGED'}")
+    print(f"  {LIMIT_WORDS} cannot: the stage cannot deliver the peak load that way (no headroom exists).")
     print()
     if out["violations"]:
         print("violations:")
@@ -97,7 +113,7 @@ def _no_sigma(mc: dict) -> str:
 
 def cmd_evaluate(args) -> int:
     study = load_study(args.study)
-    design = load_design(args.design, study.tech)
+    design = load_design(args.design, study.tech, lambda arch: study_ties(study, arch))
     res = evaluate(design, study.tech, study.conditions, study.targets)
     for line in length_warnings(study.tech, [design]):
         print(f"warning: {line}", file=sys.stderr)
@@ -140,7 +156,14 @@ def cmd_compare(args) -> int:
 def cmd_pick(args) -> int:
     from .review.pick import pick_designs
 
-    return pick_designs(args.run, args.where, args.by, args.count, args.format)
+    return pick_designs(args.run, args.where, args.by, args.count, "csv" if args.csv else args.format,
+                        wide=args.wide)
+
+
+def cmd_export_design(args) -> int:
+    from .review.designfile import export_design
+
+    return export_design(args.run, args.id, args.out, args.overwrite)
 
 
 def cmd_sweep(args) -> int:
@@ -203,7 +226,7 @@ def add_handoff_commands(sub) -> None:
         description="One subcircuit from the architecture's topology (devices named by role, W/L on the "
                     "drawing grid) and a test bench: the rest point (.op, output held at VDD/2 by feedback), "
                     "a load-current sweep at mid-supply and the two drive-limit sweeps (driven gate at the "
-                    "model's limit, output swept). " + CAUTION)
+                    "model's limit, output swept).")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--row", required=True, metavar="ID", help="front.csv row id, e.g. fl-003")
     p.add_argument("--models", metavar="FILE", help="your model card (.lib with corner sections, or a plain card); "
@@ -216,8 +239,7 @@ def add_handoff_commands(sub) -> None:
         "verify", parents=[models], help="simulate chosen designs in ngspice and compare with the model",
         description="Run ngspice on each chosen design at the study's PVT points the model file supports; "
                     "compare Iq, headrooms and peak currents with the model; write RUN/verify.csv and print "
-                    "the median and worst error per metric. Exit status 1 when nothing could be verified. "
-                    + CAUTION)
+                    "the median and worst error per metric. Exit status 1 when nothing could be verified.")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--rows", metavar="IDS", help="row ids, comma separated (default: the overall front)")
     p.add_argument("--all", action="store_true", help="every row of front.csv")
@@ -229,7 +251,7 @@ def add_handoff_commands(sub) -> None:
         description="Sweep single NMOS and PMOS devices of the card in ngspice (Id-VGS from weak to strong "
                     "inversion at several L and VSB, Id-VDS for the Early voltage, two more temperatures, every "
                     "corner section), fit the technology parameters by least squares, print the fit error per "
-                    "region and write a technology TOML. " + CAUTION)
+                    "region and write a technology TOML.")
     p.add_argument("--models", required=True, metavar="FILE", help="the model card (.lib with sections, or plain)")
     p.add_argument("--out", required=True, metavar="TECH.toml", help="technology file to write")
     p.add_argument("--kind", choices=("ekv", "square-law"), default="ekv", help="model kind to fit (default ekv)")
@@ -262,13 +284,14 @@ def build_parser() -> argparse.ArgumentParser:
         prog="stagefront",
         description="Size class-AB CMOS output stages with analytic all-region models. " + CAUTION,
     )
+    parser.add_argument("--version", action="version", version=f"stagefront {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
     p = sub.add_parser(
         "evaluate", help="solve one design at every PVT point of a study and print all metrics",
         description="Solve one design exactly (rest point, both drive limits, mismatch sigma) at every "
                     "corner x temperature x supply of the study, and print every metric and every "
-                    "violated target. " + CAUTION)
+                    "violated target.")
     p.add_argument("study", help="study file (TOML), e.g. studies/sensor-buffer.toml")
     p.add_argument("--design", required=True, help="design file (TOML): architecture, [devices.ROLE] w/l in um, [bias]")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the table")
@@ -280,7 +303,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser(
         "optimise", help="search sizes and bias of every architecture of a study (NSGA-II) and write a run folder",
         description="Search every architecture of the study with NSGA-II on the same objectives and "
-                    "constraints; write front.csv, run.json and plots into the run folder. " + CAUTION)
+                    "constraints; write front.csv, run.json and plots into the run folder.")
     p.add_argument("study", help="study file (TOML) with [objectives], [bounds.ARCH], [ties.ARCH], [search]")
     p.add_argument("--out", help="run folder (default runs/STUDY-NAME); never overwritten unless --overwrite")
     p.add_argument("--seed", type=int, help="random seed (default: the study's)")
@@ -294,7 +317,7 @@ def build_parser() -> argparse.ArgumentParser:
         "compare", help="put the fronts of several run folders on the same axes: who dominates where",
         description="Load run folders made with the same objectives; for every pair of (run, architecture) "
                     "groups report the share of one group's designs that a design of the other dominates, "
-                    "and the best value each group reaches per objective. " + CAUTION)
+                    "and the best value each group reaches per objective.")
     p.add_argument("runs", nargs="+", metavar="RUN", help="run folders (each with front.csv and run.json)")
     p.add_argument("--out", help="folder for compare.csv, compare.md and compare.png")
     p.add_argument("--overwrite", action="store_true", help="write into an --out folder that is not empty")
@@ -304,7 +327,7 @@ def build_parser() -> argparse.ArgumentParser:
         "pick", help="filter a run's front by budgets and rank it (knee or one objective) for hand-off",
         description="Keep the front designs that meet every --where budget, rank them by the knee of the "
                     "front or by one objective, and print sizes (um), bias currents (uA), r_bias (kohm), "
-                    "objectives and constraint margins (%). Exit status 1 when no design is left. " + CAUTION)
+                    "objectives and constraint margins (%). Exit status 1 when no design is left.")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--where", action="append", default=[], metavar="BUDGET",
                    help="NAME OP VALUE, e.g. \"power_w<=200u\"; OP one of <= >= < > ==; NAME a front.csv "
@@ -312,15 +335,30 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--by", default="knee", metavar="knee|OBJECTIVE",
                    help="rank by the knee (default) or by one of the run's objectives, best first")
     p.add_argument("--count", type=int, default=10, metavar="N", help="designs to show (default 10)")
-    p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown table (default) or CSV")
+    p.add_argument("--format", choices=("md", "csv"), default="md", help="Markdown tables (default) or CSV")
+    p.add_argument("--wide", action="store_true", help="one Markdown table with every column (wider than 100 "
+                                                       "characters) instead of the compact tables")
+    p.add_argument("--csv", action="store_true", help="every front.csv column of the rows shown, as CSV "
+                                                      "(same as --format csv)")
     p.set_defaults(func=cmd_pick)
+
+    p = sub.add_parser(
+        "export-design", help="write one front.csv row as a design file for evaluate (or for editing)",
+        description="Write the row's architecture, every device's W/L (um) and bias as a design file; "
+                    "`stagefront evaluate STUDY --design FILE` then shows its full PVT table and gives the "
+                    "row's metrics.")
+    p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
+    p.add_argument("id", metavar="ID", help="front.csv row id, e.g. fl-003")
+    p.add_argument("--out", metavar="FILE.toml", help="write here (atomically) instead of to stdout")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --out file")
+    p.set_defaults(func=cmd_export_design)
 
     p = sub.add_parser(
         "sweep", help="run every cell of a grid file (a base study and axes to vary) on a Dask cluster",
         description="Expand a grid file into one study per cell, run each as a Dask task (local worker "
                     "processes, or the cluster at --scheduler), reuse cells already finished, and write "
                     "summary.csv, summary.md and fronts.png across the cells. Exit status 1 when a cell "
-                    "failed. " + CAUTION)
+                    "failed.")
     p.add_argument("grid", help="grid file (TOML): base = STUDY, [axes], optional [search]")
     p.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler to use, e.g. tcp://10.0.0.5:8786 "
                                                            "(default: start a local cluster)")
@@ -336,7 +374,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="One HTML page (figures embedded, no network needed) and a Markdown twin with the study, "
                     "every architecture's front, the picked designs (knee first), the knee at every PVT point, "
                     "its mismatch spread, Iq against supply, the simulator verification when verify.csv "
-                    "exists, and the assumptions. " + CAUTION)
+                    "exists, and the assumptions.")
     p.add_argument("run", metavar="RUN", help="run folder (front.csv and run.json)")
     p.add_argument("--out", metavar="FILE", help="HTML file (default RUN/report.html); the Markdown twin and "
                                                  "its PNG figures go beside it (report.md, report-*.png)")

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import io
 import json
+import re
 import shutil
 from pathlib import Path
 
@@ -82,15 +83,21 @@ def test_where_keeps_only_rows_within_budget(capsys, run):
 
 
 def test_where_on_margin_in_percent(capsys, run):
-    code, out, _ = cli(capsys, "pick", run, "--where", "margin_headroom>=10%", "--count", "1000", "--format", "csv")
+    code, out, _ = cli(capsys, "pick", run, "--where", "margin_headroom_pct>=10%", "--count", "1000", "--format",
+                       "csv")
     front = front_of(run)
     if code == 1:  # no design has 10 % headroom margin left: nothing printed
-        assert (front["margin_headroom"] < 0.1).all()
+        assert (front["margin_headroom_pct"] < 10).all()
         return
     rows = picked(out)
-    assert (front.loc[rows["id"], "margin_headroom"] >= 0.1).all()
-    # the printed margin is the file's relative margin in percent, to the 0.1 shown
-    assert np.allclose(rows["margin_headroom [%]"], 100 * front.loc[rows["id"], "margin_headroom"], atol=0.051)
+    assert (front.loc[rows["id"], "margin_headroom_pct"] >= 10).all()
+    # one unit everywhere: the CSV's margin is front.csv's, in percent
+    assert np.array_equal(rows["margin_headroom_pct"], front.loc[rows["id"], "margin_headroom_pct"])
+    # and the compact table shows the same percent (to its 3 digits)
+    code, text, _ = cli(capsys, "pick", run, "--by", "power_w", "--count", "1")
+    top = front["power_w"].idxmin()
+    shown = re.escape(f"{front.loc[top, 'margin_headroom_pct']:.3g}")
+    assert re.search(r"\|\s+" + shown + r" \|", text)
 
 
 @pytest.mark.parametrize("objective, sense", [("power_w", "min"), ("area_um2", "min"), ("swing_v", "max")])
@@ -107,10 +114,14 @@ def test_pick_units_at_the_edge(capsys, run):
     code, out, _ = cli(capsys, "pick", run, "--by", "power_w", "--count", "1", "--format", "csv")
     row = picked(out).iloc[0]
     design = front_of(run).loc[row["id"]]
-    # micrometres in front.csv are shown as they are; amperes as microamps
-    assert row["mn_out W [um]"] == pytest.approx(design["mn_out_w_um"], rel=1e-5)  # 6 digits printed
-    assert row["ib_ctl [uA]"] == pytest.approx(design["ib_ctl_a"] * 1e6, rel=1e-5)
-    assert row["iq [uA]"] == pytest.approx(design["iq_a"] * 1e6, rel=1e-5)
+    # the CSV is front.csv's row as it is: contract names, SI units (sizes in um), exact numbers
+    assert row["mn_out_w_um"] == design["mn_out_w_um"]
+    assert row["ib_ctl_a"] == design["ib_ctl_a"]
+    assert row["iq_a"] == design["iq_a"] and row["rank"] == 1
+    # the compact table shows them in uA, with the unit once in the header
+    code, text, _ = cli(capsys, "pick", run, "--by", "power_w", "--count", "1")
+    assert "ib_ctl [uA]" in text and f"{design['ib_ctl_a'] * 1e6:.5g}" in text
+    assert "Iq [uA]" in text and f"{design['iq_a'] * 1e6:.4g}" in text
 
 
 def test_knee_pick_is_a_non_dominated_front_member(capsys, run):
@@ -144,14 +155,43 @@ def test_knee_of_a_hand_made_front():
     assert np.argmin(cheb2) == 1
 
 
-def test_markdown_table_has_units(capsys, run):
+def test_markdown_tables_have_units_and_fit_100_columns(capsys, run):
     code, out, _ = cli(capsys, "pick", run, "--count", "2")
     assert code == 0
-    header = out.splitlines()[0]
-    for col in ("mn_out W/L [um]", "ib_ctl [uA]", "power_w [", "margin_headroom [%]", "knee distance"):
-        assert col in header
-    assert out.splitlines()[1].startswith("|")
-    assert len([ln for ln in out.splitlines() if ln.startswith("| ") and "fl-" in ln]) == 2
+    headers = " ".join(ln for ln in out.splitlines() if ln.startswith("| #") or ln.startswith("| id"))
+    for col in ("mn_out W/L [um]", "ib_ctl [uA]", "power typ [uW]", "power max [uW]", "headroom [%]",
+                "knee dist", "peak out [mA]"):
+        assert col in headers, col
+    # no column name doubled with its unit, as "power_w [uW]" once was
+    assert "power_w [" not in out
+    tables = [ln for ln in out.splitlines() if ln.startswith("|")]
+    # a 100-column terminal shows every table line whole
+    assert max(len(ln) for ln in tables) <= 100
+    # tied devices share one column: the floating loop's three matched N devices are one
+    assert "mn_d1+2 W/L [um]" in headers and "mn_d2 W/L" not in headers
+    assert "mn_d1+2 = mn_d1, mn_d2, mn_ctl" in out
+    # every design appears once per table part
+    assert len([ln for ln in tables if ln.startswith("| 1 ") or ln.startswith("| 2 ")]) % 2 == 0
+    code, wide, _ = cli(capsys, "pick", run, "--count", "2", "--wide")
+    assert max(len(ln) for ln in wide.splitlines() if ln.startswith("|")) > 100  # one row per design
+    assert len([ln for ln in wide.splitlines() if ln.startswith("| 1 ") or ln.startswith("| 2 ")]) == 2
+
+
+def test_pick_and_report_name_the_same_knee_whatever_the_budgets(capsys, run):
+    from optimise.report.data import pick_rows
+    from optimise.search.runfolder import load_run
+
+    r = load_run(run)
+    report_knee = pick_rows(r.table, r.objectives, 1)["id"].iloc[0]
+    code, out, _ = cli(capsys, "pick", run, "--count", "1", "--format", "csv")
+    assert picked(out)["id"].iloc[0] == report_knee
+    # a budget that keeps the knee keeps it on top: the box is always the whole front's
+    budget = float(r.table.set_index("id").loc[report_knee, "power_w"])
+    code, out, err = cli(capsys, "pick", run, "--count", "1", "--format", "csv", "--where",
+                         f"power_w<={budget * 1e6 * (1 + 1e-9):.12g}u")
+    assert picked(out)["id"].iloc[0] == report_knee
+    if (r.table["power_w"] > budget * (1 + 1e-9)).any():
+        assert f"the run's knee {report_knee} meets the budgets" in err
 
 
 @pytest.mark.parametrize("budget, words", [

@@ -204,13 +204,13 @@ def test_margin_and_metric_columns_are_checked_by_family_not_by_name(run, tmp_pa
     # A renamed margin column (another unit, say) is checked like any number column:
     # empty is allowed, nan is not.
     def rename(lines, value):
-        lines = [ln.replace("margin_area", "margin_area_pct") for ln in lines]
-        return cell(lines, 1, "margin_area_pct", value)
+        lines = [ln.replace("margin_area_pct", "margin_area_ppm") for ln in lines]
+        return cell(lines, 1, "margin_area_ppm", value)
 
     ok = edited(run, tmp_path, lambda x: rename(x, ""), "empty")
-    assert read_front_checked(ok / "front.csv")["margin_area_pct"].isna().iloc[0]
+    assert read_front_checked(ok / "front.csv")["margin_area_ppm"].isna().iloc[0]
     bad = edited(run, tmp_path, lambda x: rename(x, "nan"), "nan")
-    with pytest.raises(InputError, match=r"line 2 \(row 'fl-001'\), column margin_area_pct"):
+    with pytest.raises(InputError, match=r"line 2 \(row 'fl-001'\), column margin_area_ppm"):
         read_front_checked(bad / "front.csv")
 
 

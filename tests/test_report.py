@@ -3,12 +3,14 @@ the caution, a page with no outside resource, the verification table and refusal
 from __future__ import annotations
 
 import base64
+import json
 import re
 import shutil
 from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from models.devices.constants import ZERO_CELSIUS
@@ -111,7 +113,7 @@ def test_page_needs_no_outside_resource(report):
     assert not re.search(r"https?:", page, flags=re.I)
     assert not re.search(r"""(?:src|href)\s*=\s*["']?//""", page, flags=re.I)
     srcs = re.findall(r'<img[^>]*\ssrc="([^"]*)"', page)
-    assert len(srcs) == 3  # fronts, mismatch, supply
+    assert len(srcs) == 4  # fronts, parallel coordinates, mismatch, supply
     for src in srcs:
         head, data = src.split(",", 1)
         assert head == "data:image/png;base64"
@@ -122,7 +124,7 @@ def test_page_needs_no_outside_resource(report):
 def test_markdown_figures_are_written_beside_it(report):
     run, _, md = report
     names = re.findall(r"!\[[^\]]*\]\(([^)]+)\)", md)
-    assert names == ["report-fronts.png", "report-mismatch.png", "report-supply.png"]
+    assert names == ["report-fronts.png", "report-parallel.png", "report-mismatch.png", "report-supply.png"]
     for name in names:
         assert (run / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
@@ -198,8 +200,9 @@ def test_verification_table_with_loosely_named_columns(report, tmp_path):
     assert [c[0] for c in column(ver, "error")] == ["-0.1 %", "-0.5 mV"]
     assert column(ver, "model")[0][0] == "11 uA"
     summary = tables_of(page2)["verification-summary"]
-    assert [c[0] for c in column(summary, "metric")] == ["iq_a", "headroom_high_v"]
-    assert [c[0] for c in column(summary, "worst")] == ["-0.1 %", "-0.5 mV"]
+    assert [c[0] for c in column(summary, "metric")] == ["iq_a", "iq_a", "headroom_high_v", "headroom_high_v"]
+    assert [c[0] for c in column(summary, "corner")] == ["all", "tt", "all", "ss"]
+    assert [c[0] for c in column(summary, "worst")] == ["-0.1 %", "-0.1 %", "-0.5 mV", "-0.5 mV"]
     assert "Verification has not been run" not in page2 and "| -0.5 mV |" in md2
 
 
@@ -235,3 +238,23 @@ def test_sort_keys_are_numbers_where_the_column_is_numeric(report):
     for key in ("iq_a", "power_w", "swing_v", "knee_distance"):
         values = [float(s) for _, s, _ in column(picked, key)]
         assert np.all(np.isfinite(values))
+
+
+def test_verification_of_an_ekv_study_against_level1_cards_says_so_beside_the_figures(report, tmp_path):
+    run, _, _ = report
+    copy = tmp_path / "run"
+    copy.mkdir()
+    for name in ("front.csv", "run.json"):
+        shutil.copy(run / name, copy / name)
+    knee = pd.read_csv(run / "front.csv")["id"].iloc[0]
+    (copy / "verify.csv").write_text("id,corner,temp_c,vdd_v,metric,model,simulator,error,error_unit,note\n"
+                                     f"{knee},tt,27,3.3,iq_a,1.1e-05,1.3e-05,0.18,rel,\n")
+    caveat = ("the level-1 cards made from it run the square law, so these errors compare two device models "
+              "(EKV against level 1)")
+    (copy / "verify.json").write_text(json.dumps({"models": None, "caveat": "note: demo is an ekv technology; "
+                                                  + caveat}))
+    write_report(copy, stream=open("/dev/null", "w"))
+    md = (copy / "report.md").read_text()
+    section = md.split("## Verification against a simulator", 1)[1].split("\n## ", 1)[0]
+    assert caveat in section and "| iq_a " in section
+    assert caveat in md.split("## At a glance", 1)[1].split("\n## ", 1)[0]

@@ -152,7 +152,7 @@ def test_netlist_text_names_roles_and_snaps_sizes(square_run, capsys):
     code, text, _ = _run(["netlist", run, "--row", rid], capsys)
     assert code == 0
     grid = load_tech(AH02).grid
-    devices = re.findall(r"^M_(\w+) .* w=(\S+) l=(\S+)$", text, re.MULTILINE)
+    devices = re.findall(r"^M_(\w+) .* w=(\S+) l=(\S+) ad=\S+ as=\S+ pd=\S+ ps=\S+$", text, re.MULTILINE)
     assert {d[0].lower() for d in devices} == set(get_stage("floating-loop").ROLES)
     for _, w, l in devices:
         for x in (float(w), float(l)):

@@ -102,7 +102,8 @@ def test_integer_too_large_for_a_float_is_refused():
         (2.5e-6, "A", "2.5 uA"),
         (0.0, "V", "0 V"),
         (-3.3e-3, "V", "-3.3 mV"),
-        (12.5e6, "Hz", "12.5 megHz"),
+        (12.5e6, "Hz", "12.5 MHz"),  # SI prefix on screen, never the SPICE 'meg'
+        (4.7e9, "Hz", "4.7 GHz"),
         (1.8e-7, "", "180n"),
         (42.0, "", "42"),
         (999.96, "Hz", "1 kHz"),  # rounding to 4 digits carries into the next scale letter
@@ -110,6 +111,10 @@ def test_integer_too_large_for_a_float_is_refused():
 )
 def test_format_eng(value, unit, text):
     assert format_eng(value, unit) == text
+
+
+def test_format_eng_spice_letters_for_text_read_back():
+    assert format_eng(12.5e6, "Hz", spice=True) == "12.5 megHz"
 
 
 def test_format_eng_digits():
@@ -123,7 +128,7 @@ def test_format_eng_digits():
 )
 def test_format_eng_reads_back_with_its_unit(value, unit):
     # The unit must be named: "1 F" alone is one femto by the SPICE rule.
-    assert parse_quantity(format_eng(value, unit, digits=12), unit) == pytest.approx(value, rel=1e-11, abs=0.0)
+    assert parse_quantity(format_eng(value, unit, digits=12, spice=True), unit) == pytest.approx(value, rel=1e-11, abs=0.0)
 
 
 @settings(max_examples=100, deadline=None)

@@ -47,6 +47,12 @@ def check_range(name: str, value: float, lo: float, hi: float, unit: str) -> Non
         raise ValueError(f"{name} = {value!r} {unit} is outside the allowed range [{lo:g}, {hi:g}] {unit}")
 
 
+# Default diffusion extension in minimum lengths. From memory: lambda design rules of the
+# MOSIS SCMOS kind put a contacted source/drain 5 lambda beyond the gate (poly-to-contact
+# spacing 2, contact 2, active overlap of contact 1) with L_min = 2 lambda: 2.5 L_min.
+DIFFUSION_PER_LMIN = 2.5
+
+
 @dataclass(frozen=True, slots=True)
 class MosTech:
     """Constants of one device polarity at the nominal temperature. Magnitudes, SI."""
@@ -119,9 +125,13 @@ class Tech:
     card: tuple | None = None  # table kind: (card path, NMOS model, PMOS model) tabulated
     # m  lengths an analytic technology was calibrated at (empty: not a calibration, or unknown)
     fitted_lengths: tuple = ()
+    # m  source/drain diffusion length beyond the gate edge (netlists' AD, AS, PD, PS);
+    # 0 stands for the default DIFFUSION_PER_LMIN x l_min of each polarity.
+    diffusion_extension: float = 0.0
 
     def __post_init__(self) -> None:
         check_range("grid", self.grid, 1e-10, 1e-6, "m")
+        check_range("diffusion_extension", self.diffusion_extension, 0.0, 1e-4, "m")
         for x in self.fitted_lengths:
             check_range("fitted length", x, 1e-8, 1e-3, "m")
         check_range("tnom", self.tnom, 200.0, 450.0, "K")
@@ -139,6 +149,11 @@ class Tech:
     def mos(self, polarity: Polarity) -> MosTech:
         """The constants of one polarity."""
         return self.nmos if polarity == Polarity.N else self.pmos
+
+    def extension(self, polarity: Polarity) -> float:
+        """Source/drain diffusion extension [m] of one polarity: the file's value, or
+        DIFFUSION_PER_LMIN x its minimum length."""
+        return self.diffusion_extension or DIFFUSION_PER_LMIN * self.mos(polarity).l_min
 
     def snap(self, x):
         """Round lengths [m] to the drawing grid (never below one grid step)."""

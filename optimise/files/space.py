@@ -192,10 +192,12 @@ def load_search(study: Study) -> SearchSettings:
                           reference)
 
 
-def _space(where, arch, bounds, ties, tech) -> Space:
+def resolve_ties(where: str, arch: str, ties: dict) -> dict:
+    """A [ties.ARCH] table checked and resolved: role -> the untied role it copies.
+
+    Roles must exist and share polarity; chains are followed to their root; a loop is an
+    InputError naming it."""
     stage = get_stage(arch)
-    table = f"bounds.{arch}"
-    check_keys(where, table, bounds, stage.ROLES + tuple(stage.BIAS))
     # Ties: role -> role, resolved to a root; no cycles, roles must exist and share polarity.
     pol = {s.role: s.polarity for s in stage.TOPOLOGY.devices}
     resolved = {}
@@ -218,6 +220,22 @@ def _space(where, arch, bounds, ties, tech) -> Space:
             seen.append(cur)
             cur = ties[cur]
         resolved[role] = cur
+    return resolved
+
+
+def study_ties(study: Study, arch: str) -> dict:
+    """The study's ties for one architecture, resolved (empty when it has none)."""
+    where = str(study.path)
+    ties_t = sub_table(where, "", "ties", study.raw.get("ties", {}))
+    return resolve_ties(where, arch, sub_table(where, "ties", arch, ties_t.get(arch, {})))
+
+
+def _space(where, arch, bounds, ties, tech) -> Space:
+    stage = get_stage(arch)
+    table = f"bounds.{arch}"
+    check_keys(where, table, bounds, stage.ROLES + tuple(stage.BIAS))
+    resolved = resolve_ties(where, arch, ties)
+    pol = {s.role: s.polarity for s in stage.TOPOLOGY.devices}
     variables, bulk = [], set()
     for role in stage.ROLES:
         if role in resolved:

@@ -28,12 +28,14 @@ CONDITION_KEYS = ("temperatures_c", "corners")
 LOAD_KEYS = ("current", "capacitance")
 DRIVER_KEYS = ("compliance", "drive")
 TARGET_UNITS = {"iq_min": "A", "iq_max": "A", "iq_sigmas": "", "headroom_max": "V", "ab_min": "",
-                "area_max_um2": "", "fp2_min": "Hz", "layout_factor": ""}
+                "area_max_um2": "", "fp2_min": "Hz", "layout_factor": "",
+                "power_max": "W", "iout_peak_max": "A"}
 
 # The lowest value each target may take, and whether it must lie strictly above it.
 TARGET_FLOOR = {"iq_min": (0.0, False), "iq_max": (0.0, True), "iq_sigmas": (0.0, False),
                 "headroom_max": (0.0, True), "ab_min": (0.0, False), "area_max_um2": (0.0, True),
-                "fp2_min": (0.0, False), "layout_factor": (1.0, False)}
+                "fp2_min": (0.0, False), "layout_factor": (1.0, False),
+                "power_max": (0.0, True), "iout_peak_max": (0.0, True)}
 # The highest supply a study may name [V]: integrated class-AB output stages run from a few
 # volts; anything far above is a typing or unit error ("common practice, no source").
 SUPPLY_CEILING_V = 60.0
@@ -189,14 +191,25 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     return Study(path, str(data.get("name", path.stem)), tech, tech_path, conditions, targets, tuple(archs), seed, data)
 
 
-def design_from_tables(where: str, arch, devices, bias, tech: Tech) -> Design:
-    """Check one design's tables (sizes in micrometres) and build a one-element Design."""
+def design_from_tables(where: str, arch, devices, bias, tech: Tech, ties: dict | None = None) -> Design:
+    """Check one design's tables (sizes in micrometres) and build a one-element Design.
+
+    `ties` (role -> role it copies, resolved, e.g. `optimise.files.space.study_ties`): a
+    tied role may be left out of [devices] and takes its root's table; given, it must
+    match it."""
     if not isinstance(arch, str) or arch not in STAGES:
         raise InputError(where, f"architecture = {show(arch)} is not known", ", ".join(STAGES),
                          closest(arch, STAGES) if isinstance(arch, str) else "")
     stage = get_stage(arch)
-    devices = sub_table(where, "", "devices", devices)
+    devices = dict(sub_table(where, "", "devices", devices))
     bias = sub_table(where, "", "bias", bias)
+    for role, root in (ties or {}).items():
+        if root in devices and role not in devices:
+            devices[role] = devices[root]
+        elif root in devices and devices[role] != devices[root]:
+            raise InputError(where, f"[devices.{role}] differs from [devices.{root}], but the study ties "
+                                    f"{role} to {root}", f"the same w, l and bulk as {root}, or leave {role} out",
+                             "the study's [ties] make tied devices one size")
     for role in devices:
         if role not in stage.ROLES:
             raise InputError(where, f"[devices.{role}] is not a role of {arch}", ", ".join(stage.ROLES),
@@ -245,9 +258,15 @@ def _micrometres(where, table, key, value) -> float:
     return micrometres(where, table, key, value)
 
 
-def load_design(path, tech: Tech) -> Design:
-    """Read a design file (architecture, [devices.ROLE] w/l in um, [bias])."""
+def load_design(path, tech: Tech, ties_of=None) -> Design:
+    """Read a design file (architecture, [devices.ROLE] w/l in um, [bias]).
+
+    `ties_of`: architecture -> resolved ties (e.g. a study's, through
+    `optimise.files.space.study_ties`); a tied role may then be left out of the file."""
     where = str(path)
     data = read_toml(path)
     check_keys(where, "", data, ("architecture", "devices", "bias", "name"), ("architecture", "devices", "bias"))
-    return design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech)
+    ties = None
+    if ties_of is not None and isinstance(data["architecture"], str) and data["architecture"] in STAGES:
+        ties = ties_of(data["architecture"])
+    return design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech, ties)

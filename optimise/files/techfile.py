@@ -6,6 +6,8 @@ Format (every number SI, or a string with an engineering suffix such as "280u"):
     model = "ekv"            # or "square-law", or "table" (then a [table] section)
     tnom = 300.15            # K, optional (default models.devices.constants.T_NOMINAL)
     grid = "5n"              # m, drawing grid
+    diffusion_extension = "0.5u"  # m, optional: source/drain length beyond the gate, for the
+                             #   netlists' AD/AS/PD/PS (default 2.5 x l_min of each polarity)
     [nmos]                   # every MosTech field: vt0 kp n gamma phi va_per_l tc_vt
     ...                      #   mu_exp a_vt a_beta cox cov w_min l_min
     [pmos]
@@ -55,7 +57,8 @@ MOS_UNITS = {
     "w_min": "m", "l_min": "m",
 }  # fmt: skip
 CORNER_UNITS = {"dvt_n": "V", "kp_n": "", "dvt_p": "V", "kp_p": ""}
-TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table", "calibration")
+TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table", "calibration",
+            "diffusion_extension")
 TABLE_KEYS = ("file", "card", "nmos", "pmos")
 TOP_REQUIRED = ("name", "model", "grid", "nmos", "pmos")
 MOS_KEYS = tuple(f.name for f in dataclasses.fields(MosTech))
@@ -173,6 +176,8 @@ def tech_from_dict(data: dict, where: str = "<technology>", base_dir=None) -> Te
         raise InputError(where, f"a [table] section with model = \"{model}\"", "[table] only with model = \"table\"")
     if "calibration" in data:
         kwargs["fitted_lengths"] = _fitted_lengths(where, data["calibration"])
+    if "diffusion_extension" in data:
+        kwargs["diffusion_extension"] = number(where, "", "diffusion_extension", data["diffusion_extension"], "m")
     return build(where, "", Tech, kwargs)
 
 

@@ -20,6 +20,8 @@ from numbers import Real
 # nearest 1.8e-7, not 0.18 * 1e-6.
 _SCALE = {"f": -15, "p": -12, "n": -9, "u": -6, "µ": -6, "μ": -6, "m": -3, "k": 3, "meg": 6, "g": 9, "t": 12}
 _DISPLAY = {-15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "meg", 9: "g", 12: "t"}
+_SI_LARGE = {6: "M", 9: "G", 12: "T"}  # display only: parse_quantity refuses a bare 'M'
+
 # Unit symbols accepted when no unit is expected; compounds join them with / or *.
 _SYMBOLS = {"V", "A", "F", "H", "Hz", "s", "m", "W", "J", "C", "K", "S", "ohm", "Ohm", "Ω"}
 
@@ -104,7 +106,7 @@ def parse_quantity(value, unit: str | None = None) -> float:
     return float(f"{mantissa}e{int(exponent or 0) + scale}")
 
 
-def format_eng(value: float, unit: str = "", digits: int = 4) -> str:
+def format_eng(value: float, unit: str = "", digits: int = 4, spice: bool = False) -> str:
     """Engineering notation for display, e.g. 2.5e-6, "A" -> "2.5 uA".
 
     Parameters
@@ -115,13 +117,16 @@ def format_eng(value: float, unit: str = "", digits: int = 4) -> str:
         Unit symbol appended after the scale letter.
     digits : int
         Significant digits (trailing zeros dropped).
+    spice : bool
+        False (default, for people): SI prefixes, mega as 'M' ("2.5 MHz"), giga 'G', tera
+        'T'. True (for text read back): the SPICE scale letters, mega as 'meg', so
+        `parse_quantity(text, unit)` reads the text back (name the unit: "1 F" alone is
+        one femto).
 
     Returns
     -------
     str
-        Mantissa in [1, 1000) with the SPICE scale letter (f ... t, mega as 'meg'), so
-        `parse_quantity(text, unit)` reads the text back (name the unit: "1 F" alone is
-        one femto). Zero, inf and nan get no scale letter.
+        Mantissa in [1, 1000) with the prefix. Zero, inf and nan get no prefix.
     """
     value = float(value)
     exp3 = 0
@@ -131,7 +136,7 @@ def format_eng(value: float, unit: str = "", digits: int = 4) -> str:
         if abs(float(f"{value / 10.0**exp3:.{digits}g}")) >= 1000.0 and exp3 < 12:
             exp3 += 3
     text = f"{value / 10.0**exp3:.{digits}g}"
-    suffix = _DISPLAY[exp3] + unit
+    suffix = (_DISPLAY[exp3] if spice or exp3 < 6 else _SI_LARGE[exp3]) + unit
     if not suffix:
         return text
     return f"{text} {suffix}" if unit else text + suffix

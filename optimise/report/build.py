@@ -26,6 +26,7 @@ and shown in `optimise.report.verification`, and both pages rendered in `optimis
 """
 from __future__ import annotations
 
+import os
 import sys
 from pathlib import Path
 
@@ -43,7 +44,7 @@ from ..files.units import format_eng
 from ..search.export import UNIT_SUFFIX
 from .data import MC_SAMPLES, OBJ_SHOW, ReportData, gather
 from .fidelity import bias_sources, device_limits, length_lines
-from .figures import fronts_figure, mismatch_figure, supply_figure
+from .figures import fronts_figure, mismatch_figure, parallel_figure, supply_figure
 from .render import (
     CLOSE,
     TIGHT,
@@ -76,21 +77,27 @@ SECTIONS = (
 
 
 # ---------------------------------------------------------------- sections
-def _margin_cell(m: float) -> Cell:
-    if not np.isfinite(m):
+def _margin_cell(pct: float) -> Cell:
+    """A margin in percent of its limit (front.csv's margin_*_pct), coloured by TIGHT/CLOSE."""
+    if not np.isfinite(pct):
         return Cell("off", np.inf, "off")
+    m = pct / 100.0
     tone = "tight" if m < TIGHT else "close" if m < CLOSE else "ample"
-    return Cell(f"{100 * m:.1f}", 100 * m, tone)
+    return Cell(f"{pct:.1f}", pct, tone)
 
 
 def _knee_line(data: ReportData) -> str:
     row = data.picks.iloc[0]
     parts = [f"{OBJ_SHOW[n][0]} {short(float(row[n]) * OBJ_SHOW[n][2])} {OBJ_SHOW[n][1]}" for n in data.objectives]
-    margins = {c[len("margin_"):]: float(row[c]) for c in data.picks.columns if c.startswith("margin_")}
+    margins = {c[len("margin_"):].removesuffix("_pct"): float(row[c]) for c in data.picks.columns
+               if c.startswith("margin_")}
     tight = min(margins, key=margins.get) if margins else None
     text = (f"Knee design {row['id']} ({row['architecture']}): Iq {short(float(row['iq_a']) * 1e6)} uA, "
             + ", ".join(parts))
-    return text + (f"; tightest margin: {tight} at {100 * margins[tight]:.1f} %." if tight else ".")
+    power = f"; power worst over PVT {short(float(row['power_max_w']) * 1e6)} uW" if "power_max_w" in row else ""
+    peak = f"; peak output current {short(float(row['iout_peak_a']) * 1e3, 3)} mA" if "iout_peak_a" in row else ""
+    return text + power + peak + (f"; tightest margin: {tight} at {margins[tight]:.1f} % of its limit."
+                                  if tight else ".")
 
 
 def _job(data: ReportData) -> list:
@@ -116,6 +123,8 @@ def _job(data: ReportData) -> list:
             f"ab_ratio >= {t.ab_min:g}" if t.ab_min > 0 else "",
             f"area <= {t.area_max * 1e12:g} um^2" if np.isfinite(t.area_max) else "",
             f"output pole >= {format_eng(t.fp2_min, 'Hz')}" if t.fp2_min > 0 else "",
+            f"power <= {format_eng(t.power_max, 'W')} at every PVT point" if np.isfinite(t.power_max) else "",
+            f"peak output current <= {format_eng(t.iout_peak_max, 'A')}" if np.isfinite(t.iout_peak_max) else "",
             f"layout factor {t.layout_factor:g}") if x)),
         ("objectives", ", ".join(f"{n} ({'maximise' if v == 'max' else 'minimise'}, {OBJECTIVES[n][0]})"
                                  for n, v in data.objectives.items())),
@@ -142,7 +151,8 @@ def _fronts(data: ReportData) -> list:
         if b:
             why = "; ".join(b.get("closest_violations", [])[:3])
             blocked.append(f"{arch}: no feasible design. The constraint '{b.get('blocking_constraint')}' blocks the "
-                           f"closest design (worst relative margin {short(b.get('closest_margin', float('nan')), 3)}); "
+                           f"closest design (worst margin {short(100 * b.get('closest_margin', float('nan')), 3)} % "
+                           f"of its limit); "
                            f"it misses: {why}.")
         elif not n:
             blocked.append(f"{arch}: no design in front.csv.")
@@ -179,8 +189,11 @@ def _picked(data: ReportData) -> list:
     header = [("rank", "#"), ("pick", "picked as"), ("id", "id"), ("architecture", "architecture")]
     header += [(f"{group[0]}_w_um", f"{' = '.join(group)} W/L [um]") for group in roles]
     header += [(col, f"{b} [{'uA' if u == 'A' else 'kohm'}]") for col, b, u in bias]
+    extra = [c for c in ("power_max_w", "iout_peak_a") if c in p.columns]
     header += [("iq_a", "Iq [uA]")] + [(n, f"{OBJ_SHOW[n][0]} [{OBJ_SHOW[n][1]}]") for n in data.objectives]
-    header += [("knee_distance", "knee distance")] + [(c, f"{c[len('margin_'):]} margin [%]") for c in margins]
+    header += [(c, {"power_max_w": "power worst [uW]", "iout_peak_a": "peak out [mA]"}[c]) for c in extra]
+    header += [("knee_distance", "knee distance")]
+    header += [(c, f"{c[len('margin_'):].removesuffix('_pct')} margin [%]") for c in margins]
     rows = []
     for k, row in enumerate(p.to_dict("records"), start=1):
         cells = [Cell(str(k), k), Cell(row["pick"]), Cell(row["id"]), Cell(row["architecture"])]
@@ -193,15 +206,20 @@ def _picked(data: ReportData) -> list:
             cells.append(num_cell(v, 1e6 if u == "A" else 1e-3) if np.isfinite(v) else Cell("", None))
         cells.append(num_cell(row["iq_a"], 1e6))
         cells += [num_cell(row[n], OBJ_SHOW[n][2]) for n in data.objectives]
+        cells += [num_cell(row[c], {"power_max_w": 1e6, "iout_peak_a": 1e3}[c]) for c in extra]
         cells.append(Cell(f"{row['knee_distance']:.3f}", float(row["knee_distance"])))
         cells += [_margin_cell(float(row[c])) for c in margins]
         rows.append(cells)
     return [f"{len(p)} of {len(data.table)} front designs: the knee first (the design nearest the ideal point of the "
             f"box the front spans, every objective scaled to the front's own range), then the best design per "
-            f"objective, then the next designs by knee distance. Sizes W / L in um (devices of equal size in every row "
-            f"share a column); bias currents in uA, resistors "
-            f"in kohm; margins are each constraint's worst relative margin over PVT. Click a column header to sort.",
-            Table("picked", header, rows), Legend()]
+            f"objective, then the next designs by knee distance (the same knee as `stagefront pick`). "
+            f"Sizes W / L in um "
+            f"(devices of equal size in every row share a column); bias currents in uA, resistors in kohm; power is "
+            f"typical (the objective) and worst over PVT; margins are each constraint's worst margin over PVT in % "
+            f"of its limit, as in front.csv. Click a column header to sort.",
+            Table("picked", header, rows), Legend(),
+            Figure("parallel", parallel_figure(data), "Every front design across the objectives, each axis turned so "
+                   "that up is better and scaled to the front's range; the picked designs are drawn bold.")]
 
 
 def _knee_pvt(data: ReportData) -> list:
@@ -213,8 +231,9 @@ def _knee_pvt(data: ReportData) -> list:
               ("iq_sigma_pct", "sigma [%]"), ("headroom_high_v", "headroom high [mV]"),
               ("headroom_low_v", "headroom low [mV]"), ("ab_ratio", "ab_ratio"), ("vdd_min_v", "vdd_min [V]"),
               ("iout_source_a", "peak source [mA]"), ("limit_source", "source limit"),
-              ("iout_sink_a", "peak sink [mA]"), ("limit_sink", "sink limit")]
-    scale = {"iq_a": 1e6, "headroom_high_v": 1e3, "headroom_low_v": 1e3, "iout_source_a": 1e3, "iout_sink_a": 1e3}
+              ("iout_sink_a", "peak sink [mA]"), ("limit_sink", "sink limit"), ("power_w", "power [uW]")]
+    scale = {"iq_a": 1e6, "headroom_high_v": 1e3, "headroom_low_v": 1e3, "iout_source_a": 1e3, "iout_sink_a": 1e3,
+             "power_w": 1e6}
     rows, classes = [], []
     for pt in res["pvt"]:
         nominal = (pt["corner"] == cond.typical.value and pt["vdd_v"] == cond.vdd_nom
@@ -223,14 +242,18 @@ def _knee_pvt(data: ReportData) -> list:
                       pt["corner"]), num_cell(pt["temp_c"]), num_cell(pt["vdd_v"])]
         for key, _ in header[3:]:
             v = pt[key]
-            cells.append(Cell(v, v) if isinstance(v, str)
-                         else num_cell(np.nan if v is None else v, scale.get(key, 1.0)))
+            if v is None and key.startswith("headroom"):
+                cells.append(Cell("cannot deliver", None, "tight"))
+            else:
+                cells.append(Cell(v, v) if isinstance(v, str)
+                             else num_cell(np.nan if v is None else v, scale.get(key, 1.0)))
         rows.append(cells)
         classes.append("nominal" if nominal else "")
     viol = res["violations"]
-    return [f"{data.picks['id'].iloc[0]} solved by evaluate() at all {len(rows)} PVT points (corner x temperature x "
-            f"supply). Headrooms are at the peak load current; limits name what stops the drive "
-            f"(driver compliance or the control device leaving saturation). "
+    return [f"{data.picks['id'].iloc[0]} at all {len(rows)} PVT points (corner x temperature x supply), its operating "
+            f"point solved exactly at each. Headrooms are at the peak load current; the limits name what stops the "
+            f"drive on each side: compliance (the driver got within its compliance of the rail) or "
+            f"control-saturation (the bias loop's control device left saturation first, so the loop caps the drive). "
             + ("Every target is met at every point." if not viol else "Missed: " + "; ".join(viol)),
             Table("knee-pvt", header, rows, classes)]
 
@@ -281,13 +304,15 @@ def _assumptions(data: ReportData) -> list:
         f"Rest point: no load, the output held at half the supply by the amplifier's feedback. Drive: the driving "
         f"stage moves {'both gates' if t.drive == 'both' else 'the ' + t.drive + ' gate'} until it is {t.vcomp:g} V "
         f"from a rail or the control device leaves saturation, whichever comes first.",
-        "Iq: current through the output pair at rest. Power: nominal supply times Iq plus every bias branch "
-        "(typical corner, nominal temperature).",
+        "Iq: current through the output pair at rest. Power: supply times Iq plus every bias branch, typical "
+        "(tt, nominal supply and temperature: the objective) and worst over PVT (power_max_w, the power budget's "
+        "check).",
         "Headroom: distance from a rail at which the stage still delivers the peak load current; swing is the "
         "supply less both headrooms. Peak source/sink: the largest output current at mid-supply with a gate at its "
         "drive limit.",
-        "ab_ratio: current left in the idle output device at peak load, as a fraction of Iq (class-AB keeps it "
-        "above zero).",
+        "ab_ratio: the smallest current left in the idle output device at full drive over the output range "
+        "(mid-supply to the peak-load point), as a fraction of Iq (class-AB keeps it above zero). Peak output "
+        "current: the largest current at full drive into a short at mid-supply (iout_peak_a).",
         "Iq sigma: 1-sigma Iq spread from device mismatch (Pelgrom), propagated linearly through the solved "
         "operating point; the Monte Carlo section checks it. Supply sensitivity: Iq change from the lowest to "
         "the highest supply per volt, relative to Iq at the nominal supply.",
@@ -310,10 +335,12 @@ def sections(data: ReportData) -> list:
         glance.append(f"No feasible design: {', '.join(none)} (see {SECTIONS[3][1]}).")
     if n:
         glance.append(_knee_line(data))
-    glance.append(data.verify[1] if data.verify[0] is None else f"Verification: {data.verify[1]}")
+    glance.append(data.verify[1] if data.verify[0] is None else f"Verification: {data.verify[1]}"
+                  + (f" {data.verify_caveat}" if data.verify_caveat else ""))
     glance += [f"Warning: {line}" for line in length_lines(data.study, data.table)]
     blocks = {"caution": [CAUTION], "glance": [Bullets(glance)], "job": _job(data), "fronts": _fronts(data),
-              "verify": verification_blocks(data.verify), "assumptions": _assumptions(data)}
+              "verify": verification_blocks(data.verify, data.verify_href, data.verify_caveat),
+              "assumptions": _assumptions(data)}
     empty = ["No feasible design in this run: nothing to show."]
     for key, make in (("picked", _picked), ("knee", _knee_pvt), ("mismatch", _mismatch), ("supply", _supply)):
         blocks[key] = make(data) if n else empty
@@ -348,6 +375,7 @@ def write_report(run, out=None, count: int = 8, stream=None) -> int:
     if out.is_dir():
         raise InputError("--out", f"{str(out)!r} is a folder", "a file path ending in .html")
     data = gather(run, count)
+    data.verify_href = Path(os.path.relpath(Path(run) / "verify.csv", out.parent)).as_posix()
     title = f"stagefront report: {data.study.name}"
     secs = sections(data)
     figures = {b.key: b for _, _, blocks in secs for b in blocks if isinstance(b, Figure)}

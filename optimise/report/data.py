@@ -21,7 +21,7 @@ from ..files.study import Study
 from ..review.montecarlo import Confirmation, confirm
 from ..review.pick import rank
 from ..search.runfolder import load_run, populations, study_of_run
-from .verification import read_verification
+from .verification import read_verification, verification_caveat
 
 MC_SAMPLES = 5000
 SWEEP_POINTS = 13
@@ -65,6 +65,8 @@ class ReportData:
     mc: Confirmation | None = None
     sweep: dict = field(default_factory=dict)  # id -> (vdd (p,), iq (p,))
     verify: tuple = (None, "")  # (DataFrame or None, note)
+    verify_href: str = "verify.csv"  # verify.csv as linked from the report
+    verify_caveat: str = ""  # from RUN/verify.json: e.g. EKV study checked against level-1 cards
 
 
 def gather(run, count: int = 8) -> ReportData:
@@ -92,7 +94,8 @@ def gather(run, count: int = 8) -> ReportData:
     study = study_of_run(r.path, r.record)
     table = r.table
     picks = pick_rows(table, r.objectives, count) if len(table) else table.iloc[0:0]
-    data = ReportData(r.path, r.record, study, r.objectives, table, picks, verify=read_verification(r.path))
+    data = ReportData(r.path, r.record, study, r.objectives, table, picks, verify=read_verification(r.path),
+                      verify_caveat=verification_caveat(r.path))
     if not len(picks):
         return data
     cond, tech, targets = study.conditions, study.tech, study.targets

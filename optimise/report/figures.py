@@ -30,6 +30,14 @@ def fronts_figure(data: ReportData) -> bytes:
     return png_bytes(fig, dpi=100)
 
 
+def parallel_figure(data: ReportData) -> bytes:
+    """Every front design across the objectives, up is better; the picked designs bold."""
+    from ..search import plots
+
+    picks = dict(zip(data.picks["id"], data.picks["pick"]))
+    return png_bytes(plots.parallel_coordinates(data.table, data.objectives, highlight=picks), dpi=100)
+
+
 def mismatch_figure(data: ReportData) -> bytes:
     """Histogram of the knee's Monte Carlo Iq with the linear estimate's Gaussian and its +-1, +-3 sigma."""
     from ..search.plots import _plt

@@ -1,8 +1,10 @@
 """Rendering of the report's sections: the blocks a section is made of, the self-contained HTML
 page (inline style sheet and column-sorting script, figures as data URIs) and its Markdown twin.
 
-A section is (key, title, blocks); a block is a paragraph (str), `Bullets`, `Table`,
-`Details` (a folded table), `Figure` (PNG bytes) or the margin `Legend`.
+A section is (key, title, blocks); a block is a paragraph (str), `Link` (a paragraph with a
+link to a file beside the report), `Bullets`, `Table`, `Details` (a folded table),
+`Figure` (PNG bytes) or the margin `Legend`. The caution is the report's first section and
+appears once.
 """
 from __future__ import annotations
 
@@ -12,7 +14,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .. import CAUTION
 from ..review.text import markdown_table
 
 # Margin tones: below TIGHT (relative margin) the cell is red, below CLOSE amber, else green.
@@ -58,6 +59,15 @@ class Details:
 
     summary: str
     table: Table
+
+
+@dataclass
+class Link:
+    """A paragraph ending in a link to a file beside the report: text, href, text after."""
+
+    text: str
+    href: str
+    after: str = ""
 
 
 @dataclass
@@ -198,6 +208,8 @@ def render_html(title: str, secs: list) -> str:
         for b in blocks:
             if isinstance(b, str):
                 out.append(f'<p class="caution">{e(b)}</p>' if key == "caution" else f"<p>{e(b)}</p>")
+            elif isinstance(b, Link):
+                out.append(f'<p>{e(b.text)} <a href="{e(b.href)}">{e(b.href)}</a>{e(b.after)}</p>')
             elif isinstance(b, Bullets):
                 out.append("<ul>" + "".join(f"<li>{e(x)}</li>" for x in b.items) + "</ul>")
             elif isinstance(b, Legend):
@@ -211,7 +223,6 @@ def render_html(title: str, secs: list) -> str:
             elif isinstance(b, Details):
                 out.append(f"<details><summary>{e(b.summary)}</summary>{_html_table(b.table)}</details>")
         out.append("</section>")
-    out.append(f'<p class="caution">{e(CAUTION)}</p>')
     out.append(f"<script>{_JS}</script></body></html>")
     return "\n".join(out) + "\n"
 
@@ -226,6 +237,8 @@ def render_markdown(title: str, secs: list, figure_files: dict) -> str:
         for b in blocks:
             if isinstance(b, str):
                 out += [f"> **{b}**" if key == "caution" else b, ""]
+            elif isinstance(b, Link):
+                out += [f"{b.text} [{b.href}]({b.href}){b.after}", ""]
             elif isinstance(b, Bullets):
                 out += [f"- {x}" for x in b.items] + [""]
             elif isinstance(b, Legend):
@@ -238,5 +251,4 @@ def render_markdown(title: str, secs: list, figure_files: dict) -> str:
                     out += [f"{b.summary}:", ""]
                 rows = [[esc(c.text + mark.get(c.tone, "")) for c in r] for r in t.rows]
                 out += [markdown_table([esc(lab) for _, lab in t.header], rows), ""]
-    out += [f"> **{CAUTION}**", ""]
     return "\n".join(out)

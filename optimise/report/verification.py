@@ -14,9 +14,9 @@ import numpy as np
 import pandas as pd
 
 from ..files.errors import InputError
-from ..files.inputs import MAX_TABLE_BYTES, read_input_text
+from ..files.inputs import MAX_TABLE_BYTES, load_json, read_input_text
 from ..files.units import format_eng
-from .render import Cell, Details, Table, short
+from .render import Cell, Details, Link, Table, short
 
 _VERIFY_NAMES = {
     "id": ("id", "design", "design_id", "row"),
@@ -88,6 +88,17 @@ def _finite(value, path: Path, line: int, col: str) -> float:
     return float(value)
 
 
+def verification_caveat(run_path: Path) -> str:
+    """The caveat `stagefront verify` left in RUN/verify.json (which models ngspice ran),
+    or "" when there is none or the file cannot be read."""
+    try:
+        data = load_json(Path(run_path) / "verify.json")
+    except (OSError, InputError):
+        return ""
+    caveat = data.get("caveat") if isinstance(data, dict) else None
+    return caveat.removeprefix("note: ") if isinstance(caveat, str) else ""
+
+
 def _volts(row: dict) -> bool:
     """True when the row's error is an absolute voltage (headrooms), False when relative."""
     unit = str(row.get("error_unit", "")).strip().lower()
@@ -118,35 +129,68 @@ def _verify_cell(col: str, row: dict) -> Cell:
     return Cell("" if value is None else str(value))
 
 
-def verification_blocks(verify: tuple) -> list:
-    """The blocks of the verification section from read_verification's (table, note)."""
+# The largest errors listed one by one beside the summary; the rest stays in verify.csv.
+WORST_ROWS = 20
+
+
+def _at(row: dict) -> str:
+    at = " ".join(str(row[c]) for c in ("id", "corner") if c in row)
+    return at + "".join(f" {short(row[c])} {u}" for c, u in (("temp_c", "C"), ("vdd_v", "V")) if c in row)
+
+
+def _stats(rs: list) -> list:
+    """Cells: points, median |error|, 95th percentile |error|, worst error, rows holding it."""
+    err = np.array([float(r["error"]) for r in rs])
+    mag = np.abs(err)
+    volts = _volts(rs[0])
+    top = float(mag.max())
+    holders = [r for r, m in zip(rs, mag) if m == top]
+    at = "; ".join(_at(r) for r in holders[:3]) + (f" (+{len(holders) - 3} more)" if len(holders) > 3 else "")
+    worst = float(err[int(np.argmax(mag))])
+    med, p95 = float(np.median(mag)), float(np.percentile(mag, 95))
+    return [Cell(str(len(rs)), len(rs)), Cell(_show_error(med, volts).lstrip("+"), med),
+            Cell(_show_error(p95, volts).lstrip("+"), p95), Cell(_show_error(worst, volts), abs(worst)), Cell(at)]
+
+
+def verification_blocks(verify: tuple, href: str = "verify.csv", caveat: str = "") -> list:
+    """The blocks of the verification section from read_verification's (table, note).
+
+    Per metric, over all corners and per corner: the points compared, the median and
+    95th percentile of |error|, the worst error and the rows holding it; then the
+    WORST_ROWS largest errors. Every comparison stays in verify.csv (linked as `href`),
+    so the page stays small whatever the size of the table.
+    """
     table, note = verify
     if table is None:
         return [note]
     records = table.to_dict("records")
-    out = [note + " Errors are simulator minus model: relative for currents (%), in millivolts for voltages "
-                  "(headrooms)."]
-    if {"metric", "error"} <= set(table.columns) and len(table):
-        rows = []
-        for metric in dict.fromkeys(table["metric"]):
-            rs = [r for r in records if r["metric"] == metric and isinstance(r["error"], (int, float))
-                  and np.isfinite(r["error"])]
-            if not rs:
-                rows.append([Cell(str(metric)), Cell("0", 0), Cell("", None), Cell("", None), Cell("")])
-                continue
-            err = np.array([float(r["error"]) for r in rs])
-            w = rs[int(np.argmax(np.abs(err)))]
-            at = " ".join(str(w[c]) for c in ("id", "corner") if c in w)
-            at += "".join(f" {short(w[c])} {u}" for c, u in (("temp_c", "C"), ("vdd_v", "V")) if c in w)
-            rows.append([Cell(str(metric)), Cell(str(len(rs)), len(rs)),
-                         Cell(_show_error(float(np.median(np.abs(err))), _volts(w)).lstrip("+"),
-                              float(np.median(np.abs(err)))),
-                         Cell(_show_error(float(w["error"]), _volts(w)), abs(float(w["error"]))), Cell(at)])
-        out.append(Table("verification-summary", [("metric", "metric"), ("points", "points"),
-                                                  ("median", "median |error|"), ("worst", "worst error"),
-                                                  ("at", "worst at")], rows))
+    out = [Link(note + " Errors are simulator minus model: relative for currents (%), in millivolts for voltages "
+                       "(headrooms). Every comparison is in", href, ".")]
+    if caveat:
+        out.append(caveat)
+    if not ({"metric", "error"} <= set(table.columns) and len(table)):
+        return out
+    good = [r for r in records if isinstance(r["error"], (int, float)) and np.isfinite(r["error"])]
+    rows = []
+    for metric in dict.fromkeys(table["metric"]):
+        mine = [r for r in good if r["metric"] == metric]
+        if not mine:
+            rows.append([Cell(str(metric)), Cell("all")] + [Cell("0", 0)] + [Cell("", None)] * 3 + [Cell("")])
+            continue
+        rows.append([Cell(str(metric)), Cell("all")] + _stats(mine))
+        if "corner" in table.columns:
+            for corner in dict.fromkeys(r["corner"] for r in mine):
+                rows.append([Cell(str(metric)), Cell(str(corner))] + _stats([r for r in mine if r["corner"] == corner]))
+    out.append(Table("verification-summary", [("metric", "metric"), ("corner", "corner"), ("points", "points"),
+                                              ("median", "median |error|"), ("p95", "95th percentile |error|"),
+                                              ("worst", "worst error"), ("at", "worst at (design, PVT)")], rows))
+    # Relative and absolute errors differ in scale: rank each metric's rows by its own worst.
+    scale = {m: max(abs(float(r["error"])) for r in good if r["metric"] == m) or 1.0
+             for m in dict.fromkeys(r["metric"] for r in good)}
+    worst = sorted(good, key=lambda r: -abs(float(r["error"])) / scale[r["metric"]])[:WORST_ROWS]
     shown = [c for c in table.columns if c != "error_unit"]
     header = [(c, {"temp_c": "temp [C]", "vdd_v": "vdd [V]"}.get(c, c)) for c in shown]
-    out.append(Details(f"All {len(records)} comparisons",
-                       Table("verification", header, [[_verify_cell(c, r) for c in shown] for r in records])))
+    out.append(Details(f"The {len(worst)} largest errors (each relative to its metric's worst) of {len(records)} "
+                       f"comparisons", Table("verification", header, [[_verify_cell(c, r) for c in shown]
+                                                                      for r in worst])))
     return out

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from models.devices.constants import ZERO_CELSIUS
 from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result
 
@@ -23,6 +25,9 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
                "vdd_v": float(res.vdd[j]), "converged": bool(res.converged[i, j])}
         for name in PVT_METRICS:
             row[name] = _finite(res.pvt[name][i, j])
+        # A headroom is null where the stage cannot deliver the peak load; these say so.
+        row["delivers_source"] = bool(res.pvt["delivers_source"][i, j])
+        row["delivers_sink"] = bool(res.pvt["delivers_sink"][i, j])
         row["limit_source"] = LIMIT_NAMES[int(res.pvt["limit_source"][i, j])]
         row["limit_sink"] = LIMIT_NAMES[int(res.pvt["limit_sink"][i, j])]
         row["vdd_min_set_by"] = res.requirement_names[int(res.pvt["vdd_min_what"][i, j])]
@@ -31,7 +36,8 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
         "architecture": res.architecture,
         "feasible": bool(res.feasible[i]),
         "violations": list(res.violations[i]),
-        "summary": {name: _finite(v[i]) for name, v in res.summary.items()},
+        "summary": {name: bool(v[i]) if np.asarray(v).dtype == bool else _finite(v[i])
+                    for name, v in res.summary.items()},
         "pvt": pvt,
     }
 

@@ -2,23 +2,26 @@
 
 Budgets are ``NAME OP VALUE`` with NAME a front.csv column and OP one of <=, >=, <, >, ==.
 VALUE is read in the column's unit, named by the column's suffix: ``power_w<=200u`` is
-200 uW, ``fp2_hz>=2meg`` 2 MHz, ``margin_headroom>=10%`` a relative margin of 0.1. Columns
-in micrometres or percent (``*_um``, ``area_um2``, ``*_pct``) take plain numbers in that
-unit, since a scale letter would read "100u" as 1e-4. Text columns (id, architecture,
+200 uW, ``fp2_hz>=2meg`` 2 MHz, ``margin_headroom_pct>=10`` a margin of 10 % of its limit
+(front.csv's margins are in percent). Columns in micrometres or percent (``*_um``,
+``area_um2``, ``*_pct``) take plain numbers in that unit, since a scale letter would read
+"100u" as 1e-4. Text columns (id, architecture,
 ``*_bulk``) and overall_front take ``==`` only. A budget on supply_sens_pct_per_v
 applies to its magnitude, as the search minimises it. A row with no value in the column
 (a role its architecture does not have) does not meet the budget.
 
 Ranking is by the knee (default) or by one of the run's objectives in its sense, best
-first. The knee is defined in `knee_distance`.
+first. The knee is defined in `knee_distance`, always in the objective box of every design
+in front.csv, so pick and the report name the same knee; budgets remove designs but never
+change the box (pick's output says when the run's knee is among the removed).
 """
 from __future__ import annotations
 
 import difflib
-import io
 import operator
 import re
 import sys
+import textwrap
 from dataclasses import dataclass
 
 import numpy as np
@@ -26,11 +29,13 @@ import pandas as pd
 
 from .. import CAUTION
 from ..files.errors import InputError
-from ..files.space import OBJECTIVES
 from ..files.units import parse_quantity
 from ..search.runfolder import load_run
+from . import handoff
 from .compare import minimised
-from .text import markdown_table
+
+KNEE_WORDS = ("the knee (smallest Chebyshev distance to the ideal point of the objective box of every design in "
+              "front.csv, each objective scaled to that box; the report's knee is the same)")
 
 OPS = {"<=": operator.le, ">=": operator.ge, "<": operator.lt, ">": operator.gt, "==": operator.eq}
 _SPLIT = re.compile(r"^(.*?)(<=|>=|==|!=|=<|=>|<>|<|>|=)(.*)$")
@@ -66,8 +71,6 @@ class Budget:
 
 def column_unit(name: str) -> tuple[str, bool]:
     """(unit, scale letters allowed) of a numeric front.csv column, from its name."""
-    if name.startswith("margin_"):
-        return "", True
     for suffix, unit, scaled in _SUFFIX_UNITS:
         if name.endswith(suffix):
             return unit, scaled
@@ -132,9 +135,7 @@ def parse_budget(text: str, table: pd.DataFrame, where: str = "--where") -> Budg
         return Budget(text, name, op, raw)
     unit, scaled = column_unit(name)
     try:
-        if name.startswith("margin_") and raw.endswith("%"):
-            value = parse_quantity(raw[:-1].strip(), "") / 100.0
-        elif scaled:
+        if scaled:
             value = parse_quantity(raw, unit)
         else:
             plain = raw[:-len(unit)].strip() if unit and raw.endswith(unit) else raw
@@ -157,10 +158,12 @@ def apply_budgets(table: pd.DataFrame, budgets: list[Budget]) -> tuple[pd.DataFr
     return table, trace
 
 
-def knee_distance(F: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def knee_distance(F: np.ndarray, box: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Distances of each design to the ideal point of the front's own objective box.
 
-    Each objective (as minimised, shape (n, m)) is scaled to [0, 1] over the designs given:
+    Each objective (as minimised, shape (n, m)) is scaled to [0, 1] over the designs given
+    (or over the designs `box`, shape (p, m), when given: pick and the report pass every
+    design of front.csv, so a filtered subset is measured in the same box):
     0 is the best value any of them reaches, 1 the worst; an objective on which they all
     agree scales to 0. The knee is the design with the smallest Chebyshev (largest-
     coordinate) distance to the ideal point (0, ..., 0): equivalently, the design whose
@@ -192,20 +195,23 @@ def knee_distance(F: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     F = np.asarray(F, dtype=float)
     if F.size == 0:
         return np.zeros(len(F)), np.zeros(len(F))
-    lo, hi = F.min(axis=0), F.max(axis=0)
+    B = F if box is None or len(box) == 0 else np.asarray(box, dtype=float)
+    lo, hi = B.min(axis=0), B.max(axis=0)
     span = np.where(hi > lo, hi - lo, 1.0)
     Fn = (F - lo) / span
     return Fn.max(axis=1), np.sqrt((Fn ** 2).sum(axis=1))
 
 
-def rank(table: pd.DataFrame, objectives: dict, by: str) -> pd.DataFrame:
+def rank(table: pd.DataFrame, objectives: dict, by: str, box: pd.DataFrame | None = None) -> pd.DataFrame:
     """The rows, best first, with a `knee_distance` column (Chebyshev distance, see `knee_distance`).
 
     `by` is "knee" or an objective name; objectives are ranked in their sense (supply
-    sensitivity in magnitude), ties broken by the knee distances, then by id.
+    sensitivity in magnitude), ties broken by the knee distances, then by id. `box`: the
+    rows whose objective ranges span the knee's box (default `table`; pick passes the
+    whole front.csv).
     """
     F = minimised(table, objectives)
-    cheb, eucl = knee_distance(F)
+    cheb, eucl = knee_distance(F, None if box is None else minimised(box, objectives))
     ids = table["id"].astype(str).to_numpy()
     if by == "knee":
         order = np.lexsort((ids, eucl, cheb))
@@ -214,74 +220,6 @@ def rank(table: pd.DataFrame, objectives: dict, by: str) -> pd.DataFrame:
     out = table.iloc[order].copy()
     out["knee_distance"] = cheb[order]
     return out.reset_index(drop=True)
-
-
-def _roles(table: pd.DataFrame) -> list[str]:
-    """Device roles with a value in at least one row, in front.csv order."""
-    return [c[:-len("_w_um")] for c in table.columns if c.endswith("_w_um") and table[c].notna().any()]
-
-
-def _objective_scale(name: str, values: np.ndarray) -> tuple[str, float]:
-    """(unit label, factor) for one objective column: one engineering prefix for the whole column."""
-    unit = OBJECTIVES[name][0]
-    if unit not in ("W", "V", "A"):
-        return unit, 1.0
-    v = np.abs(values[np.isfinite(values)])
-    top = float(v.max()) if v.size and v.max() > 0 else 1.0
-    exp3 = min(max(3 * int(np.floor(np.log10(top) / 3)), -12), 0)
-    return {-12: "p", -9: "n", -6: "u", -3: "m", 0: ""}[exp3] + unit, 10.0 ** -exp3
-
-
-def hand_off(rows: pd.DataFrame, objectives: dict, fmt: str) -> str:
-    """The hand-off table of ranked rows as Markdown ("md") or CSV ("csv").
-
-    Columns: rank, id, architecture, overall front, W and L per role in um (a bulk tied to
-    its source is marked; CSV gives a bulk column for such roles), bias currents in uA,
-    resistors in kohm, Iq in uA, every objective in one unit per column, the knee
-    distance, and every constraint margin in percent. Roles no shown row has are left out.
-    """
-    roles = _roles(rows)
-    bulk_shown = {r for r in roles if f"{r}_bulk" in rows.columns and (rows[f"{r}_bulk"] == "source").any()}
-    bias_a = [c for c in rows.columns if c.endswith("_a") and c not in ("iq_a", "iq_min_a", "iq_max_a")
-              and not c.startswith(("iout_",)) and rows[c].notna().any()]
-    bias_ohm = [c for c in rows.columns if c.endswith("_ohm") and rows[c].notna().any()]
-    margins = [c for c in rows.columns if c.startswith("margin_")]
-    scales = {n: _objective_scale(n, rows[n].to_numpy(dtype=float)) for n in objectives}
-    md = fmt == "md"
-
-    def g(v, digits=4):
-        return "" if not np.isfinite(v) else f"{v:.{digits}g}"
-
-    header = ["rank", "id", "architecture", "overall front"]
-    for r in roles:
-        header += [f"{r} W/L [um]"] if md else [f"{r} W [um]", f"{r} L [um]"] + (
-            [f"{r} bulk"] if r in bulk_shown else [])
-    header += [f"{c[:-2]} [uA]" for c in bias_a] + [f"{c[:-4]} [kohm]" for c in bias_ohm] + ["iq [uA]"]
-    header += [f"{n} [{scales[n][0]}]" for n in objectives] + ["knee distance"]
-    header += [f"{c} [%]" for c in margins]
-    body = []
-    for k, row in enumerate(rows.to_dict("records"), start=1):
-        cells = [k, row["id"], row["architecture"], "yes" if bool(row.get("overall_front", False)) else "no"]
-        for r in roles:
-            w, l, bulk = float(row[f"{r}_w_um"]), float(row[f"{r}_l_um"]), row.get(f"{r}_bulk")
-            if md:
-                cell = "" if not np.isfinite(w) else f"{g(w)}/{g(l)}" + (" (bulk=source)" if bulk == "source" else "")
-                cells.append(cell)
-            else:
-                cells += [g(w, 6), g(l, 6)] + ([bulk if isinstance(bulk, str) else ""] if r in bulk_shown else [])
-        digits = 4 if md else 6
-        cells += [g(float(row[c]) * 1e6, digits) for c in bias_a]
-        cells += [g(float(row[c]) * 1e-3, digits) for c in bias_ohm]
-        cells.append(g(float(row["iq_a"]) * 1e6, digits))
-        cells += [g(float(row[n]) * scales[n][1], digits) for n in objectives]
-        cells.append(f"{row['knee_distance']:.3f}")
-        cells += [f"{100 * float(row[c]):.1f}" if np.isfinite(float(row[c])) else "" for c in margins]
-        body.append(cells)
-    if md:
-        return markdown_table(header, body) + "\n"
-    buf = io.StringIO()
-    pd.DataFrame(body, columns=header).to_csv(buf, index=False)
-    return buf.getvalue()
 
 
 def _why_empty(table: pd.DataFrame, budgets: list[Budget]) -> str:
@@ -315,7 +253,7 @@ def _why_empty(table: pd.DataFrame, budgets: list[Budget]) -> str:
 
 
 def pick_designs(run, where=(), by: str = "knee", count: int = 10, fmt: str = "md", stream=None,
-                 err=None) -> int:
+                 err=None, wide: bool = False) -> int:
     """`stagefront pick`: filter, rank and print the hand-off table of a run folder.
 
     Parameters
@@ -329,7 +267,11 @@ def pick_designs(run, where=(), by: str = "knee", count: int = 10, fmt: str = "m
     count : int
         How many designs to print, >= 1.
     fmt : str
-        "md" (Markdown table and notes) or "csv" (CSV only on `stream`; notes on `err`).
+        "md" (Markdown tables and notes) or "csv" (every front.csv column of the rows shown,
+        on `stream`; notes on `err`).
+    wide : bool
+        One Markdown table with every column instead of the compact tables that fit a
+        100-column terminal.
     stream, err : file-like, optional
         Table output (default stdout) and notes/explanations (default stderr).
 
@@ -359,16 +301,23 @@ def pick_designs(run, where=(), by: str = "knee", count: int = 10, fmt: str = "m
     if len(kept) == 0:
         err.write(_why_empty(r.table, budgets) + "\n")
         return 1
-    ranked = rank(kept, r.objectives, by)
+    ranked = rank(kept, r.objectives, by, box=r.table)
     shown = ranked.head(count)
-    order = "the knee (Chebyshev distance to the ideal point of the box of the designs kept)" if by == "knee" \
+    order = KNEE_WORDS if by == "knee" \
         else f"{by} ({'smallest' if r.objectives[by] == 'min' else 'largest'}"  \
              f"{' magnitude' if by == 'supply_sens_pct_per_v' else ''} first)"
     note = (f"{len(shown)} of {len(kept)} designs meeting {'; '.join(b.text for b in budgets) or 'no budget'} "
             f"(of {len(r.table)} in {r.path / 'front.csv'}), ranked by {order}.")
-    stream.write(hand_off(shown, r.objectives, fmt))
-    if fmt == "md":
-        stream.write(f"\n{note} Sizes W/L in um; margins are relative to each target (>= 0 met).\n\n{CAUTION}\n")
-    else:
+    if budgets and len(kept) < len(r.table):
+        knee = rank(r.table, r.objectives, "knee")["id"].iloc[0]
+        note += (f" The box stays that of all {len(r.table)} designs (the budgets removed "
+                 f"{len(r.table) - len(kept)}); the run's knee {knee} "
+                 + ("meets the budgets." if knee in set(kept["id"]) else "does not meet the budgets."))
+    if fmt == "csv":
+        stream.write(handoff.wide(shown, r.objectives, "csv"))
         err.write(note + "\n")
+        return 0
+    stream.write(handoff.wide(shown, r.objectives) if wide else handoff.compact(shown, r.objectives))
+    note += " Margins: worst over PVT in % of each limit (>= 0 met), as in front.csv."
+    stream.write(f"\n{textwrap.fill(note, handoff.WIDTH)}\n\n{textwrap.fill(CAUTION, handoff.WIDTH)}\n")
     return 0

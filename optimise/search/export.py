@@ -3,9 +3,14 @@
 front.csv columns: id, architecture, overall_front (not dominated by any other
 architecture's row either), every variable (`ROLE_w_um`, `ROLE_l_um`, `ROLE_bulk`,
 `BIAS_a` or `BIAS_ohm`; empty where an architecture has no such role), every summary
-metric under its contract name, and every constraint margin (`margin_NAME`, relative,
->= 0 when met). Values are raw floats, written with full precision so the file
-round-trips and `stagefront evaluate` on a row's design reproduces its metrics.
+metric under its contract name, and every constraint margin (`margin_NAME_pct`: the
+worst margin over PVT in percent of its limit, >= 0 when met).
+
+Numbers are clean: W and L as the drawing grid gives them (micrometres, rounded to the
+picometre, so 21.08 and never 21.080000000000002), bias values to 6 significant digits,
+and the rows are evaluated with exactly these values, so `stagefront evaluate` on a
+row's design (`stagefront export-design`) reproduces its metrics. Metrics are written in
+their shortest exact (round-trip) form.
 """
 from __future__ import annotations
 
@@ -29,7 +34,28 @@ PREFIX = {"floating-loop": "fl", "fixed-bias": "fb", "follower": "fo"}
 UNIT_SUFFIX = {"A": "a", "ohm": "ohm"}
 METRICS = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "headroom_high_v", "headroom_low_v", "swing_v",
            "iout_source_a", "iout_sink_a", "ab_ratio", "area_um2", "iq_sigma_pct", "supply_sens_pct_per_v",
-           "vdd_min_v", "fp2_hz", "c_drive_f")
+           "vdd_min_v", "fp2_hz", "c_drive_f", "power_max_w", "iout_peak_a", "delivers_load")
+# Significant digits of a bias value in front.csv (far below any model's accuracy).
+BIAS_DIGITS = 6
+
+
+def margin_column(name: str) -> str:
+    """front.csv column of a constraint's margin, in percent of its limit."""
+    return f"margin_{name}_pct"
+
+
+def clean_design(design: Design) -> Design:
+    """The design with sizes rounded to the picometre (the grid's own decimals in um)
+    and bias values to BIAS_DIGITS significant digits, converted the way a design file
+    or a front.csv row is read back (micrometres x 1e-6), so evaluating it reproduces
+    what front.csv says."""
+    def um(x):
+        return np.round(np.asarray(x, dtype=float) * 1e6, 6) * 1e-6
+
+    bias = {k: np.array([float(f"{v:.{BIAS_DIGITS}g}") for v in np.asarray(b, dtype=float)])
+            for k, b in design.bias.items()}
+    return Design(design.architecture, {k: um(v) for k, v in design.w.items()},
+                  {k: um(v) for k, v in design.l.items()}, bias, design.tied)
 
 
 def variable_columns(archs) -> list[str]:
@@ -55,8 +81,8 @@ def design_rows(design: Design) -> list[dict]:
     for i in range(design.size):
         row = {}
         for role in stage.ROLES:
-            row[f"{role}_w_um"] = float(design.w[role][i]) * 1e6
-            row[f"{role}_l_um"] = float(design.l[role][i]) * 1e6
+            row[f"{role}_w_um"] = round(float(design.w[role][i]) * 1e6, 6)
+            row[f"{role}_l_um"] = round(float(design.l[role][i]) * 1e6, 6)
             row[f"{role}_bulk"] = "source" if role in design.tied else "rail"
         for name, unit in stage.BIAS.items():
             row[f"{name}_{UNIT_SUFFIX[unit]}"] = float(design.bias[name][i])
@@ -86,7 +112,7 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
         X = run.X[run.feasible] if run.X is not None and len(run.X) else np.empty((0, len(space.free)))
         if len(X) == 0:
             continue
-        design = space.decode(X)
+        design = clean_design(space.decode(X))
         rows = design_rows(design)
         # Grid snapping can merge distinct X into one design: keep the first of each.
         seen, keep = set(), []
@@ -110,12 +136,12 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
             df[name] = res.summary[name]
         for name in cnames:
             if name != "converged":  # every row converged at every PVT point, or it would not be feasible
-                df[f"margin_{name}"] = res.margins[name]
+                df[margin_column(name)] = 100.0 * np.asarray(res.margins[name], dtype=float)
         df["_F"] = list(objective_values(res, settings.objectives))
         frames.append(df)
     if not frames:  # nothing feasible: keep the full header so the file still documents its columns
         cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) + list(METRICS)
-        cols += [f"margin_{n}" for n in cnames if n != "converged"]
+        cols += [margin_column(n) for n in cnames if n != "converged"]
         return pd.DataFrame(columns=cols), results
     table = pd.concat(frames, ignore_index=True)
     F_all = np.stack(table.pop("_F").to_list())
@@ -127,7 +153,8 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
 
 
 def write_front(path: Path, table: pd.DataFrame) -> None:
-    """front.csv, atomically; floats in their shortest exact (round-trip) form."""
+    """front.csv, atomically; floats in their shortest exact (round-trip) form (the
+    variables are clean numbers already: see `clean_design`)."""
     buf = io.StringIO()
     table.to_csv(buf, index=False)
     write_text(path, buf.getvalue())
@@ -201,4 +228,5 @@ def closest_design_report(study: Study, settings, run: ArchRun) -> dict:
     share = {n: float(np.mean(run.G[:, k] > 0)) for k, n in enumerate(names)}
     worst = names[int(np.argmax(run.G[best]))]
     return {"closest_violations": res.violations[0], "blocking_constraint": worst,
-            "closest_margin": float(-run.G[best].max()), "share_of_final_set_violating": share}
+            "closest_margin": float(-run.G[best].max()), "closest_margin_pct": float(-100.0 * run.G[best].max()),
+            "share_of_final_set_violating": share}

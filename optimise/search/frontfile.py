@@ -10,7 +10,7 @@ A run folder is handed from one designer to another and may have been edited by 
   present and filled: sizes (``ROLE_w_um``, ``ROLE_l_um``) finite and within SIZE_UM
   micrometres, currents (``NAME_a``) within CURRENT_A amperes, resistances (``NAME_ohm``)
   within RESISTANCE_OHM ohms, ``ROLE_bulk`` ``rail`` or ``source``;
-- ``overall_front``: true or false;
+- ``overall_front`` and ``delivers_load``: true or false;
 - every other column (metrics, constraint margins, whatever their names) a finite number or
   empty; the metrics in NON_NEGATIVE not below zero.
 
@@ -42,8 +42,9 @@ SIZE_UM = (1e-3, 1e5)
 CURRENT_A = (0.0, 1.0)
 RESISTANCE_OHM = (0.0, 1e12)
 # Metrics that cannot be negative whatever the design.
-NON_NEGATIVE = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "area_um2", "iq_sigma_pct", "c_drive_f")
+NON_NEGATIVE = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "power_max_w", "area_um2", "iq_sigma_pct", "c_drive_f")
 TEXT_COLUMNS = ("id", "architecture")
+BOOL_COLUMNS = ("overall_front", "delivers_load")
 _NUMBER = re.compile(r"\s*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?\s*")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f\x85\u2028\u2029]")
 _UNIT = {"A": "_a", "ohm": "_ohm"}
@@ -71,7 +72,7 @@ def check_front(header: list, rows: list, where: str) -> pd.DataFrame:
     """The checked table of front.csv cells (`header`, rows of (line number, cells)).
 
     Returns the table as the rest of stagefront uses it: numbers as floats (NaN where a cell
-    is empty), ``overall_front`` as booleans, text columns as strings, bulk columns as
+    is empty), BOOL_COLUMNS as booleans, text columns as strings, bulk columns as
     ``rail``/``source`` or NaN.
     """
     def fail(line, rid, col, what, allowed="", hint=""):
@@ -114,7 +115,7 @@ def check_front(header: list, rows: list, where: str) -> pd.DataFrame:
             text = cell[col].strip()
             if col in TEXT_COLUMNS:
                 data[col].append(cell[col])
-            elif col == "overall_front":
+            elif col in BOOL_COLUMNS:
                 if text.lower() not in _TRUE + _FALSE:
                     fail(line, rid, col, f"{show(cell[col])} is not true or false", "True or False")
                 data[col].append(text.lower() in _TRUE)
@@ -130,7 +131,7 @@ def check_front(header: list, rows: list, where: str) -> pd.DataFrame:
     for col in names:
         if col in TEXT_COLUMNS or _bulk_column(col):
             table[col] = table[col].astype(object)
-        elif col == "overall_front":
+        elif col in BOOL_COLUMNS:
             table[col] = table[col].astype(bool)
         else:
             table[col] = table[col].astype(float)

@@ -11,12 +11,15 @@ import numpy as np
 import pandas as pd
 
 LABELS = {
-    "power_w": ("power", "uW", 1e6),
+    "power_w": ("power", "µW", 1e6),
     "swing_v": ("swing", "V", 1.0),
-    "area_um2": ("area", "um^2", 1.0),
+    "area_um2": ("area", "µm²", 1.0),
     "iq_sigma_pct": ("Iq sigma (mismatch)", "%", 1.0),
-    "supply_sens_pct_per_v": ("Iq supply sensitivity", "%/V", 1.0),
+    "supply_sens_pct_per_v": ("|Iq supply sensitivity|", "%/V", 1.0),
 }
+# The sense each objective is usually searched in (a run's own objectives say it exactly).
+SENSE = {"power_w": "min", "swing_v": "max", "area_um2": "min", "iq_sigma_pct": "min", "supply_sens_pct_per_v": "min"}
+HIGHLIGHT = ("#d1495b", "#1d3557", "#2a9d8f", "#e9a03b", "#6a4c93", "#3a3a3a", "#8ab17d", "#b56576")
 STYLE = {"floating-loop": ("o", "tab:blue"), "fixed-bias": ("s", "tab:orange"), "follower": ("^", "tab:green")}
 
 
@@ -35,9 +38,18 @@ def plain(text) -> str:
     return str(text).replace("$", r"\$")
 
 
-def label(name: str) -> str:
+def label(name: str, sense: str | None = None) -> str:
+    """Axis label with its unit and, given the sense ("min"/"max"), which way is better."""
     text, unit, _ = LABELS.get(name, (name, "", 1.0))
-    return f"{text} [{unit}]" if unit else text
+    out = f"{text} [{unit}]" if unit else text
+    if sense:
+        out += "  (lower is better)" if sense == "min" else "  (higher is better)"
+    return out
+
+
+def _senses(objectives) -> dict:
+    """name -> "min"/"max" from a run's objectives dict, or the usual sense of each name."""
+    return {n: (objectives[n] if isinstance(objectives, dict) else SENSE.get(n, "min")) for n in objectives}
 
 
 def scaled(table: pd.DataFrame, name: str) -> np.ndarray:
@@ -71,6 +83,7 @@ def objective_matrix(table: pd.DataFrame, objectives, title: str = "", group: st
     plt = _plt()
     style = STYLE if style is None else style
     names = list(objectives)
+    sense = _senses(objectives)
     m = max(len(names), 2)
     fig, axes = plt.subplots(m - 1, m - 1, figsize=(3.2 * (m - 1) + 1, 3.0 * (m - 1) + 0.6), squeeze=False)
     for r in range(1, m):
@@ -84,9 +97,9 @@ def objective_matrix(table: pd.DataFrame, objectives, title: str = "", group: st
                 ax.scatter(scaled(sub, names[c]), scaled(sub, names[r]), s=14, marker=marker, color=colour,
                            label=plain(lab), alpha=0.8)
             if r == m - 1:
-                ax.set_xlabel(label(names[c]))
+                ax.set_xlabel(label(names[c], sense[names[c]]), fontsize=8)
             if c == 0:
-                ax.set_ylabel(label(names[r]))
+                ax.set_ylabel(label(names[r], sense[names[r]]), fontsize=8)
             ax.grid(alpha=0.3)
     handles, labels = [], []
     for ax in axes.ravel():
@@ -120,31 +133,71 @@ def hypervolume_curve(hv: dict, ax=None):
     return ax
 
 
-def parallel_coordinates(table: pd.DataFrame, objectives, ax=None):
-    """Each front design as a line across the objectives, each axis scaled to its range."""
+def parallel_coordinates(table: pd.DataFrame, objectives, ax=None, highlight: dict | None = None):
+    """Each front design as a line across the objectives, each axis scaled to the front's
+    range and turned so that up is better on every axis (the best value at the top).
+
+    Lines are thin and translucent (the more designs, the fainter), one colour per
+    architecture; `highlight` (row id -> label, e.g. {"fl-012": "knee"}) draws those
+    designs bold on top, labelled in the legend. Tick labels give each axis's best and
+    worst value in its unit.
+    """
     plt = _plt()
     names = list(objectives)
+    sense = _senses(objectives)
     if ax is None:
-        _, ax = plt.subplots(figsize=(1.9 * len(names) + 2, 4.2))
+        _, ax = plt.subplots(figsize=(2.1 * len(names) + 2.5, 4.6))
     data = np.stack([scaled(table, n) for n in names], axis=1) if len(table) else np.empty((0, len(names)))
     lo = data.min(axis=0) if len(data) else np.zeros(len(names))
     hi = data.max(axis=0) if len(data) else np.ones(len(names))
     span = np.where(hi > lo, hi - lo, 1.0)
+    up = np.array([1.0 if sense[n] == "max" else -1.0 for n in names])
+    pos = np.where(up > 0, (data - lo) / span, (hi - data) / span) if len(data) else data
+    alpha = float(np.clip(12.0 / max(len(table), 1), 0.06, 0.6))
     seen = set()
-    for arch, row in zip(table["architecture"], data):
-        marker, colour = STYLE.get(arch, ("x", "black"))
-        ax.plot(range(len(names)), (row - lo) / span, color=colour, alpha=0.5, lw=1,
+    for arch, row in zip(table["architecture"], pos):
+        _, colour = STYLE.get(arch, ("x", "black"))
+        ax.plot(range(len(names)), row, color=colour, alpha=alpha, lw=0.8,
                 label=None if arch in seen else plain(arch))
         seen.add(arch)
+    ids = list(table["id"]) if "id" in table else []
+    for k, (rid, text) in enumerate((highlight or {}).items()):
+        if rid in ids:
+            row = pos[ids.index(rid)]
+            ax.plot(range(len(names)), row, color=HIGHLIGHT[k % len(HIGHLIGHT)], lw=2.4, alpha=0.95, zorder=5,
+                    marker="o", ms=4, label=plain(f"{rid}: {text}"))
+    best = np.where(up > 0, hi, lo)
+    worst = np.where(up > 0, lo, hi)
     ax.set_xticks(range(len(names)))
-    ax.set_xticklabels([f"{label(n)}\n{lo[k]:.3g} .. {hi[k]:.3g}" for k, n in enumerate(names)], fontsize=8)
-    ax.set_ylabel("position within the front's range")
+    ax.set_xticklabels([f"{label(n)}\nbest {best[k]:.3g}\nworst {worst[k]:.3g}" for k, n in enumerate(names)],
+                       fontsize=8)
+    ax.set_yticks([0.0, 1.0])
+    ax.set_yticklabels(["worst", "best"])
+    ax.set_ylabel("within the front's range (up is better)")
     ax.set_ylim(-0.05, 1.05)
-    ax.set_title("Front designs across the objectives")
+    ax.annotate("", xy=(-0.32, 1.0), xytext=(-0.32, 0.0), xycoords=("data", "data"),
+                arrowprops=dict(arrowstyle="->", color="#555555", lw=1.2), annotation_clip=False)
+    ax.set_title(f"Front designs across the objectives ({len(table)} designs)")
     ax.grid(alpha=0.3, axis="x")
     if seen:
-        ax.legend(title="architecture", fontsize=8)
+        leg = ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
+        for line in leg.get_lines():
+            line.set_alpha(1.0)
+    ax.figure.tight_layout()
     return ax
+
+
+def best_per_objective(table: pd.DataFrame, objectives) -> dict:
+    """row id -> "best NAME" of the design that is best in each objective (one label per
+    design; ties to the first row), for `parallel_coordinates`' highlight."""
+    out: dict = {}
+    for name, s in _senses(objectives).items():
+        if not len(table):
+            break
+        v = scaled(table, name)
+        rid = table["id"].iloc[int(np.argmax(v) if s == "max" else np.argmin(v))]
+        out[rid] = (out[rid] + ", " if rid in out else "best ") + LABELS.get(name, (name,))[0]
+    return out
 
 
 def png_bytes(fig_or_ax, dpi: int = 110) -> bytes:

@@ -34,6 +34,10 @@ def constraint_names(study: Study) -> tuple[str, ...]:
         names.append("area")
     if checked(t.mirrors):  # a bias source's mirror keeps its compliance voltage at rest
         names.append("mirror_compliance")
+    if np.isfinite(t.power_max):
+        names.append("power")
+    if np.isfinite(t.iout_peak_max):
+        names.append("iout_peak")
     return tuple(names)
 
 
@@ -44,7 +48,10 @@ def objective_values(res: Result, objectives: dict) -> np.ndarray:
         v = np.asarray(res.summary[name], dtype=float)
         if name == "supply_sens_pct_per_v":
             v = np.abs(v)
-        cols.append(-v if sense == "max" else v)
+        v = -v if sense == "max" else v
+        # nan only where a design cannot deliver the load (no swing exists): such a design
+        # is infeasible, and the worst objective value keeps it behind every other.
+        cols.append(np.where(np.isnan(v), 1e30, v))
     return np.stack(cols, axis=1)
 
 

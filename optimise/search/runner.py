@@ -85,7 +85,8 @@ def _plots(out: Path, table, objectives, hv) -> None:
 
     for name, make in (("objectives.png", lambda: plots.objective_matrix(table, objectives)),
                        ("hypervolume.png", lambda: plots.hypervolume_curve(hv)),
-                       ("parallel.png", lambda: plots.parallel_coordinates(table, objectives))):
+                       ("parallel.png", lambda: plots.parallel_coordinates(
+                           table, objectives, highlight=plots.best_per_objective(table, objectives)))):
         write_bytes(out / name, plots.png_bytes(make()))
 
 
@@ -163,7 +164,7 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
         if r.architecture in blocked:
             b = blocked[r.architecture]
             p(f"  no feasible design: '{b['blocking_constraint']}' blocks the closest design "
-              f"(worst margin {b['closest_margin']:.3g}):")
+              f"(worst margin {100 * b['closest_margin']:.3g} % of its limit):")
             for v in b["closest_violations"][:4]:
                 p(f"    - {v}")
     for line in warnings:

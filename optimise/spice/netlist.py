@@ -69,7 +69,7 @@ from models.devices.tech import Corner, CornerShift, Polarity, Tech
 from models.evaluate import Design
 from models.stages import get_stage
 
-from . import mirrornet, ngspice
+from . import diffusion, mirrornet, ngspice
 from .ngspice import NgspiceError, number
 
 OPTIONS = "reltol=1e-7 abstol=1e-15 vntol=1e-9"
@@ -323,7 +323,7 @@ def rest_testbench(stage, design: Design, i: int, tech: Tech, vdd: float, corner
         f".options tnom={number(t_c)} {OPTIONS}",
         f".temp {number(t_c)}",
         model_cards(mod, design, i, tech, corner, temp, mirrors=mirrors),
-        stage_subcircuit(mod, design, i, tech, mirrors=mirrors),
+        diffusion.add_geometry(stage_subcircuit(mod, design, i, tech, mirrors=mirrors), mod, tech, device_name),
         f"V_DD vdd 0 dc {number(vdd)}",
         f"V_MID mid 0 dc {number(half)}",
         f"{INSTANCE} {' '.join('0' if p == GROUND_PORT else p for p in ports)} {subcircuit_name(mod)}",

@@ -57,6 +57,7 @@ from ..files.errors import InputError
 from ..files.inputs import MAX_CARD_BYTES, read_input_text
 from .cards import check_card_path, check_model_name, comment_safe, scan_card
 from . import netlist, ngspice
+from .diffusion import add_geometry
 from .netlist import common_source, gate_nodes, stage_module
 from .ngspice import number, vector
 
@@ -187,11 +188,12 @@ def design_models(stage, design: Design, i: int, tech: Tech, models: ModelSource
     if models.level1:
         # Level-1 cards named after the subcircuit, ``<name>_<role>``, at this corner and temperature.
         return (netlist.model_cards(mod, design, i, tech, corner, temp, name, mirrors),
-                netlist.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod),
-                                         mirrors=mirrors))
+                add_geometry(netlist.stage_subcircuit(mod, design, i, tech, name=name, extra_ports=gate_nodes(mod),
+                                                      mirrors=mirrors), mod, tech, netlist.device_name))
     names = {s.role: (models.nmos if s.polarity == Polarity.N else models.pmos) for s in mod.TOPOLOGY.devices}
-    return "", netlist.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name, extra_ports=gate_nodes(mod),
-                                        mirrors=mirrors)
+    return "", add_geometry(netlist.stage_subcircuit(mod, design, i, names, grid=tech.grid, name=name,
+                                                     extra_ports=gate_nodes(mod), mirrors=mirrors), mod, tech,
+                            netlist.device_name)
 
 
 def header(title: str, models: ModelSource, corner: Corner, temp: float) -> list[str]:

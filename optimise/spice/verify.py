@@ -19,6 +19,8 @@ in note.
 """
 from __future__ import annotations
 
+import json
+
 import csv
 import io
 import sys
@@ -253,12 +255,15 @@ def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, strea
                          f"none of the study's corners ({', '.join(c.value for c in cond.corners)}) is available "
                          f"from {models.describe()}",
                          hint="a plain card supports tt only; a .lib file supports the corners it has sections for")
+    caveat = ""
     if not models_path and study.tech.model is not ModelKind.SQUARE_LAW:
         # Level-1 cards run the square law, not the EKV equations the study solves: the
         # comparison then measures the difference between the two device models.
-        log(f"note: {study.tech.name} is an {study.tech.model.value} technology and no --models was given; the "
-            "level-1 cards made from it run the square law, so the errors below compare two device models. "
-            "Give the card the technology was calibrated to (--models) to check the design.")
+        caveat = (f"note: {study.tech.name} is an {study.tech.model.value} technology and no --models was given; "
+                  "the level-1 cards made from it run the square law, so these errors compare two device models "
+                  "(EKV against level 1), not the tool against a simulator. Give the card the technology was "
+                  "calibrated to (--models) to check the design.")
+        log(caveat)
     log(f"verifying {len(ids)} designs at {len(corners)} corners x {len(cond.temps)} temperatures x "
         f"{len(cond.supplies)} supplies with {models.describe()}"
         + (f"; corners not in the model file, skipped: {', '.join(skipped)}" if skipped else ""))
@@ -275,7 +280,13 @@ def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, strea
                     f"in {time.perf_counter() - t1:.2f} s")
                 records += _records(pop, corner, temp, sim)
     write_text(folder / "verify.csv", _csv(records))
+    # What the report needs to word the figures: which models ngspice ran.
+    write_text(folder / "verify.json", json.dumps({"models": str(models_path) if models_path else None,
+                                                   "simulated_with": models.describe(), "caveat": caveat}, indent=1)
+               + "\n")
     _summary(records, pops, stream, time.perf_counter() - t0)
+    if caveat:
+        print(caveat, file=stream)
     print(f"table: {folder / 'verify.csv'}", file=stream)
     print(CAUTION, file=stream)
     return 0 if any(r["simulator"] is not None for r in records) else 1
@@ -299,8 +310,11 @@ def _records(pop: Population, corner: Corner, temp: float, sim: dict) -> list[di
                        "error_unit": "V" if metric in ABSOLUTE else "rel", "note": ""}
                 if got is not None:
                     rec["simulator"] = float(got[metric])
-                    rec["error"] = _error(metric, model, rec["simulator"])
-                    rec["note"] = got["note"]
+                    rec["error"] = _error(metric, model, rec["simulator"]) if np.isfinite(model) else None
+                    rec["note"] = got["note"] if np.isfinite(model) else \
+                        "the model's stage cannot deliver the peak load here: no headroom to compare"
+                    if not np.isfinite(model):
+                        rec["model"] = None
                 else:
                     rec["note"] = f"ngspice failed: {fail}" if fail else "not simulated"
                 out.append(rec)

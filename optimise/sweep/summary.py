@@ -75,7 +75,9 @@ def overlay_figure(c, cells: list[str]):
     from ..review.compare import group_table
     from ..search import plots
 
-    palette = matplotlib.colormaps["tab20"].colors
+    # ten well-separated hues first (tab10), then the light shades of tab20: neighbouring
+    # cells never get two shades of one hue
+    palette = list(matplotlib.colormaps["tab10"].colors) + list(matplotlib.colormaps["tab20"].colors[1::2])
     colour = {name: palette[k % len(palette)] for k, name in enumerate(cells)}
     style = {g.label: (plots.STYLE.get(g.architecture, ("x", "black"))[0], colour.get(g.run, "black"))
              for g in c.groups}
