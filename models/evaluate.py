@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .amplifier.inside import analyse as _amplifier
+from .amplifier.smallsignal import common_source
 from .devices import mismatch as _mm
 from .devices.mos import gate_capacitance, inversion_coefficient
 from .devices.tech import Corner, Tech
@@ -52,15 +54,14 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         sigma_pct = np.where(iq > 0, 100.0 * np.sqrt(var) / iq, 0.0)
 
     gm = stage.gm_output(op)
-    fp2 = gm / (2.0 * np.pi * targets.c_load)
 
     reqs = stage.requirements(devs, bias, vdd, nodes, op, targets.vcomp)
     req = np.stack([rq for _, rq in reqs])
     vdd_min = np.max(req, axis=0)
     vdd_min_what = np.argmax(req, axis=0)
 
-    hh, i_src, ab_src, lim_src, ok_src = driven_point(stage, devs, bias, vdd, nodes, +1, targets, iq)
-    hl, i_snk, ab_snk, lim_snk, ok_snk = driven_point(stage, devs, bias, vdd, nodes, -1, targets, iq)
+    hh, i_src, ab_src, lim_src, ok_src, g_src = driven_point(stage, devs, bias, vdd, nodes, +1, targets, iq, True)
+    hl, i_snk, ab_snk, lim_snk, ok_snk, g_snk = driven_point(stage, devs, bias, vdd, nodes, -1, targets, iq, True)
 
     c_drive = np.zeros_like(vdd)
     for role in (stage.PULL_DOWN, stage.PULL_UP):
@@ -68,11 +69,27 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         mt = tech.mos(stage.TOPOLOGY.spec(role).polarity)
         c_drive += gate_capacitance(mt, dev.w, dev.l, inversion_coefficient(dev.mos, dev.w, dev.l, iq))
 
+    amp = targets.amplifier
+    if amp is None:
+        # No amplifier described: the output pole of a common-source pair with the
+        # pole-splitting limit Cc >> C1, C2, gm2 / (C1 + C2) (Gray, Hurst, Lewis, Meyer,
+        # 5th ed., sec. 9.4), C1 the output gates, C2 the load; the followers' output pole
+        # stays gm / C_load (their gate capacitance is bootstrapped by the output).
+        c_out = targets.c_load + (c_drive if common_source(stage) else 0.0)
+        fp2 = gm / (2.0 * np.pi * c_out)
+        extra = {}
+    else:
+        topo = stage.TOPOLOGY
+        gate_n, gate_p = topo.spec(stage.PULL_DOWN).g, topo.spec(stage.PULL_UP).g
+        limits = [{gate_n: g[0], gate_p: g[1]} for g in (g_src, g_snk)]
+        extra = _amplifier(stage, devs, bias, tech, op, nodes, vdd, targets.c_load, amp, targets.drive,
+                           (i_src, i_snk), limits)
+        fp2 = extra.pop("fp2_hz")
     res = {
         "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,
         "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": np.minimum(ab_src, ab_snk),
         "iq_sigma_pct": sigma_pct, "vdd_min_v": vdd_min, "fp2_hz": fp2, "c_drive_f": c_drive,
-        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what,
+        "limit_source": lim_src, "limit_sink": lim_snk, "vdd_min_what": vdd_min_what, **extra,
     }
     return res, ok & ok_src & ok_snk, tuple(name for name, _ in reqs)
 

@@ -54,8 +54,10 @@ def _output_device(stage, devs, role, gate, vdd, v):
     return i, gd if spec.d == "out" else gs
 
 
-def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
-    """Headroom, peak current and idle-device ratio on one side. Shapes (m,)."""
+def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq, gates=False):
+    """Headroom, peak current and idle-device ratio on one side, the drive limit and the
+    convergence flags; with `gates`, also the output gate voltages at the drive limit
+    (gate of the pull-down, gate of the pull-up). Shapes (m,)."""
     gn, gp, limit, ok = stage.driven(devs, bias, vdd, nodes, direction, targets.drive, targets.vcomp)
     out = 0.5 * vdd
     i_up, i_dn, _ = stage.output(devs, gn, gp, vdd, out)
@@ -90,6 +92,8 @@ def driven_point(stage, devs, bias, vdd, nodes, direction, targets, iq):
     idle, _ = _output_device(stage, devs, idle_role, gate_idle, vdd, v_at)
     with np.errstate(divide="ignore", invalid="ignore"):
         ab = np.where(iq > 0, idle / iq, 0.0)
+    if gates:
+        return headroom, peak, ab, limit, ok & (ok_v | ~can), (gn, gp)
     return headroom, peak, ab, limit, ok & (ok_v | ~can)
 
 

@@ -10,8 +10,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .amplifier.inside import METRICS as AMPLIFIER_METRICS
+from .amplifier.spec import Amplifier
 from .devices.tech import Corner, check_range
 from .stages import get_stage
+
+__all__ = ["AMPLIFIER_METRICS", "Amplifier", "Conditions", "Design", "LIMIT_NAMES", "PVT_METRICS", "Result",
+           "Targets"]
 
 PVT_METRICS = (
     "iq_a", "headroom_high_v", "headroom_low_v", "swing_v", "iout_source_a", "iout_sink_a",
@@ -138,6 +143,10 @@ class Targets:
     area_max: float = np.inf  # m^2
     fp2_min: float = 0.0  # Hz
     layout_factor: float = 1.0  # 1  area multiplier for routing and spacing
+    amplifier: Amplifier | None = None  # the amplifier the stage sits in; None: none described
+    phase_margin_min: float = 0.0  # deg  lowest phase margin of the loop gain (needs the amplifier)
+    slew_min: float = 0.0  # V/s   lowest output slew rate (needs the amplifier)
+    gate_time_max: float = np.inf  # s  longest time to move the gates to the drive limit (needs the amplifier)
 
     def __post_init__(self) -> None:
         check_range("i_load", self.i_load, 1e-9, 10.0, "A")
@@ -146,6 +155,13 @@ class Targets:
         if self.drive not in ("both", "p", "n"):
             raise ValueError(f"drive = {self.drive!r} is not one of both, p, n")
         check_range("layout_factor", self.layout_factor, 1.0, 10.0, "")
+        if self.amplifier is None:
+            for name, off in (("phase_margin_min", 0.0), ("slew_min", 0.0), ("gate_time_max", np.inf)):
+                if getattr(self, name) != off:
+                    raise ValueError(f"{name} needs an amplifier description (the stage's surrounding amplifier)")
+        check_range("phase_margin_min", self.phase_margin_min, 0.0, 180.0, "deg")
+        check_range("slew_min", self.slew_min, 0.0, 1e12, "V/s")
+        check_range("gate_time_max", self.gate_time_max, 0.0, np.inf, "s")
         if self.iq_min > self.iq_max:
             raise ValueError(f"iq window is inverted: min {self.iq_min} A > max {self.iq_max} A")
 

@@ -39,7 +39,7 @@ def summarise(pvt, design, stage, cond, corner, temp, vdd, targets):
     bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
     area = sum(np.asarray(design.w[r]) * np.asarray(design.l[r]) for r in stage.ROLES) * targets.layout_factor
     sens = pvt["supply_sens_pct_per_v"]
-    return {
+    out = {
         "iq_a": pvt["iq_a"][:, j],
         "iq_min_a": pvt["iq_a"].min(axis=1),
         "iq_max_a": pvt["iq_a"].max(axis=1),
@@ -57,6 +57,11 @@ def summarise(pvt, design, stage, cond, corner, temp, vdd, targets):
         "fp2_hz": pvt["fp2_hz"].min(axis=1),
         "c_drive_f": pvt["c_drive_f"].max(axis=1),
     }
+    if "phase_margin_deg" in pvt:  # an amplifier is described: the worst case over PVT
+        for name, worst in (("ugf_hz", np.min), ("phase_margin_deg", np.min), ("p1_hz", np.min), ("fint_hz", np.min),
+                            ("fz_hz", np.min), ("slew_v_per_s", np.min), ("gate_time_s", np.max)):
+            out[name] = worst(pvt[name], axis=1)
+    return out
 
 
 def where(corner, temp, vdd, j):
@@ -86,6 +91,13 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
         m["fp2"] = (pvt["fp2_hz"] - targets.fp2_min) / targets.fp2_min if targets.fp2_min > 0 \
             else np.full((n, k), inf)
         m["vdd_min"] = (vdd[None, :] - pvt["vdd_min_v"]) / vdd[None, :]
+        if targets.amplifier is not None:  # the amplifier's targets, only when one is described
+            m["phase_margin"] = (pvt["phase_margin_deg"] - targets.phase_margin_min) / targets.phase_margin_min \
+                if targets.phase_margin_min > 0 else np.full((n, k), inf)
+            m["slew"] = (pvt["slew_v_per_s"] - targets.slew_min) / targets.slew_min if targets.slew_min > 0 \
+                else np.full((n, k), inf)
+            m["gate_time"] = (targets.gate_time_max - pvt["gate_time_s"]) / targets.gate_time_max \
+                if np.isfinite(targets.gate_time_max) else np.full((n, k), inf)
     labels = {
         "iq_low": lambda i, j: f"Iq {iq[i, j]:.4g} A{' (at -%g sigma)' % targets.iq_sigmas if targets.iq_sigmas else ''}"
                                f" below the window minimum {targets.iq_min:.4g} A at {where(corner, temp, vdd, j)}",
@@ -101,6 +113,13 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
                             f"{where(corner, temp, vdd, j)}",
         "vdd_min": lambda i, j: f"at {where(corner, temp, vdd, j)}: {req_names[pvt['vdd_min_what'][i, j]]} "
                                 f"by {pvt['vdd_min_v'][i, j] - vdd[j]:.3g} V (needs {pvt['vdd_min_v'][i, j]:.3g} V)",
+        "phase_margin": lambda i, j: f"phase margin {pvt['phase_margin_deg'][i, j]:.3g} deg is below "
+                                     f"{targets.phase_margin_min:.3g} deg at {where(corner, temp, vdd, j)} "
+                                     f"(unity gain at {pvt['ugf_hz'][i, j]:.4g} Hz)",
+        "slew": lambda i, j: f"slew rate {pvt['slew_v_per_s'][i, j] * 1e-6:.4g} V/us is below "
+                             f"{targets.slew_min * 1e-6:.4g} V/us at {where(corner, temp, vdd, j)}",
+        "gate_time": lambda i, j: f"the gates need {pvt['gate_time_s'][i, j] * 1e6:.4g} us to reach the drive limit, "
+                                  f"more than {targets.gate_time_max * 1e6:.4g} us at {where(corner, temp, vdd, j)}",
     }
     margins, worst = {}, {}
     for key, arr in m.items():
