@@ -2,7 +2,10 @@
 
 A full evaluation is one design at every PVT point of the grid: rest point, Iq sigma by
 the adjoint sensitivities, both driven points (drive limit, headroom, peak current, idle
-current), supply requirements and the output pole. Default grid: 5 corners x 1 temperature
+current), supply requirements and the output pole; with the amplifier on, also the
+small-signal model inside the study's amplifier (poles, zeros, loop gain, unity-gain
+frequency, phase margin, slew, gate time). Each architecture is measured with the
+amplifier table off and on, back to back in the same run. Default grid: 5 corners x 1 temperature
 x 3 supplies = 15 PVT points, on the invented demo350 process. Population sizes are random
 around the demo designs (log-uniform factors), so the solver sees varied operating points.
 
@@ -15,6 +18,7 @@ Like the stagefront command, the benchmark asks glibc to keep freed memory for r
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import resource
 import time
 import tracemalloc
@@ -56,23 +60,28 @@ def main() -> None:
     archs = study.architectures if args.arch == "all" else (args.arch,)
     print(f"grid: {len(cond.corners)} corners x {len(cond.temps)} temperature x {len(cond.supplies)} supplies "
           f"= {len(cond.grid()[2])} PVT points; {args.designs} designs; chunk {args.chunk}")
+    on = study.targets
+    if on.amplifier is None:
+        raise SystemExit("the demo study has no [amplifier] table to switch on")
+    off = dataclasses.replace(on, amplifier=None, phase_margin_min=0.0, slew_min=0.0, gate_time_max=np.inf)
     for arch in archs:
         base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", study.tech)
         pop = population(base, args.designs, np.random.default_rng(0))
-        evaluate(population(base, 64, np.random.default_rng(1)), study.tech, cond, study.targets)  # warm-up
-        best, cpu = np.inf, 0.0
-        for _ in range(args.repeat):
-            t0, c0 = time.perf_counter(), time.process_time()
-            res = evaluate(pop, study.tech, cond, study.targets, chunk=args.chunk)
-            if time.perf_counter() - t0 < best:
-                best, cpu = time.perf_counter() - t0, time.process_time() - c0
-        tracemalloc.start()
-        evaluate(pop, study.tech, cond, study.targets, chunk=args.chunk)
-        _, peak = tracemalloc.get_traced_memory()
-        tracemalloc.stop()
-        print(f"{arch:14s} {args.designs / best:10.0f} designs/s  ({best:.3f} s best of {args.repeat}, "
-              f"CPU/wall {cpu / best:.2f}; {res.converged.mean() * 100:.2f} % of points converged; "
-              f"peak numpy memory {peak / 2**20:.0f} MiB)")
+        for label, targets in (("amplifier off", off), ("amplifier on", on)):
+            evaluate(population(base, 64, np.random.default_rng(1)), study.tech, cond, targets)  # warm-up
+            best, cpu = np.inf, 0.0
+            for _ in range(args.repeat):
+                t0, c0 = time.perf_counter(), time.process_time()
+                res = evaluate(pop, study.tech, cond, targets, chunk=args.chunk)
+                if time.perf_counter() - t0 < best:
+                    best, cpu = time.perf_counter() - t0, time.process_time() - c0
+            tracemalloc.start()
+            evaluate(pop, study.tech, cond, targets, chunk=args.chunk)
+            _, peak = tracemalloc.get_traced_memory()
+            tracemalloc.stop()
+            print(f"{arch:14s} {label:13s} {args.designs / best:10.0f} designs/s  ({best:.3f} s best of "
+                  f"{args.repeat}, CPU/wall {cpu / best:.2f}; {res.converged.mean() * 100:.2f} % of points "
+                  f"converged; peak numpy memory {peak / 2**20:.0f} MiB)")
     print(f"process max RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MiB")
 
 

@@ -31,7 +31,7 @@ from .stages import get_stage
 from .summary import check, summarise, supply_sensitivity
 
 __all__ = ["LIMIT_NAMES", "PVT_METRICS", "Conditions", "Design", "Result", "Targets", "corner_shifts",
-           "devices_at", "evaluate", "monte_carlo_iq", "pull_down_current", "rest_point"]
+           "devices_at", "evaluate", "loop_gain_at", "monte_carlo_iq", "pull_down_current", "rest_point"]
 
 
 def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
@@ -141,6 +141,43 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     summary = summarise(pvt, design, stage, cond, corner, temp, vdd, targets)
     violations, margins = check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, explain)
     return Result(design.architecture, corner, temp, vdd, pvt, summary, converged, req_names, violations, margins)
+
+
+def loop_gain_at(design: Design, tech: Tech, corner: Corner, temp: float, vdd: float, targets: Targets, f):
+    """The loop gain of one design inside the targets' amplifier at one PVT point.
+
+    Parameters
+    ----------
+    design : Design
+        One design (arrays of shape (1,)).
+    corner, temp, vdd : the PVT point ([K], [V]).
+    targets : Targets
+        With an amplifier (`Targets.amplifier`).
+    f : ndarray (nf,)
+        Frequencies [Hz].
+
+    Returns
+    -------
+    magnitude_db, phase_deg : ndarray (nf,)
+        20 log10 |T| and the phase of T, unwrapped from 0 at DC (phase margin: 180 + phase
+        where |T| = 1).
+    """
+    from .amplifier.inside import model as amplifier_model
+    from .amplifier.response import loop_gain, poles_zeros
+
+    stage = get_stage(design.architecture)
+    idx = np.zeros(1, dtype=int)
+    devs = devices_at(stage, design, tech, corner_shifts(tech, [corner]), np.array([float(temp)]), idx)
+    bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
+    vdd_arr = np.array([float(vdd)])
+    nodes, _, _, op = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
+    amp = targets.amplifier
+    g, c, i_d, i_o, _ = amplifier_model(stage, devs, bias, tech, op, nodes, vdd_arr, targets.c_load, amp,
+                                        targets.drive)
+    mu_p, mu_z, h0, _ = poles_zeros(g, c, i_d, i_o)
+    t0 = amp.beta * amp.transconductance * np.abs(h0)
+    logt, phase, _ = loop_gain(t0, mu_p, mu_z, np.asarray(f, dtype=float)[None, :])
+    return 20.0 * logt[0], phase[0]
 
 
 def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd: float, samples: int,

@@ -15,7 +15,7 @@ from . import CAUTION
 from .files.errors import InputError
 from .files.study import load_design, load_study
 from .files.units import format_eng
-from .review.evaluation import json_safe, result_to_dict
+from .review.evaluation import amplifier_dict, json_safe, result_to_dict
 from .review.montecarlo import confirm_sigma
 from .search.runtime import keep_freed_memory
 
@@ -27,7 +27,8 @@ SUMMARY_UNITS = {
     "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "headroom_high_v": "V",
     "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "ab_ratio": "",
     "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
-    "fp2_hz": "Hz", "c_drive_f": "F",
+    "fp2_hz": "Hz", "c_drive_f": "F", "ugf_hz": "Hz", "phase_margin_deg": "deg", "p1_hz": "Hz", "fint_hz": "Hz",
+    "fz_hz": "Hz", "slew_v_per_s": "V/s", "gate_time_s": "s",
 }
 SUMMARY_MEANING = {
     "iq_a": "quiescent current (tt, nominal supply and temperature)",
@@ -43,18 +44,33 @@ SUMMARY_MEANING = {
     "iq_sigma_pct": "worst 1-sigma Iq spread from mismatch",
     "supply_sens_pct_per_v": "worst Iq change per volt of supply",
     "vdd_min_v": "lowest supply keeping every device in its region",
-    "fp2_hz": "lowest output pole gm_out / (2 pi C_load)",
+    "fp2_hz": "lowest output pole (gm_out / (2 pi (C_load + C_gates)) without an amplifier)",
     "c_drive_f": "gate capacitance the stage loads its driver with",
+    "ugf_hz": "lowest unity-gain frequency of the loop gain",
+    "phase_margin_deg": "worst phase margin of the loop gain",
+    "p1_hz": "lowest dominant pole",
+    "fint_hz": "lowest internal pole (the control path)",
+    "fz_hz": "lowest right-half-plane zero",
+    "slew_v_per_s": "lowest output slew rate",
+    "gate_time_s": "longest time to move the gates to the drive limit",
 }
 
 
 def _print_table(out: dict, mc: dict | None) -> None:
     print(f"architecture: {out['architecture']}    feasible: {'yes' if out['feasible'] else 'no'}")
+    amp = out.get("amplifier")
+    if amp is None:
+        print("amplifier: none described (no [amplifier] table): no loop gain, phase margin or slew; fp2_hz is "
+              "gm_out / (2 pi (C_load + C_gates))")
+    else:
+        print(f"amplifier: two-stage Miller, target unity gain {format_eng(amp['unity_gain_hz'], 'Hz')}, "
+              f"Cc {format_eng(amp['compensation_f'], 'F')}, gm1 {format_eng(amp['transconductance_s'], 'S')}, "
+              f"feedback {amp['feedback']:g}, first-stage current {format_eng(amp['current_a'], 'A')}")
     print()
     for name, value in out["summary"].items():
         unit = SUMMARY_UNITS.get(name, "")
         shown = "n/a" if value is None else (
-            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit))
+            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2", "deg") else format_eng(value, unit))
         print(f"  {name:24s} {shown:>14s}   {SUMMARY_MEANING.get(name, '')}")
     print()
     head = f"  {'corner':6s} {'temp':>6s} {'vdd':>6s} {'Iq':>10s} {'sigma':>7s} {'hr_high':>8s} {'hr_low':>8s} " \
@@ -89,6 +105,7 @@ def cmd_evaluate(args) -> int:
     design = load_design(args.design, study.tech)
     res = evaluate(design, study.tech, study.conditions, study.targets)
     out = result_to_dict(res)
+    out["amplifier"] = amplifier_dict(study.targets)
     mc = None
     if args.montecarlo:
         if not 2 <= args.montecarlo <= MAX_MONTECARLO:

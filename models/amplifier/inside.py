@@ -45,10 +45,10 @@ def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, 
         zero [Hz] (inf: none), slew rate [V/s], gate time [s].
     """
     g, c, i_drive, i_out, _ = model(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, g_source)
-    mu_p, mu_z, h0, part = response.poles_zeros(g, c, i_drive, i_out)
+    mu_p, mu_z, h0, mu_i = response.poles_zeros(g, c, i_drive, i_out)
     t0 = amp.beta * amp.transconductance * np.abs(h0)
     ugf, pm = response.unity_gain(t0, mu_p, mu_z)
-    p1, fp2, fint = response.classify(mu_p, part, i_out)
+    p1, fp2, fint = response.classify(mu_p, mu_i)
     topo = stage.TOPOLOGY
     gate_nodes = (topo.spec(stage.PULL_DOWN).g, topo.spec(stage.PULL_UP).g)
     driven = topo.nodes[i_drive] if i_drive < len(topo.nodes) else "out"

@@ -33,16 +33,14 @@ def _roots(g, c):
 
 
 def poles_zeros(g, c, drive: int, out: int):
-    """Eigenvalues mu of the poles (m, k) and zeros (m, k-1), H(0) (m,), and the
-    participation of each node in each pole's mode (m, k poles, k nodes).
-
-    Participation of node j in mode i: |V[j, i] W[i, j]| with V the right eigenvectors
-    and W = V^-1 (each mode's entries sum to about 1)."""
+    """Eigenvalues mu of the poles (m, k) and zeros (m, k-1), H(0) (m,), and the poles of
+    the internal network (m, k-2): the nodes other than the driven node and the output,
+    with those two held (the undriven gate of the floating loop, reached through the
+    control pair, and the bias nodes)."""
     k = g.shape[1]
-    mu_p, vec = np.linalg.eig(-np.linalg.solve(g, c))
-    with np.errstate(all="ignore"):
-        left = np.linalg.inv(vec)
-    part = np.abs(np.swapaxes(vec, 1, 2) * left)  # [i, j] = V[j, i] W[i, j]
+    mu_p = _roots(g, c)
+    inner = [r for r in range(k) if r not in (drive, out)]
+    mu_i = _roots(g[:, inner][:, :, inner], c[:, inner][:, :, inner]) if inner else np.zeros((g.shape[0], 0))
     rows = [r for r in range(k) if r != drive]
     cols = [q for q in range(k) if q != out]
     gr = g[:, rows][:, :, cols]
@@ -51,7 +49,7 @@ def poles_zeros(g, c, drive: int, out: int):
     e = np.zeros((g.shape[0], k))
     e[:, drive] = 1.0
     h0 = np.linalg.solve(g, e[..., None])[:, out, 0]
-    return mu_p, mu_z, h0, np.nan_to_num(part, nan=0.0)
+    return mu_p, mu_z, h0, mu_i
 
 
 def to_rad(mu):
@@ -119,26 +117,19 @@ def unity_gain(t0, mu_p, mu_z):
     return f_u, pm
 
 
-def classify(mu_p, part, out: int):
-    """Dominant pole, output pole and lowest internal pole [Hz] (magnitudes).
+def classify(mu_p, mu_i):
+    """Dominant pole, non-dominant (output) pole and lowest internal pole [Hz] (magnitudes).
 
-    Dominant: the lowest pole. Output pole: of the others, the one whose mode the output
-    node takes the largest part in (pole splitting moves it up, the gate capacitance
-    down). Internal: the lowest of the rest (in the floating loop the gate that is not
-    driven, reached through the control pair); inf when the model has no third pole.
+    Dominant: the lowest pole of the full model; output pole: the next one (pole
+    splitting moves it up, the gate capacitance down); internal: the lowest pole of the
+    internal network with the driven node and the output held (in the floating loop the
+    gate that is not driven, reached through the control pair: about gm_ctl / C_gate);
+    inf when the model has none.
     """
-    mag = np.abs(to_rad(mu_p)) / TWO_PI
-    order = np.argsort(mag, axis=1)
-    rows = np.arange(mag.shape[0])
-    dom = order[:, 0]
-    p_out = part[:, :, out].copy()
-    p_out[rows, dom] = -1.0
-    p_out[~np.isfinite(mag)] = -1.0
-    i_out = np.argmax(p_out, axis=1)
-    rest = mag.copy()
-    rest[rows, dom] = np.inf
-    rest[rows, i_out] = np.inf
-    return mag[rows, dom], mag[rows, i_out], np.min(rest, axis=1)
+    mag = np.sort(np.abs(to_rad(mu_p)) / TWO_PI, axis=1)
+    inner = np.abs(to_rad(mu_i)) / TWO_PI
+    fint = np.min(inner, axis=1) if inner.shape[1] else np.full(mag.shape[0], np.inf)
+    return mag[:, 0], mag[:, 1] if mag.shape[1] > 1 else np.full(mag.shape[0], np.inf), fint
 
 
 def rhp_zero(mu_z):

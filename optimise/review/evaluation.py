@@ -7,6 +7,7 @@ import math
 
 from models.devices.constants import ZERO_CELSIUS
 from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result
+from models.records import AMPLIFIER_METRICS
 
 
 def _finite(x):
@@ -21,7 +22,7 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
     for j in range(len(res.vdd)):
         row = {"corner": res.corners[j].value, "temp_c": round(float(res.temps[j]) - ZERO_CELSIUS, 6),
                "vdd_v": float(res.vdd[j]), "converged": bool(res.converged[i, j])}
-        for name in PVT_METRICS:
+        for name in PVT_METRICS + tuple(n for n in AMPLIFIER_METRICS if n in res.pvt):
             row[name] = _finite(res.pvt[name][i, j])
         row["limit_source"] = LIMIT_NAMES[int(res.pvt["limit_source"][i, j])]
         row["limit_sink"] = LIMIT_NAMES[int(res.pvt["limit_sink"][i, j])]
@@ -34,6 +35,17 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
         "summary": {name: _finite(v[i]) for name, v in res.summary.items()},
         "pvt": pvt,
     }
+
+
+def amplifier_dict(targets) -> dict | None:
+    """The study's amplifier as the evaluate JSON's "amplifier" object (SI), None when the
+    study describes none."""
+    amp = targets.amplifier
+    if amp is None:
+        return None
+    return {"unity_gain_hz": amp.ugf, "compensation_f": amp.cc, "r_out_ohm": amp.r1, "c_out_f": amp.c1,
+            "current_a": amp.i1, "feedback": amp.beta, "transconductance_s": amp.transconductance,
+            "load_resistance_ohm": _finite(amp.r_load)}
 
 
 def json_safe(obj, path: str = "", notes: list | None = None):

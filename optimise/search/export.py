@@ -30,6 +30,14 @@ UNIT_SUFFIX = {"A": "a", "ohm": "ohm"}
 METRICS = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "headroom_high_v", "headroom_low_v", "swing_v",
            "iout_source_a", "iout_sink_a", "ab_ratio", "area_um2", "iq_sigma_pct", "supply_sens_pct_per_v",
            "vdd_min_v", "fp2_hz", "c_drive_f")
+# With an [amplifier] table: the worst case over PVT of the stage inside its amplifier.
+AMPLIFIER_COLUMNS = ("ugf_hz", "phase_margin_deg", "p1_hz", "fint_hz", "fz_hz", "slew_v_per_s", "gate_time_s")
+
+
+def metric_columns(study: Study) -> tuple[str, ...]:
+    """The metric columns of front.csv: METRICS, and AMPLIFIER_COLUMNS when the study
+    describes the amplifier."""
+    return METRICS + (AMPLIFIER_COLUMNS if study.targets.amplifier is not None else ())
 
 
 def variable_columns(archs) -> list[str]:
@@ -106,7 +114,7 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
         df = pd.DataFrame(design_rows(design))
         df.insert(0, "architecture", run.architecture)
         df.insert(0, "id", [f"{PREFIX[run.architecture]}-{k + 1:03d}" for k in range(len(df))])
-        for name in METRICS:
+        for name in metric_columns(study):
             df[name] = res.summary[name]
         for name in cnames:
             if name != "converged":  # every row converged at every PVT point, or it would not be feasible
@@ -114,7 +122,7 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
         df["_F"] = list(objective_values(res, settings.objectives))
         frames.append(df)
     if not frames:  # nothing feasible: keep the full header so the file still documents its columns
-        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) + list(METRICS)
+        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) + list(metric_columns(study))
         cols += [f"margin_{n}" for n in cnames if n != "converged"]
         return pd.DataFrame(columns=cols), results
     table = pd.concat(frames, ignore_index=True)

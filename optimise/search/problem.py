@@ -31,6 +31,9 @@ def constraint_names(study: Study) -> tuple[str, ...]:
         names.append("fp2")
     if np.isfinite(t.area_max):
         names.append("area")
+    if t.amplifier is not None:  # the surrounding amplifier's targets
+        names += [n for n, on in (("phase_margin", t.phase_margin_min > 0), ("slew", t.slew_min > 0),
+                                  ("gate_time", np.isfinite(t.gate_time_max))) if on]
     return tuple(names)
 
 
