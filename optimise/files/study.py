@@ -163,7 +163,8 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     check_keys(where, "driver", driver, DRIVER_KEYS)
     targets_t = sub_table(where, "", "targets", data.get("targets", {}))
     check_keys(where, "targets", targets_t, tuple(TARGET_UNITS) + tuple(AMPLIFIER_TARGET_UNITS))
-    amp_targets = {k: targets_t.pop(k) for k in list(targets_t) if k in AMPLIFIER_TARGET_UNITS}
+    amp_targets = {k: v for k, v in targets_t.items() if k in AMPLIFIER_TARGET_UNITS}
+    targets_t = {k: v for k, v in targets_t.items() if k not in AMPLIFIER_TARGET_UNITS}
     kw = {k: number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
     for k, v in kw.items():
         low, strict = TARGET_FLOOR[k]
