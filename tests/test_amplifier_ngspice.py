@@ -1,0 +1,87 @@
+"""The stage inside its amplifier in ngspice: loop gain (phase margin, unity-gain frequency)
+of the netlisted AC bench and the slew rate of a transient, against the model.
+
+Both sides run the same equations: SPICE level 1 on studies/tech/ah02-level1.toml with
+Meyer's gate capacitances (TOX from the technology's Cox, CGSO = CGDO = Cov; no junction
+capacitance on either side), so the residual is the simulator's sampling of the loop gain
+(40 points per decade, interpolated).
+The designs are those of tests/test_stages_ngspice.py (varied densities, lengths, bulk
+ties), every architecture, at 5 V, tt, 27 C.
+"""
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from models.devices.tech import Corner
+from models.evaluate import Conditions, Targets, evaluate
+from models.records import Amplifier
+from optimise.files.study import Study
+from optimise.spice import acbench
+from optimise.spice import testbench as tb
+from test_stages_ngspice import CASES, CUT_OFF, TECH, design
+
+T = 300.15
+VDD = 5.0
+AMP = Amplifier(ugf=1e6, cc=2e-12, r1=5e6, c1=0.2e-12, i1=5e-6)
+TARGETS = Targets(i_load=100e-6, c_load=10e-12, amplifier=AMP)
+COND = Conditions((Corner.TT,), (T,), VDD, VDD, VDD)
+STUDY = Study(path=None, name="ac-check", tech=TECH, tech_path=None, conditions=COND, targets=TARGETS,
+              architectures=(), seed=1)
+AC_CASES = [name for name in CASES if name not in CUT_OFF]
+# The issue's bounds: 2 degrees and 3 %. The two sides agree far closer (about 1e-2 degree
+# and 1e-4 seen): the simulator's loop gain is sampled at 40 points per decade and the
+# crossing interpolated in log frequency.
+PM_TOL = 2.0  # deg
+UGF_RTOL = 0.03
+
+
+def test_at_least_eight_designs_per_architecture():
+    per = {}
+    for name in AC_CASES:
+        per[CASES[name][0]] = per.get(CASES[name][0], 0) + 1
+    assert min(per.values()) >= 8 and len(per) == 3
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("name", AC_CASES)
+def test_phase_margin_and_unity_gain_against_ngspice(name):
+    d = design(name)
+    r = evaluate(d, TECH, COND, TARGETS)
+    assert r.converged.all()
+    sim = acbench.simulate_ac(d, [0], STUDY, tb.ModelSource(), Corner.TT, T)[(0, VDD)]
+    assert sim["ugf_hz"] > 0
+    assert sim["phase_margin_deg"] == pytest.approx(r.pvt["phase_margin_deg"][0, 0], abs=PM_TOL)
+    assert sim["ugf_hz"] == pytest.approx(r.pvt["ugf_hz"][0, 0], rel=UGF_RTOL)
+
+
+@pytest.mark.ngspice
+def test_uncompensated_bench_has_no_margin_in_ngspice_either():
+    # Common practice: without Cc the follower loop has (almost) no phase margin; the model
+    # and ngspice agree on it to the same 2 degrees.
+    d = design("fl-matched")
+    amp = dataclasses.replace(AMP, cc=0.0, gm1=3e-4)
+    targets = dataclasses.replace(TARGETS, amplifier=amp)
+    study = dataclasses.replace(STUDY, targets=targets)
+    r = evaluate(d, TECH, COND, targets)
+    sim = acbench.simulate_ac(d, [0], study, tb.ModelSource(), Corner.TT, T)[(0, VDD)]
+    assert sim["phase_margin_deg"] == pytest.approx(r.pvt["phase_margin_deg"][0, 0], abs=PM_TOL)
+    assert r.pvt["phase_margin_deg"][0, 0] < 20
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("name", ["fl-matched", "fl-mixed-lengths", "fb-demo"])
+def test_slew_rate_against_an_ngspice_transient(name):
+    d = design(name)
+    r = evaluate(d, TECH, COND, TARGETS)
+    model = float(r.pvt["slew_v_per_s"][0, 0])
+    assert model == pytest.approx(AMP.i1 / AMP.cc, rel=1e-9)  # Miller-limited here
+    # A 2 V step: the first stage (+-5 uA, tanh-limited) saturates in its first part.
+    sim = acbench.simulate_slew(d, 0, STUDY, tb.ModelSource(), Corner.TT, T, step=2.0, t_stop=8.0 / model)
+    # 15 % (the issue's bound): at the steepest point the first stage is saturated, but a
+    # little of its current still charges C1 and the driven gate as that node moves.
+    # Common-source stages only: the followers' driven node moves with the output, so Cc
+    # does not limit them and I1 / Cc is a conservative figure there.
+    assert sim == pytest.approx(model, rel=0.15)
