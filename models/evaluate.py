@@ -82,8 +82,9 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         topo = stage.TOPOLOGY
         gate_n, gate_p = topo.spec(stage.PULL_DOWN).g, topo.spec(stage.PULL_UP).g
         limits = [{gate_n: g[0], gate_p: g[1]} for g in (g_src, g_snk)]
-        extra = _amplifier(stage, devs, bias, tech, op, nodes, vdd, targets.c_load, amp, targets.drive,
-                           (i_src, i_snk), limits)
+        extra, ok_amp = _amplifier(stage, devs, bias, tech, op, nodes, vdd, targets.c_load, amp, targets.drive,
+                                   (i_src, i_snk), limits)
+        ok = ok & ok_amp
         fp2 = extra.pop("fp2_hz")
     res = {
         "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,
@@ -174,7 +175,7 @@ def loop_gain_at(design: Design, tech: Tech, corner: Corner, temp: float, vdd: f
     amp = targets.amplifier
     g, c, i_d, i_o, _ = amplifier_model(stage, devs, bias, tech, op, nodes, vdd_arr, targets.c_load, amp,
                                         targets.drive)
-    mu_p, mu_z, h0, _ = poles_zeros(g, c, i_d, i_o)
+    mu_p, mu_z, h0, _, _ = poles_zeros(g, c, i_d, i_o)
     t0 = amp.beta * amp.transconductance * np.abs(h0)
     logt, phase, _ = loop_gain(t0, mu_p, mu_z, np.asarray(f, dtype=float)[None, :])
     return 20.0 * logt[0], phase[0]

@@ -66,7 +66,7 @@ def test_pole_splitting_against_the_textbook_where_p2_is_far_above_p1():
     design, vdd = _fixed_bias()
     amp = Amplifier(ugf=1e6, cc=3e-12, r1=10e6, c1=0.2e-12, i1=5e-6)
     g, c, i_d, i_o, caps, op = _model(design, amp, vdd)
-    mu_p, mu_z, _, _ = response.poles_zeros(g, c, i_d, i_o)
+    mu_p, mu_z, _, _, _ = response.poles_zeros(g, c, i_d, i_o)
     p = np.sort(np.abs(response.to_rad(mu_p[0])))
     z = response.to_rad(mu_z[0])
     gm2, r2, c1, c2, cc = _two_node(op, caps, amp, 10e-12)
@@ -90,7 +90,7 @@ def test_exact_nodal_poles_where_the_approximations_fail():
     # approximation is off by tens of percent, the two-node quadratic stays exact.
     amp = Amplifier(ugf=1e6, cc=0.05e-12, r1=20e3, c1=2e-12, i1=5e-6, gm1=1e-4)
     g, c, i_d, i_o, caps, op = _model(design, amp, vdd)
-    mu_p, _, _, _ = response.poles_zeros(g, c, i_d, i_o)
+    mu_p, _, _, _, _ = response.poles_zeros(g, c, i_d, i_o)
     p = np.sort(np.abs(response.to_rad(mu_p[0])))
     gm2, r2, c1, c2, cc = _two_node(op, caps, amp, 10e-12)
     r1 = amp.r1
@@ -152,7 +152,7 @@ def test_without_compensation_the_stage_is_unstable_at_unity_gain():
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
     nodes, _, _, op = rest_point(stage, devs, bias, np.array([3.3]), sensitivity=False)
     g, c, i_d, i_o, _ = amplifier_model(stage, devs, bias, study.tech, op, nodes, np.array([3.3]), 50e-12, amp)
-    _, _, h0, _ = response.poles_zeros(g, c, i_d, i_o)
+    _, _, h0, _, _ = response.poles_zeros(g, c, i_d, i_o)
     closed = response.closed_loop_poles(g, c, amp.beta * amp.gm1 * np.sign(h0), i_d, i_o)
     assert np.any(closed[np.isfinite(closed)].real > 0)
     # The same loop compensated with 30 pF is stable: every closed-loop pole in the left half-plane.

@@ -85,3 +85,68 @@ def test_slew_rate_against_an_ngspice_transient(name):
     # Common-source stages only: the followers' driven node moves with the output, so Cc
     # does not limit them and I1 / Cc is a conservative figure there.
     assert sim == pytest.approx(model, rel=0.15)
+
+
+# ---------------------------------------------------------------------------------------
+# stagefront netlist and verify with an [amplifier] table
+# ---------------------------------------------------------------------------------------
+AMP_TABLE = """
+[amplifier]
+unity_gain = "1meg"
+compensation = "2p"
+r_out = "5meg"
+c_out = "0.2p"
+current = "5u"
+"""
+
+
+@pytest.fixture(scope="module")
+def amp_run(tmp_path_factory):
+    """A tiny run of the square-law hand-off study with an amplifier described."""
+    from optimise.cli import main
+    from optimise.search.export import read_front
+    from test_spice_handoff import AH02, SQUARE_STUDY
+
+    folder = tmp_path_factory.mktemp("amp")
+    study = folder / "study.toml"
+    study.write_text(SQUARE_STUDY.format(tech=AH02.as_posix()) + AMP_TABLE)
+    assert main(["optimise", str(study), "--out", str(folder / "run")]) == 0
+    return folder / "run", read_front(folder / "run" / "front.csv")
+
+
+@pytest.mark.ngspice
+def test_verify_compares_the_ac_bench(amp_run, capsys):
+    import csv
+
+    from optimise.cli import main
+
+    run, front = amp_run
+    assert {"phase_margin_deg", "ugf_hz", "slew_v_per_s", "gate_time_s"} <= set(front.columns)
+    assert main(["verify", str(run), "--all"]) == 0
+    out = capsys.readouterr().out
+    rows = [r for r in csv.DictReader((run / "verify.csv").open()) if r["metric"] in ("ugf_hz", "phase_margin_deg")]
+    # Every row at both corners and three supplies, two AC metrics each.
+    assert len(rows) == len(front) * 2 * 3 * 2
+    for r in rows:
+        err = abs(float(r["error"]))
+        assert err < (PM_TOL if r["error_unit"] == "deg" else UGF_RTOL), r
+    assert "phase_margin_deg" in out
+
+
+@pytest.mark.ngspice
+def test_netlist_carries_the_ac_bench(amp_run, capsys):
+    from optimise.cli import main
+    from optimise.spice import ngspice
+
+    run, front = amp_run
+    rid = str(front["id"].iloc[0])
+    assert main(["netlist", str(run), "--row", rid]) == 0
+    text = capsys.readouterr().out
+    assert ".ac dec" in text and "C_C0" in text and "V_AC0" in text
+    plots = ngspice.run_plots(text)
+    ac = next(p.vectors for p in plots if p.name.lower().startswith("ac"))
+    t = -np.asarray(ac["v(ac0_fb)"]) / np.asarray(ac["v(ac0_in)"])
+    ugf, pm = acbench.crossing(np.real(np.asarray(ac["frequency"])), t)
+    model_pm = float(text.split("phase margin ")[1].split(" deg")[0])
+    assert pm == pytest.approx(model_pm, abs=PM_TOL)
+    assert ugf > 0

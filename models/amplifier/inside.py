@@ -39,13 +39,14 @@ def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, 
 
     Returns
     -------
-    dict name -> (m,)
+    dict name -> (m,), ndarray of bool (m,)
         `METRICS` and "fp2_hz": unity-gain frequency of the loop gain [Hz], phase margin
         [deg], dominant, output and lowest internal pole [Hz], lowest right-half-plane
-        zero [Hz] (inf: none), slew rate [V/s], gate time [s].
+        zero [Hz] (inf: none), slew rate [V/s], gate time [s]; and the flags of the
+        elements whose small-signal model could be solved (a failure elsewhere).
     """
     g, c, i_drive, i_out, _ = model(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, g_source)
-    mu_p, mu_z, h0, mu_i = response.poles_zeros(g, c, i_drive, i_out)
+    mu_p, mu_z, h0, mu_i, ok = response.poles_zeros(g, c, i_drive, i_out)
     t0 = amp.beta * amp.transconductance * np.abs(h0)
     ugf, pm = response.unity_gain(t0, mu_p, mu_z)
     p1, fp2, fint = response.classify(mu_p, mu_i)
@@ -62,4 +63,4 @@ def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, 
         "ugf_hz": ugf, "phase_margin_deg": pm, "p1_hz": p1, "fp2_hz": fp2, "fint_hz": fint,
         "fz_hz": response.rhp_zero(mu_z),
         "slew_v_per_s": slew.slew_rate(amp.i1, amp.cc, c_load, *peaks), "gate_time_s": t_gate,
-    }
+    }, ok

@@ -27,29 +27,51 @@ TWO_PI = 2.0 * np.pi
 F_LOW, F_HIGH = 1e-3, 1e12  # Hz, the bracket of the unity-gain search
 
 
+def _solve(g, c):
+    """G^-1 C for a batch, and the flags of the regular elements; a singular or non-finite
+    G gives zeros there (LAPACK refuses the whole batch when one element is singular)."""
+    finite = np.all(np.isfinite(g), axis=(1, 2)) & np.all(np.isfinite(c), axis=(1, 2))
+    if finite.all():
+        try:
+            return np.linalg.solve(g, c), finite
+        except np.linalg.LinAlgError:
+            pass
+    sign, _ = np.linalg.slogdet(np.where(finite[:, None, None], g, 1.0))
+    regular = finite & (sign != 0)
+    out = np.zeros(np.broadcast_shapes(g.shape, c.shape))
+    if regular.any():
+        out[regular] = np.linalg.solve(g[regular], c[regular])
+    return out, regular
+
+
 def _roots(g, c):
-    """mu = eigenvalues of -G^-1 C (m, k), complex."""
-    return np.linalg.eigvals(-np.linalg.solve(g, c))
+    """mu = eigenvalues of -G^-1 C (m, k), complex, and the regular flags (m,); a singular
+    element gives mu = 0 (no finite root)."""
+    a, regular = _solve(g, c)
+    return np.linalg.eigvals(-a), regular
 
 
 def poles_zeros(g, c, drive: int, out: int):
-    """Eigenvalues mu of the poles (m, k) and zeros (m, k-1), H(0) (m,), and the poles of
-    the internal network (m, k-2): the nodes other than the driven node and the output,
-    with those two held (the undriven gate of the floating loop, reached through the
-    control pair, and the bias nodes)."""
+    """Eigenvalues mu of the poles (m, k) and zeros (m, k-1), H(0) (m,), the poles of the
+    internal network (m, k-2): the nodes other than the driven node and the output, with
+    those two held (the undriven gate of the floating loop, reached through the control
+    pair, and the bias nodes), and the flags (m,) of the elements whose G is regular (the
+    others' figures are not to be used)."""
     k = g.shape[1]
-    mu_p = _roots(g, c)
+    mu_p, ok = _roots(g, c)
     inner = [r for r in range(k) if r not in (drive, out)]
-    mu_i = _roots(g[:, inner][:, :, inner], c[:, inner][:, :, inner]) if inner else np.zeros((g.shape[0], 0))
+    mu_i = _roots(g[:, inner][:, :, inner], c[:, inner][:, :, inner])[0] if inner else np.zeros((g.shape[0], 0))
     rows = [r for r in range(k) if r != drive]
     cols = [q for q in range(k) if q != out]
     gr = g[:, rows][:, :, cols]
     cr = c[:, rows][:, :, cols]
-    mu_z = _roots(gr, cr)
-    e = np.zeros((g.shape[0], k))
+    # A singular cofactor is a zero at s = 0, H(0) = 0 (a stage cut off): no loop gain, so
+    # its other zeros do not matter; they are dropped (mu = 0).
+    mu_z, _ = _roots(gr, cr)
+    e = np.zeros((g.shape[0], k, 1))
     e[:, drive] = 1.0
-    h0 = np.linalg.solve(g, e[..., None])[:, out, 0]
-    return mu_p, mu_z, h0, mu_i
+    h0 = np.where(ok, _solve(g, e)[0][:, out, 0], 0.0)
+    return mu_p, mu_z, h0, mu_i, ok
 
 
 def to_rad(mu):
@@ -145,4 +167,4 @@ def closed_loop_poles(g, c, gm_fb, drive: int, out: int):
     negative feedback when gm_fb H(0) > 0). A pole with positive real part: unstable."""
     gc = g.copy()
     gc[:, drive, out] += gm_fb
-    return to_rad(_roots(gc, c))
+    return to_rad(_roots(gc, c)[0])

@@ -71,8 +71,14 @@ def _volts(row: dict) -> bool:
     return isinstance(metric, str) and (metric.endswith("_v") or "headroom" in metric)
 
 
-def _show_error(v: float, volts: bool) -> str:
+def _show_error(v: float, volts: bool, deg: bool = False) -> str:
+    if deg:  # the AC bench's phase margin, compared in degrees
+        return f"{v:+.3g} deg"
     return f"{v * 1e3:+.3g} mV" if volts else f"{100 * v:+.3g} %"
+
+
+def _deg(row: dict) -> bool:
+    return str(row.get("error_unit", "")).strip().lower() == "deg"
 
 
 def _verify_cell(col: str, row: dict) -> Cell:
@@ -82,7 +88,7 @@ def _verify_cell(col: str, row: dict) -> Cell:
         if not np.isfinite(v):
             return Cell("", None)
         if col == "error":
-            return Cell(_show_error(v, _volts(row)), abs(v))
+            return Cell(_show_error(v, _volts(row), _deg(row)), abs(v))
         if col in ("model", "simulator") and isinstance(metric, str):
             unit = {"_a": "A", "_v": "V", "_w": "W", "_hz": "Hz", "_f": "F"}.get(metric[metric.rfind("_"):], "")
             return Cell(format_eng(v, unit) if unit else short(v, 6), v)
@@ -97,7 +103,9 @@ def verification_blocks(verify: tuple) -> list:
         return [note]
     records = table.to_dict("records")
     out = [note + " Errors are simulator minus model: relative for currents (%), in millivolts for voltages "
-                  "(headrooms)."]
+                  "(headrooms)" + (", in degrees for the AC bench's phase margin (its unity-gain frequency "
+                                   "relative)" if "error_unit" in table and (table["error_unit"] == "deg").any()
+                                   else "") + "."]
     if {"metric", "error"} <= set(table.columns) and len(table):
         rows = []
         for metric in dict.fromkeys(table["metric"]):
@@ -111,9 +119,9 @@ def verification_blocks(verify: tuple) -> list:
             at = " ".join(str(w[c]) for c in ("id", "corner") if c in w)
             at += "".join(f" {short(w[c])} {u}" for c, u in (("temp_c", "C"), ("vdd_v", "V")) if c in w)
             rows.append([Cell(str(metric)), Cell(str(len(rs)), len(rs)),
-                         Cell(_show_error(float(np.median(np.abs(err))), _volts(w)).lstrip("+"),
+                         Cell(_show_error(float(np.median(np.abs(err))), _volts(w), _deg(w)).lstrip("+"),
                               float(np.median(np.abs(err)))),
-                         Cell(_show_error(float(w["error"]), _volts(w)), abs(float(w["error"]))), Cell(at)])
+                         Cell(_show_error(float(w["error"]), _volts(w), _deg(w)), abs(float(w["error"]))), Cell(at)])
         out.append(Table("verification-summary", [("metric", "metric"), ("points", "points"),
                                                   ("median", "median |error|"), ("worst", "worst error"),
                                                   ("at", "worst at")], rows))

@@ -67,7 +67,7 @@ def rest_info(design, tech, targets, corner: Corner, temp: float, vdd, idx):
     nodes, ok, _, op = rest_point(mod, devs, bias, vdd, sensitivity=False)
     g, c, i_d, i_o, _ = amplifier_model(mod, devs, bias, tech, op, nodes, vdd, targets.c_load, targets.amplifier,
                                         targets.drive)
-    _, _, h0, _ = poles_zeros(g, c, i_d, i_o)
+    _, _, h0, _, _ = poles_zeros(g, c, i_d, i_o)
     node = drive_node(mod, targets.drive)
     return nodes[node], np.sign(h0), ok
 
@@ -208,3 +208,35 @@ def simulate_slew(design, k: int, study, models, corner: Corner, temp: float, st
     inside = (v >= v0 + 0.1 * (v1 - v0)) & (v <= v0 + 0.9 * (v1 - v0))
     slope = np.diff(v) / np.maximum(np.diff(t), 1e-30)
     return float(np.max(slope[inside[1:] & inside[:-1]]))
+
+
+def netlist_block(design, study, models, corner: Corner, temp: float, vdd: float, pvt: dict) -> list[str]:
+    """The AC bench of design 0 for the readable netlist (`stagefront netlist`): comment
+    lines with the model's figures, the stage's subcircuit under its own name with the
+    capacitance cards, the bench (nodes ``ac_...``) and its ``.ac`` line."""
+    mod = get_stage(design.architecture)
+    targets = study.targets
+    v_rest, sign, _ = rest_info(design, study.tech, targets, corner, temp, np.array([vdd]), np.array([0]))
+    sub = tb.netlist.subcircuit_name(mod) + "_ac"
+    cards, subckt = tb.design_models(mod, design, 0, study.tech, models, corner, temp, sub)
+
+    def mhz(key):
+        v = pvt[key]
+        return f"{v / 1e6:.4g} MHz" if np.isfinite(v) else "none"
+
+    lines = [
+        "*",
+        "* AC bench: the stage inside its amplifier (stagefront's model of it predicts):",
+        f"*   unity-gain frequency {mhz('ugf_hz')}, phase margin {pvt['phase_margin_deg']:.2f} deg",
+        f"*   dominant pole {pvt['p1_hz']:.4g} Hz, output pole {mhz('fp2_hz')}, internal pole {mhz('fint_hz')}, "
+        f"right-half-plane zero {mhz('fz_hz')}",
+        "*   loop gain T = -V(ac0_fb) / V(ac0_in) from the .ac analysis; the loop is closed at DC",
+        f"*   first stage G_1 = {targets.amplifier.transconductance:.6g} S into {drive_node(mod, targets.drive)}, "
+        f"R_1, C_1; C_C from the output; V_AC injects in series with the feedback",
+    ]
+    if cards:
+        lines.append(cap_cards(mod, cards, study.tech))
+    lines.append(subckt)
+    lines += ac_block(mod, sub, "0", vdd, targets, float(v_rest[0]), float(sign[0]))
+    lines.append(f".ac dec {POINTS_PER_DECADE} {number(F_START)} {number(F_STOP)}")
+    return lines
