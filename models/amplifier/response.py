@@ -99,7 +99,8 @@ def loop_gain(t0, mu_p, mu_z, f):
 
     mz, az, sz = parts(mu_z)
     mp, ap, sp = parts(mu_p)
-    logt = np.log10(np.asarray(t0)[shape]) + mz - mp
+    with np.errstate(divide="ignore"):  # T(0) = 0 (a stage cut off): log10 |T| = -inf, no crossing
+        logt = np.log10(np.asarray(t0)[shape]) + mz - mp
     return logt, np.degrees(az - ap), sz - sp
 
 
