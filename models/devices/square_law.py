@@ -122,7 +122,8 @@ def capacitances(m: Mos, mt: MosTech, w, l, vgb, vdb, vsb):
     c0 = mt.cox * np.asarray(w, dtype=float) * np.asarray(l, dtype=float)
     phi = m.phi
     cgb = np.where(vgst <= -phi, c0, np.where(vgst <= 0.0, -vgst * c0 / phi, 0.0))
-    cgs_on = np.where(vgst > 0.0, 2.0 / 3.0 * c0, np.where(vgst > -0.5 * phi, 2.0 / 3.0 * c0 + 4.0 / 3.0 * c0 * vgst / phi, 0.0))
+    depleted = np.where(vgst > -0.5 * phi, 2.0 / 3.0 * c0 + 4.0 / 3.0 * c0 * vgst / phi, 0.0)
+    cgs_on = np.where(vgst > 0.0, 2.0 / 3.0 * c0, depleted)
     dif2 = (2.0 * vdsat - vds) ** 2
     tri = vds < vdsat
     cgs = np.where(tri, cgs_on * (1.0 - (vdsat - vds) ** 2 / dif2), cgs_on)
