@@ -70,7 +70,8 @@ def _print_table(out: dict, mc: dict | None) -> None:
     for name, value in out["summary"].items():
         unit = SUMMARY_UNITS.get(name, "")
         shown = "n/a" if value is None else (
-            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2", "deg") else format_eng(value, unit))
+            f"{value:.4g} {unit}" if unit in ("", "%", "%/V", "um^2", "deg") else
+            f"{value * 1e-6:.4g} V/us" if unit == "V/s" else format_eng(value, unit))
         print(f"  {name:24s} {shown:>14s}   {SUMMARY_MEANING.get(name, '')}")
     print()
     head = f"  {'corner':6s} {'temp':>6s} {'vdd':>6s} {'Iq':>10s} {'sigma':>7s} {'hr_high':>8s} {'hr_low':>8s} " \

@@ -214,3 +214,59 @@ def test_amplifier_table_is_checked(tmp_path):
 def test_targets_refuse_amplifier_limits_without_an_amplifier():
     with pytest.raises(ValueError, match="needs an amplifier"):
         Targets(i_load=1e-3, c_load=1e-12, phase_margin_min=60.0)
+
+
+def test_evaluate_json_carries_the_amplifier(capsys):
+    import json
+
+    from optimise.cli import main
+
+    assert main(["evaluate", str(ROOT / "studies" / "sensor-buffer.toml"), "--design",
+                 str(ROOT / "studies" / "sensor-buffer-floating-loop.toml"), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    amp = out["amplifier"]
+    assert amp["unity_gain_hz"] == 1e6 and amp["compensation_f"] == 3e-12
+    # gm1 = 2 pi ugf Cc / beta (Amplifier's definition).
+    assert amp["transconductance_s"] == pytest.approx(2 * np.pi * 1e6 * 3e-12)
+    for name in ("ugf_hz", "phase_margin_deg", "p1_hz", "fint_hz", "fz_hz", "slew_v_per_s", "gate_time_s"):
+        assert name in out["summary"] and name in out["pvt"][0]
+    assert out["summary"]["phase_margin_deg"] == min(r["phase_margin_deg"] for r in out["pvt"])
+    assert out["feasible"]  # the hand-sized design meets 60 degrees at every PVT point
+
+
+def test_evaluate_says_when_no_amplifier_is_described(tmp_path, capsys):
+    from optimise.cli import main
+    from optimise.sweep.grid import dumps
+
+    data = read_toml(ROOT / "studies" / "sensor-buffer.toml")
+    data = {k: v for k, v in data.items() if k != "amplifier"}
+    data["targets"] = {k: v for k, v in data["targets"].items() if k not in ("phase_margin_min", "slew_min")}
+    data["technology"] = str(ROOT / "studies" / "tech" / "demo350-invented.toml")
+    path = tmp_path / "no-amp.toml"
+    path.write_text(dumps(data))
+    assert main(["evaluate", str(path), "--design", str(ROOT / "studies" / "sensor-buffer-floating-loop.toml")]) == 0
+    text = capsys.readouterr().out
+    assert "amplifier: none described" in text and "phase_margin_deg" not in text
+
+
+def test_pick_reads_the_new_columns_in_their_units():
+    from optimise.review.pick import column_unit
+
+    assert column_unit("phase_margin_deg") == ("deg", False)
+    assert column_unit("slew_v_per_s") == ("V/s", True)
+    assert column_unit("gate_time_s") == ("s", True)
+
+
+def test_sweep_may_vary_the_amplifier(tmp_path):
+    from optimise.sweep.grid import load_grid
+
+    grid = tmp_path / "grid.toml"
+    grid.write_text(f'base = "{(ROOT / "studies" / "sensor-buffer.toml").as_posix()}"\n[axes]\n'
+                    '"amplifier.unity_gain" = ["1meg", "3meg"]\n"targets.phase_margin_min" = [45, 60]\n')
+    g = load_grid(grid)
+    assert len(g.cells) == 4
+    for cell in g.cells:
+        path = tmp_path / f"{cell.name}.toml"
+        path.write_text(cell.toml)
+        s = load_study(path)
+        assert s.targets.amplifier.ugf in (1e6, 3e6) and s.targets.phase_margin_min in (45, 60)
