@@ -1,7 +1,9 @@
 """Study and design files: TOML in, checked model objects out.
 
 A study names the technology, the supply range, temperatures and corners, the load, the
-driver and the targets; a design file gives one candidate's sizes and bias. Every problem
+driver and the targets, and optionally the [amplifier] the stage sits in (its keys in
+AMPLIFIER_KEYS; the targets phase_margin_min, slew_min and gate_time_max need it); a design
+file gives one candidate's sizes and bias. Every problem
 is an InputError naming the file, the key, the value and what is allowed.
 """
 from __future__ import annotations

@@ -101,7 +101,7 @@ def bode_figure(data: ReportData) -> bytes:
     plt, res, s = _plt(), data.knee, data.study
     j_typ = s.conditions.nominal_index()
     j_worst = int(np.argmin(res.pvt["phase_margin_deg"][0]))
-    f = np.logspace(0, 10, 400)
+    f = np.logspace(-1, 10, 440)
     fig, (am, ph) = plt.subplots(2, 1, figsize=(8, 6), sharex=True)
     for j, label, style in ((j_typ, "typical", "-"), (j_worst, "worst phase margin", "--")):
         corner, temp, vdd = res.corners[j], float(res.temps[j]), float(res.vdd[j])

@@ -14,8 +14,9 @@ AC bench (one per design and supply, each with its own nodes, ``ac<tag>_...``)
   Both ends are ideal (the output of a controlled source, the input of a transconductor),
   so this voltage injection breaks the loop exactly at AC while the DC loop sets the rest
   point (output at VDD/2, no output current): the loop gain is T = -V(fb) / V(in)
-  (Middlebrook's injection; equivalent to the large-inductor / large-capacitor break,
-  whose 1 GH and 1 kF entries spoil ngspice's matrix on some designs).
+  (voltage injection: R. D. Middlebrook, "Measurement of loop gain in feedback systems",
+  Int. J. Electronics 38(4), 1975; equivalent to the large-inductor / large-capacitor
+  break, whose 1 GH and 1 kF entries spoiled ngspice's matrix on some designs here).
 - The first stage's polarity makes the feedback negative: it injects gm1 (V(in-) - V(in+))
   when the stage inverts (a common-source pair: a higher gate lowers the output), the
   opposite for the followers.
