@@ -270,3 +270,48 @@ def test_sweep_may_vary_the_amplifier(tmp_path):
         path.write_text(cell.toml)
         s = load_study(path)
         assert s.targets.amplifier.ugf in (1e6, 3e6) and s.targets.phase_margin_min in (45, 60)
+
+
+def test_ekv_capacitances_reach_their_textbook_limits():
+    from models.devices import ekv
+    from models.devices.conditions import at_conditions
+    from models.devices.tech import ModelKind, Polarity
+
+    tech = load_tech(ROOT / "studies" / "tech" / "demo350-invented.toml")
+    mt = tech.nmos
+    m = at_conditions(mt, Polarity.N, ModelKind.EKV, tech.tnom, tech.tnom)
+    w, l = 10e-6, 1e-6
+    cwl, cov = mt.cox * w * l, mt.cov * w
+    # Enz and Vittoz 2006, ch. 4 (from memory): strong-inversion saturation cgs = 2/3 Cox W L,
+    # cgd = 0; weak inversion cgb = (n - 1)/n Cox W L; triode at VDS = 0 cgs = cgd = 1/2 Cox W L.
+    # Tolerances: the limits are approached as 1/sqrt(IC) (strong) and IC (weak).
+    cgs, cgd, cgb, cdb, csb = ekv.capacitances(m, mt, w, l, 3.0, 3.3, 0.0)  # IC about 1e3
+    assert (cgs - cov) / cwl == pytest.approx(2 / 3, rel=0.02) and (cgd - cov) / cwl < 1e-6
+    cgs, cgd, cgb, _, _ = ekv.capacitances(m, mt, w, l, 0.2, 1.0, 0.0)  # IC about 1e-4
+    assert cgb / cwl == pytest.approx((m.n - 1) / m.n, rel=0.01) and (cgs - cov) / cwl < 0.01
+    cgs, cgd, _, _, _ = ekv.capacitances(m, mt, w, l, 3.0, 0.0, 0.0)
+    assert (cgs - cov) / cwl == pytest.approx(0.5, rel=0.02) and cgs == pytest.approx(cgd, rel=1e-12)
+    assert cdb == 0 and csb == 0  # no junction data in the technology file
+
+
+def test_square_law_capacitances_follow_meyer():
+    from models.devices import square_law
+    from models.devices.conditions import at_conditions
+    from models.devices.tech import ModelKind, Polarity
+
+    mt = TECH.nmos
+    m = at_conditions(mt, Polarity.N, ModelKind.SQUARE_LAW, TECH.tnom, TECH.tnom)
+    w, l = 10e-6, 1e-6
+    cwl, cov = mt.cox * w * l, mt.cov * w
+    # Meyer, RCA Review 32, 1971: saturation cgs = 2/3 Cox W L, cgd = 0 (plus overlap);
+    # VDS = 0 in strong inversion: cgs = cgd = 1/2 Cox W L; accumulation: cgb = Cox W L.
+    cgs, cgd, cgb, _, _ = square_law.capacitances(m, mt, w, l, 2.0, 3.0, 0.0)
+    assert cgs == pytest.approx(2 / 3 * cwl + cov, rel=1e-12) and cgd == pytest.approx(cov) and cgb == 0
+    cgs, cgd, _, _, _ = square_law.capacitances(m, mt, w, l, 2.0, 0.0, 0.0)
+    assert cgs - cov == pytest.approx(0.5 * cwl, rel=1e-12) and cgd == pytest.approx(cgs, rel=1e-12)
+    _, _, cgb, _, _ = square_law.capacitances(m, mt, w, l, -1.0, 1.0, 0.0)
+    assert cgb == pytest.approx(cwl, rel=1e-12)
+    # Drain and source exchanged: the same device.
+    a = square_law.capacitances(m, mt, w, l, 2.0, 0.3, 0.0)
+    b = square_law.capacitances(m, mt, w, l, 2.0, 0.0, 0.3)
+    assert a[0] == pytest.approx(b[1]) and a[1] == pytest.approx(b[0])
