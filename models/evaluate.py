@@ -83,7 +83,7 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         gate_n, gate_p = topo.spec(stage.PULL_DOWN).g, topo.spec(stage.PULL_UP).g
         limits = [{gate_n: g[0], gate_p: g[1]} for g in (g_src, g_snk)]
         extra, ok_amp = _amplifier(stage, devs, bias, tech, op, nodes, vdd, targets.c_load, amp, targets.drive,
-                                   (i_src, i_snk), limits)
+                                   (i_src, i_snk), limits, cc=amp.compensation(design.cc, idx_design))
         ok = ok & ok_amp
         fp2 = extra.pop("fp2_hz")
     res = {
@@ -173,10 +173,11 @@ def loop_gain_at(design: Design, tech: Tech, corner: Corner, temp: float, vdd: f
     vdd_arr = np.array([float(vdd)])
     nodes, _, _, op = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
     amp = targets.amplifier
+    cc = amp.compensation(design.cc, idx)
     g, c, i_d, i_o, _ = amplifier_model(stage, devs, bias, tech, op, nodes, vdd_arr, targets.c_load, amp,
-                                        targets.drive)
+                                        targets.drive, cc=cc)
     mu_p, mu_z, h0, _, _ = poles_zeros(g, c, i_d, i_o)
-    t0 = amp.beta * amp.transconductance * np.abs(h0)
+    t0 = amp.beta * amp.gm1_for(cc) * np.abs(h0)
     logt, phase, _ = loop_gain(t0, mu_p, mu_z, np.asarray(f, dtype=float)[None, :])
     return 20.0 * logt[0], phase[0]
 

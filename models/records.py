@@ -30,7 +30,9 @@ class Design:
     """A population of n designs of one architecture. Arrays have shape (n,), SI units.
 
     w, l: role -> width and length [m]; bias: bias name -> value [A or ohm];
-    tied: roles whose bulk sits on their source (own well).
+    tied: roles whose bulk sits on their source (own well); cc: the amplifier's
+    compensation capacitance per design [F] when the search sizes it (None: the amplifier's
+    own value).
     """
 
     architecture: str
@@ -38,6 +40,7 @@ class Design:
     l: dict
     bias: dict
     tied: frozenset = frozenset()
+    cc: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         stage = get_stage(self.architecture)
@@ -59,6 +62,8 @@ class Design:
         for name, arr in self.bias.items():
             if np.any(~(np.asarray(arr) > 0)):
                 raise ValueError(f"[bias] {name} = {np.min(arr)!r} {stage.BIAS[name]} must be positive")
+        if self.cc is not None and np.any(~(np.asarray(self.cc) > 0)):
+            raise ValueError(f"compensation cc = {np.min(self.cc)!r} F must be positive")
         bad = sorted(set(self.tied) - set(stage.ROLES))
         if bad:
             raise ValueError(f"bulk ties name unknown roles {', '.join(bad)}")
@@ -71,7 +76,8 @@ class Design:
         """The designs at the integer positions idx, as a population of their own."""
         return Design(self.architecture, {k: np.asarray(v)[idx] for k, v in self.w.items()},
                       {k: np.asarray(v)[idx] for k, v in self.l.items()},
-                      {k: np.asarray(v)[idx] for k, v in self.bias.items()}, self.tied)
+                      {k: np.asarray(v)[idx] for k, v in self.bias.items()}, self.tied,
+                      None if self.cc is None else np.asarray(self.cc)[idx])
 
 
 @dataclass(frozen=True, slots=True)

@@ -106,7 +106,7 @@ def cmd_evaluate(args) -> int:
     design = load_design(args.design, study.tech)
     res = evaluate(design, study.tech, study.conditions, study.targets)
     out = result_to_dict(res)
-    out["amplifier"] = amplifier_dict(study.targets)
+    out["amplifier"] = amplifier_dict(study.targets, design)
     mc = None
     if args.montecarlo:
         if not 2 <= args.montecarlo <= MAX_MONTECARLO:

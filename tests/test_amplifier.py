@@ -315,3 +315,39 @@ def test_square_law_capacitances_follow_meyer():
     a = square_law.capacitances(m, mt, w, l, 2.0, 0.3, 0.0)
     b = square_law.capacitances(m, mt, w, l, 2.0, 0.0, 0.3)
     assert a[0] == pytest.approx(b[1]) and a[1] == pytest.approx(b[0])
+
+
+def test_the_search_can_size_the_compensation_capacitor(tmp_path):
+    from optimise.cli import main
+    from optimise.search.export import design_from_row, read_front
+    from optimise.sweep.grid import dumps
+
+    data = read_toml(ROOT / "studies" / "sensor-buffer.toml")
+    data["technology"] = str(ROOT / "studies" / "tech" / "demo350-invented.toml")
+    data["architectures"] = ["floating-loop"]
+    data["bounds"] = {"floating-loop": data["bounds"]["floating-loop"]}
+    data["conditions"] = {"temperatures_c": [27], "corners": ["tt", "ss"]}
+    data["amplifier"] = dict(data["amplifier"], compensation=["1p", "10p"])
+    data["search"] = {"population": 12, "generations": 4}
+    path = tmp_path / "cc.toml"
+    path.write_text(dumps(data))
+    study = load_study(path)
+    assert study.targets.amplifier.cc_bounds == (1e-12, 1e-11)
+    assert main(["optimise", str(path), "--out", str(tmp_path / "run")]) == 0
+    front = read_front(tmp_path / "run" / "front.csv")
+    assert len(front) and front["cc_f"].between(1e-12, 1e-11).all()
+    row = front.iloc[0]
+    design = design_from_row(row)
+    res = evaluate(design, study.tech, study.conditions, study.targets)
+    # The row's own Cc sets gm1 = 2 pi f_u Cc and the Miller slew I1 / Cc.
+    assert res.summary["phase_margin_deg"][0] == pytest.approx(row["phase_margin_deg"], rel=1e-9)
+    assert res.summary["slew_v_per_s"][0] <= study.targets.amplifier.i1 / row["cc_f"] * (1 + 1e-12)
+    # A design without its own Cc is refused with a clear message.
+    with pytest.raises(ValueError, match="needs its own value"):
+        evaluate(dataclasses.replace(design, cc=None), study.tech, study.conditions, study.targets)
+    # A design file gives it with the compensation key.
+    text = 'compensation = "4p"\n' + (ROOT / "studies" / "sensor-buffer-floating-loop.toml").read_text()
+    dfile = tmp_path / "d.toml"
+    dfile.write_text(text)
+    d = load_design(dfile, study.tech)
+    assert d.cc[0] == 4e-12

@@ -150,3 +150,28 @@ def test_netlist_carries_the_ac_bench(amp_run, capsys):
     model_pm = float(text.split("phase margin ")[1].split(" deg")[0])
     assert pm == pytest.approx(model_pm, abs=PM_TOL)
     assert ugf > 0
+
+
+@pytest.mark.ngspice
+def test_verify_with_a_searched_compensation_capacitor(tmp_path, capsys):
+    import csv
+
+    from optimise.cli import main
+    from optimise.search.export import read_front
+    from test_spice_handoff import AH02, SQUARE_STUDY
+
+    study = tmp_path / "study.toml"
+    study.write_text(SQUARE_STUDY.format(tech=AH02.as_posix()).replace(
+        'architectures = ["floating-loop", "fixed-bias", "follower"]', 'architectures = ["floating-loop"]')
+        .split("[bounds.fixed-bias]")[0] + "[search]\npopulation = 8\ngenerations = 2\n"
+        + AMP_TABLE.replace('compensation = "2p"', 'compensation = ["1p", "5p"]'))
+    assert main(["optimise", str(study), "--out", str(tmp_path / "run")]) == 0
+    front = read_front(tmp_path / "run" / "front.csv")
+    assert front["cc_f"].between(1e-12, 5e-12).all() and front["cc_f"].nunique() > 1
+    assert main(["verify", str(tmp_path / "run"), "--all"]) == 0
+    capsys.readouterr()
+    rows = [r for r in csv.DictReader((tmp_path / "run" / "verify.csv").open())
+            if r["metric"] in ("ugf_hz", "phase_margin_deg")]
+    assert rows
+    for r in rows:
+        assert abs(float(r["error"])) < (PM_TOL if r["error_unit"] == "deg" else UGF_RTOL), r

@@ -11,15 +11,16 @@ from . import response, slew, smallsignal
 METRICS = ("ugf_hz", "phase_margin_deg", "p1_hz", "fint_hz", "fz_hz", "slew_v_per_s", "gate_time_s")
 
 
-def model(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive="both", g_source=None):
-    """(G, C, drive index, out index, device capacitances) of the stage in its amplifier."""
+def model(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive="both", g_source=None, cc=None):
+    """(G, C, drive index, out index, device capacitances) of the stage in its amplifier;
+    cc (m,) the compensation capacitance per element when the search sizes it."""
     caps = smallsignal.device_capacitances(stage, devs, tech, nodes, vdd)
-    g, c = smallsignal.assemble(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, g_source, caps)
+    g, c = smallsignal.assemble(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, g_source, caps, cc)
     names = smallsignal.node_list(stage.TOPOLOGY)
     return g, c, names.index(smallsignal.drive_node(stage, drive)), names.index("out"), caps
 
 
-def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, limits, g_source=None):
+def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, limits, g_source=None, cc=None):
     """The amplifier metrics of every element (m,).
 
     Parameters
@@ -36,6 +37,8 @@ def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, 
         Output gate voltages at the sourcing and the sinking drive limit [V].
     g_source : dict, optional
         Bias-source output conductances (`smallsignal.assemble`).
+    cc : ndarray (m,), optional
+        Compensation capacitance per element [F] (a searched Cc); None: ``amp.cc``.
 
     Returns
     -------
@@ -45,9 +48,10 @@ def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, 
         zero [Hz] (inf: none), slew rate [V/s], gate time [s]; and the flags of the
         elements whose small-signal model could be solved (a failure elsewhere).
     """
-    g, c, i_drive, i_out, _ = model(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, g_source)
+    cc = np.broadcast_to(np.asarray(amp.cc if cc is None else cc, dtype=float), vdd.shape)
+    g, c, i_drive, i_out, _ = model(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, g_source, cc)
     mu_p, mu_z, h0, mu_i, ok = response.poles_zeros(g, c, i_drive, i_out)
-    t0 = amp.beta * amp.transconductance * np.abs(h0)
+    t0 = amp.beta * amp.gm1_for(cc) * np.abs(h0)
     ugf, pm = response.unity_gain(t0, mu_p, mu_z)
     p1, fp2, fint = response.classify(mu_p, mu_i)
     topo = stage.TOPOLOGY
@@ -56,11 +60,11 @@ def analyse(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive, peaks, 
     cap_node = {}
     for node in gate_nodes:
         j = smallsignal.node_list(topo).index(node)
-        cap_node[node] = c[:, j, j] - (amp.cc if node == driven else 0.0)
+        cap_node[node] = c[:, j, j] - (cc if node == driven else 0.0)
     rest = {node: nodes[node] for node in gate_nodes}
     t_gate = slew.gate_time(stage, bias, cap_node, rest, limits, driven, amp.i1)
     return {
         "ugf_hz": ugf, "phase_margin_deg": pm, "p1_hz": p1, "fp2_hz": fp2, "fint_hz": fint,
         "fz_hz": response.rhp_zero(mu_z),
-        "slew_v_per_s": slew.slew_rate(amp.i1, amp.cc, c_load, *peaks), "gate_time_s": t_gate,
+        "slew_v_per_s": slew.slew_rate(amp.i1, cc, c_load, *peaks), "gate_time_s": t_gate,
     }, ok

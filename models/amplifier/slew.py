@@ -24,8 +24,9 @@ import numpy as np
 def slew_rate(i1, cc, c_load, i_source, i_sink):
     """Output slew rate [V/s] (m,): min(I1 / Cc, min(I_source, I_sink) / (C_load + Cc)), >= 0
     (a stage cut off at its drive limit slews at 0)."""
+    cc = np.asarray(cc, dtype=float)
     with np.errstate(divide="ignore"):
-        miller = np.inf if cc == 0 else i1 / cc
+        miller = np.where(cc > 0, i1 / np.where(cc > 0, cc, 1.0), np.inf)
     return np.maximum(np.minimum(miller, np.minimum(i_source, i_sink) / (c_load + cc)), 0.0)
 
 

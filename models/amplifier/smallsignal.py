@@ -91,7 +91,8 @@ class _Stamp:
                 self.g[:, i, j] += sign * val
 
 
-def assemble(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive="both", g_source=None, caps=None):
+def assemble(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive="both", g_source=None, caps=None,
+             cc=None):
     """G and C (m, k, k) of the stage at rest inside its amplifier.
 
     Parameters
@@ -121,6 +122,8 @@ def assemble(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive="both",
         sources are ideal (0 S) where not given.
     caps : dict, optional
         Device capacitances of `device_capacitances`, when the caller has them.
+    cc : ndarray (m,), optional
+        Compensation capacitance per element [F] (a searched Cc); None: ``amp.cc``.
 
     Returns
     -------
@@ -156,7 +159,7 @@ def assemble(stage, devs, bias, tech, op, nodes, vdd, c_load, amp, drive="both",
         node = drive_node(stage, drive)
         if np.isfinite(amp.r_load):
             st.branch(st.g, "out", "0", np.full(m, 1.0 / amp.r_load))
-        st.branch(st.c, "out", node, np.full(m, amp.cc))
+        st.branch(st.c, "out", node, np.broadcast_to(np.asarray(amp.cc if cc is None else cc, dtype=float), (m,)))
         st.branch(st.c, node, "0", np.full(m, amp.c1))
         st.branch(st.g, node, "0", np.full(m, 1.0 / amp.r1))
     idx = np.arange(len(names))

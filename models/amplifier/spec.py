@@ -8,6 +8,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from ..devices.tech import check_range
 
 
@@ -29,6 +31,7 @@ class Amplifier:
     beta: float = 1.0  # 1  feedback factor (1: unity-gain follower)
     gm1: float = 0.0  # S   first-stage transconductance; 0: from ugf, cc and beta
     r_load: float = math.inf  # ohm  resistive load at the output (inf: none)
+    cc_bounds: tuple | None = None  # F  (lower, upper) when the search sizes Cc per design (`Design.cc`)
 
     def __post_init__(self) -> None:
         check_range("ugf", self.ugf, 1.0, 1e11, "Hz")
@@ -39,6 +42,10 @@ class Amplifier:
         check_range("beta", self.beta, 1e-6, 1.0, "")
         check_range("gm1", self.gm1, 0.0, 100.0, "S")
         check_range("r_load", self.r_load, 1e-3, math.inf, "ohm")
+        if self.cc_bounds is not None:
+            lo, hi = self.cc_bounds
+            if not 0.0 < lo <= hi <= 1e-6:
+                raise ValueError(f"cc bounds = ({lo!r}, {hi!r}) F must satisfy 0 < lower <= upper <= 1e-06 F")
         if self.gm1 == 0.0 and self.cc == 0.0:
             raise ValueError("cc = 0 F leaves gm1 = 2 pi ugf cc / beta at zero; give cc > 0 or gm1 > 0")
 
@@ -46,3 +53,19 @@ class Amplifier:
     def transconductance(self) -> float:
         """gm1 [S]: the explicit value, else 2 pi ugf Cc / beta."""
         return self.gm1 if self.gm1 > 0 else 2.0 * math.pi * self.ugf * self.cc / self.beta
+
+    def gm1_for(self, cc):
+        """gm1 [S] for compensation capacitances cc [F] (any shape): the explicit value, else
+        2 pi ugf cc / beta."""
+        return np.full(np.shape(cc), self.gm1) if self.gm1 > 0 else 2.0 * np.pi * self.ugf * np.asarray(cc) / self.beta
+
+    def compensation(self, design_cc, idx):
+        """Cc [F] per element: the design's own (`Design.cc`, at design indices idx) when the
+        search sizes it, else the amplifier's value. Raises ValueError when the amplifier
+        has bounds and the design no value."""
+        if design_cc is not None:
+            return np.asarray(design_cc, dtype=float)[idx]
+        if self.cc_bounds is not None:
+            raise ValueError("the study sizes the compensation capacitor (bounds in [amplifier] compensation): "
+                             "the design needs its own value (a design file's compensation key)")
+        return np.full(np.shape(idx), float(self.cc))

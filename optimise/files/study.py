@@ -8,6 +8,7 @@ is an InputError naming the file, the key, the value and what is allowed.
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -215,6 +216,18 @@ def _amplifier(where, data, amp_targets) -> dict:
     check_keys(where, "amplifier", table, tuple(AMPLIFIER_KEYS), required)
     kw = {}
     for key, (name, unit, lo, hi, default) in AMPLIFIER_KEYS.items():
+        if key == "compensation" and isinstance(table.get(key), list):
+            # [lower, upper]: the search sizes Cc per design (log scale, like a bias).
+            pair = table[key]
+            if len(pair) != 2:
+                raise InputError(where, f"[amplifier] compensation = {show(pair)} is not a value or a "
+                                        "[lower, upper] pair", "e.g. \"3p\" or [\"1p\", \"10p\"] in F")
+            c_lo, c_hi = (number(where, "amplifier", key, x, unit) for x in pair)
+            if not 0 < c_lo <= c_hi <= hi:
+                raise InputError(where, f"[amplifier] compensation = {show(pair)} is not allowed",
+                                 f"0 < lower <= upper <= {hi:g} F")
+            kw["cc_bounds"], kw[name] = (c_lo, c_hi), float(np.sqrt(c_lo * c_hi))
+            continue
         value = number(where, "amplifier", key, table[key], unit, allow_inf=key == "load_resistance") \
             if key in table else default
         if not lo <= value <= hi:
@@ -296,5 +309,12 @@ def load_design(path, tech: Tech) -> Design:
     """Read a design file (architecture, [devices.ROLE] w/l in um, [bias])."""
     where = str(path)
     data = read_toml(path)
-    check_keys(where, "", data, ("architecture", "devices", "bias", "name"), ("architecture", "devices", "bias"))
-    return design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech)
+    check_keys(where, "", data, ("architecture", "devices", "bias", "name", "compensation"),
+               ("architecture", "devices", "bias"))
+    design = design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech)
+    if "compensation" in data:  # this design's Cc, for a study that sizes it
+        cc = number(where, "", "compensation", data["compensation"], "F")
+        if not 0 < cc <= 1e-6:
+            raise InputError(where, f"compensation = {show(data['compensation'])} is not allowed", "0 < Cc <= 1u F")
+        design = dataclasses.replace(design, cc=np.array([cc]))
+    return design

@@ -122,8 +122,12 @@ def _job(data: ReportData) -> list:
         ("amplifier", "none described: no loop gain, phase margin or slew; the output pole is "
                       "gm_out / (2 pi (C_load + C_gates))" if t.amplifier is None else
          f"two-stage Miller, this stage second: target unity gain {format_eng(t.amplifier.ugf, 'Hz')} at feedback "
-         f"{t.amplifier.beta:g}, Cc {format_eng(t.amplifier.cc, 'F')}, gm1 "
-         f"{format_eng(t.amplifier.transconductance, 'S')}, first stage {format_eng(t.amplifier.r1, 'ohm')} "
+         f"{t.amplifier.beta:g}, "
+         + (f"Cc {format_eng(t.amplifier.cc, 'F')}, gm1 {format_eng(t.amplifier.transconductance, 'S')}"
+            if t.amplifier.cc_bounds is None else
+            f"Cc searched from {format_eng(t.amplifier.cc_bounds[0], 'F')} to "
+            f"{format_eng(t.amplifier.cc_bounds[1], 'F')} (gm1 = 2 pi f_u Cc / beta; column cc_f)")
+         + f", first stage {format_eng(t.amplifier.r1, 'ohm')} "
          f"and {format_eng(t.amplifier.c1, 'F')}, {format_eng(t.amplifier.i1, 'A')} available"),
         ("objectives", ", ".join(f"{n} ({'maximise' if v == 'max' else 'minimise'}, {OBJECTIVES[n][0]})"
                                  for n, v in data.objectives.items())),

@@ -37,15 +37,19 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
     }
 
 
-def amplifier_dict(targets) -> dict | None:
-    """The study's amplifier as the evaluate JSON's "amplifier" object (SI), None when the
-    study describes none."""
+def amplifier_dict(targets, design=None, i: int = 0) -> dict | None:
+    """The study's amplifier as the evaluate JSON's "amplifier" object (SI), with design i's
+    own compensation capacitor when the study sizes it; None when the study describes none."""
     amp = targets.amplifier
     if amp is None:
         return None
-    return {"unity_gain_hz": amp.ugf, "compensation_f": amp.cc, "r_out_ohm": amp.r1, "c_out_f": amp.c1,
-            "current_a": amp.i1, "feedback": amp.beta, "transconductance_s": amp.transconductance,
-            "load_resistance_ohm": _finite(amp.r_load)}
+    cc = float(design.cc[i]) if design is not None and design.cc is not None else amp.cc
+    out = {"unity_gain_hz": amp.ugf, "compensation_f": cc, "r_out_ohm": amp.r1, "c_out_f": amp.c1,
+           "current_a": amp.i1, "feedback": amp.beta, "transconductance_s": float(amp.gm1_for(cc)),
+           "load_resistance_ohm": _finite(amp.r_load)}
+    if amp.cc_bounds is not None:
+        out["compensation_bounds_f"] = list(amp.cc_bounds)
+    return out
 
 
 def json_safe(obj, path: str = "", notes: list | None = None):

@@ -68,6 +68,8 @@ def design_rows(design: Design) -> list[dict]:
             row[f"{role}_bulk"] = "source" if role in design.tied else "rail"
         for name, unit in stage.BIAS.items():
             row[f"{name}_{UNIT_SUFFIX[unit]}"] = float(design.bias[name][i])
+        if design.cc is not None:  # the searched compensation capacitor
+            row["cc_f"] = float(design.cc[i])
         rows.append(row)
     return rows
 
@@ -80,7 +82,9 @@ def design_from_row(row: dict | pd.Series) -> Design:
     l = {r: np.array([row[f"{r}_l_um"] * 1e-6]) for r in stage.ROLES}
     tied = frozenset(r for r in stage.ROLES if row[f"{r}_bulk"] == "source")
     bias = {b: np.array([float(row[f"{b}_{UNIT_SUFFIX[u]}"])]) for b, u in stage.BIAS.items()}
-    return Design(arch, w, l, bias, tied)
+    cc = row.get("cc_f") if hasattr(row, "get") else None
+    cc = np.array([float(cc)]) if cc is not None and np.isfinite(float(cc)) else None
+    return Design(arch, w, l, bias, tied, cc)
 
 
 def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFrame, dict]:
@@ -122,13 +126,15 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
         df["_F"] = list(objective_values(res, settings.objectives))
         frames.append(df)
     if not frames:  # nothing feasible: keep the full header so the file still documents its columns
-        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) + list(metric_columns(study))
+        amp = study.targets.amplifier
+        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) \
+            + (["cc_f"] if amp is not None and amp.cc_bounds is not None else []) + list(metric_columns(study))
         cols += [f"margin_{n}" for n in cnames if n != "converged"]
         return pd.DataFrame(columns=cols), results
     table = pd.concat(frames, ignore_index=True)
     F_all = np.stack(table.pop("_F").to_list())
     table.insert(2, "overall_front", non_dominated(F_all))
-    cols = ["id", "architecture", "overall_front"] + [c for c in variable_columns(study.architectures)
+    cols = ["id", "architecture", "overall_front"] + [c for c in variable_columns(study.architectures) + ["cc_f"]
                                                        if c in table.columns]
     cols += [c for c in table.columns if c not in cols]
     return table[cols], results

@@ -30,6 +30,8 @@ to +-I1, I = I1 tanh(gm1 v_diff / I1) (a B source), and a step of the non-invert
 """
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from models.amplifier.inside import model as amplifier_model
@@ -58,6 +60,14 @@ def cap_cards(mod, cards: str, tech) -> str:
     return "\n".join(out)
 
 
+def targets_of(targets, design, k: int):
+    """The targets with the amplifier of design k: its own Cc when the search sizes it."""
+    amp = targets.amplifier
+    if design.cc is None:
+        return targets
+    return dataclasses.replace(targets, amplifier=dataclasses.replace(amp, cc=float(design.cc[k]), cc_bounds=None))
+
+
 def rest_info(design, tech, targets, corner: Corner, temp: float, vdd, idx):
     """Per element (design idx, supply vdd): the driven node's rest voltage [V] and the sign
     of the stage's transfer H(0) from a current into the driven node to the output."""
@@ -66,8 +76,9 @@ def rest_info(design, tech, targets, corner: Corner, temp: float, vdd, idx):
     devs = devices_at(mod, design, tech, shifts, np.full(len(vdd), temp), idx)
     bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
     nodes, ok, _, op = rest_point(mod, devs, bias, vdd, sensitivity=False)
-    g, c, i_d, i_o, _ = amplifier_model(mod, devs, bias, tech, op, nodes, vdd, targets.c_load, targets.amplifier,
-                                        targets.drive)
+    amp = targets.amplifier
+    g, c, i_d, i_o, _ = amplifier_model(mod, devs, bias, tech, op, nodes, vdd, targets.c_load, amp, targets.drive,
+                                        cc=amp.compensation(design.cc, idx))
     _, _, h0, _, _ = poles_zeros(g, c, i_d, i_o)
     node = drive_node(mod, targets.drive)
     return nodes[node], np.sign(h0), ok
@@ -128,7 +139,8 @@ def ac_deck(design, members, study, models, corner: Corner, temp: float, tags=No
     for e, (k, v) in enumerate(zip(idx, vdd)):
         tag = f"{k}v{e % len(supplies)}"
         tags.append(tag)
-        lines += ac_block(mod, f"d{k}", tag, float(v), targets, float(v_rest[e]), float(sign[e]))
+        lines += ac_block(mod, f"d{k}", tag, float(v), targets_of(targets, design, k), float(v_rest[e]),
+                          float(sign[e]))
     lines += [f".ac dec {POINTS_PER_DECADE} {number(F_START)} {number(F_STOP)}", ".end"]
     return "\n".join(lines), tags, list(zip(idx.tolist(), vdd.tolist()))
 
@@ -170,7 +182,7 @@ def slew_deck(design, k: int, study, models, corner: Corner, temp: float, step: 
     """A transient deck of design k at the nominal supply in the closed loop, the input
     stepping by `step` [V] (up) at 1 % of `t_stop` [s]. Returns (deck, output node)."""
     mod = get_stage(design.architecture)
-    tech, targets = study.tech, study.targets
+    tech, targets = study.tech, targets_of(study.targets, design, k)
     amp = targets.amplifier
     vdd = float(study.conditions.vdd_nom)
     v_rest, sign, _ = rest_info(design, tech, targets, corner, temp, np.array([vdd]), np.array([k]))
@@ -216,7 +228,7 @@ def netlist_block(design, study, models, corner: Corner, temp: float, vdd: float
     lines with the model's figures, the stage's subcircuit under its own name with the
     capacitance cards, the bench (nodes ``ac_...``) and its ``.ac`` line."""
     mod = get_stage(design.architecture)
-    targets = study.targets
+    targets = targets_of(study.targets, design, 0)
     v_rest, sign, _ = rest_info(design, study.tech, targets, corner, temp, np.array([vdd]), np.array([0]))
     sub = tb.netlist.subcircuit_name(mod) + "_ac"
     cards, subckt = tb.design_models(mod, design, 0, study.tech, models, corner, temp, sub)
@@ -233,6 +245,7 @@ def netlist_block(design, study, models, corner: Corner, temp: float, vdd: float
         f"right-half-plane zero {mhz('fz_hz')}",
         "*   loop gain T = -V(ac0_fb) / V(ac0_in) from the .ac analysis; the loop is closed at DC",
         f"*   first stage G_1 = {targets.amplifier.transconductance:.6g} S into {drive_node(mod, targets.drive)}, "
+        f"Cc = {targets.amplifier.cc:.6g} F, "
         f"R_1, C_1; C_C from the output; V_AC injects in series with the feedback",
     ]
     if cards:
