@@ -14,7 +14,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .circuit.mirrors import checked, mirror_area, mirror_deviations, source_states
+from .circuit.mirrors import checked, mirror_area, mirror_deviations, source_keys, source_states
+from .amplifier.inside import analyse as _amplifier
+from .amplifier.smallsignal import common_source
 from .devices import mismatch as _mm
 from .devices.mos import gate_capacitance, inversion_coefficient
 from .devices.table import gate_capacitance_from, outside_table
@@ -34,7 +36,7 @@ from .stages import get_stage
 from .summary import check, summarise, supply_power, supply_sensitivity
 
 __all__ = ["LIMIT_NAMES", "PVT_METRICS", "Conditions", "Design", "Result", "Targets", "corner_shifts",
-           "devices_at", "evaluate", "monte_carlo_iq", "pull_down_current", "rest_point"]
+           "devices_at", "evaluate", "loop_gain_at", "monte_carlo_iq", "pull_down_current", "rest_point"]
 
 
 def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
@@ -68,7 +70,6 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
         sigma_pct = np.where(iq > 0, 100.0 * np.sqrt(var) / iq, 0.0)
 
     gm = stage.gm_output(op)
-    fp2 = gm / (2.0 * np.pi * targets.c_load)
 
     reqs = stage.requirements(devs, bias, vdd, nodes, op, targets.vcomp)
     req = np.stack([rq for _, rq in reqs])
@@ -97,6 +98,26 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
             ok = ok & ~outside_table(dev.tab.table, *(spec.polarity * (volts[x] - vb) for x in (spec.g, spec.d, spec.s)),
                                     dev.tab.dvt)
 
+    amp = targets.amplifier
+    if amp is None:
+        # No amplifier described: the output pole of a common-source pair with the
+        # pole-splitting limit Cc >> C1, C2, gm2 / (C1 + C2) (Gray, Hurst, Lewis, Meyer,
+        # 5th ed., sec. 9.4), C1 the output gates, C2 the load; the followers' output pole
+        # stays gm / C_load (their gate capacitance is bootstrapped by the output).
+        c_out = targets.c_load + (c_drive if common_source(stage) else 0.0)
+        fp2 = gm / (2.0 * np.pi * c_out)
+    else:
+        topo = stage.TOPOLOGY
+        gate_n, gate_p = topo.spec(stage.PULL_DOWN).g, topo.spec(stage.PULL_UP).g
+        limits = [{gate_n: g[0], gate_p: g[1]} for g in (g_src, g_snk)]
+        # Mirror sources load their nodes with their output conductance at rest.
+        g_source = None if sources is None else {name: op[name][1] for name in source_keys(topo) if name in op}
+        amp_out, ok_amp = _amplifier(stage, devs, bias, tech, op, nodes, vdd, targets.c_load, amp, targets.drive,
+                                     (i_src, i_snk), limits, g_source=g_source,
+                                     cc=amp.compensation(design.cc, idx_design))
+        ok = ok & ok_amp
+        fp2 = amp_out.pop("fp2_hz")
+        extra.update(amp_out)
     res = {
         "iq_a": iq, "headroom_high_v": hh, "headroom_low_v": hl, "swing_v": vdd - hh - hl,
         "iout_source_a": i_src, "iout_sink_a": i_snk, "ab_ratio": ab,
@@ -164,6 +185,44 @@ def evaluate(design: Design, tech: Tech, cond: Conditions, targets: Targets, chu
     if checked(targets.mirrors) and "mirror_compliance" not in margins:  # one set of constraints per study
         margins["mirror_compliance"] = np.full(n, np.inf)
     return Result(design.architecture, corner, temp, vdd, pvt, summary, converged, req_names, violations, margins)
+
+
+def loop_gain_at(design: Design, tech: Tech, corner: Corner, temp: float, vdd: float, targets: Targets, f):
+    """The loop gain of one design inside the targets' amplifier at one PVT point.
+
+    Parameters
+    ----------
+    design : Design
+        One design (arrays of shape (1,)).
+    corner, temp, vdd : the PVT point ([K], [V]).
+    targets : Targets
+        With an amplifier (`Targets.amplifier`).
+    f : ndarray (nf,)
+        Frequencies [Hz].
+
+    Returns
+    -------
+    magnitude_db, phase_deg : ndarray (nf,)
+        20 log10 |T| and the phase of T, unwrapped from 0 at DC (phase margin: 180 + phase
+        where |T| = 1).
+    """
+    from .amplifier.inside import model as amplifier_model
+    from .amplifier.response import loop_gain, poles_zeros
+
+    stage = get_stage(design.architecture)
+    idx = np.zeros(1, dtype=int)
+    devs = devices_at(stage, design, tech, corner_shifts(tech, [corner]), np.array([float(temp)]), idx)
+    bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
+    vdd_arr = np.array([float(vdd)])
+    nodes, _, _, op = rest_point(stage, devs, bias, vdd_arr, sensitivity=False)
+    amp = targets.amplifier
+    cc = amp.compensation(design.cc, idx)
+    g, c, i_d, i_o, _ = amplifier_model(stage, devs, bias, tech, op, nodes, vdd_arr, targets.c_load, amp,
+                                        targets.drive, cc=cc)
+    mu_p, mu_z, h0, _, _ = poles_zeros(g, c, i_d, i_o)
+    t0 = amp.beta * amp.gm1_for(cc) * np.abs(h0)
+    logt, phase, _ = loop_gain(t0, mu_p, mu_z, np.asarray(f, dtype=float)[None, :])
+    return 20.0 * logt[0], phase[0]
 
 
 def monte_carlo_iq(design: Design, tech: Tech, corner: Corner, temp: float, vdd: float, samples: int,

@@ -11,8 +11,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .circuit.mirrors import source_keys
+from .amplifier.inside import METRICS as AMPLIFIER_METRICS
+from .amplifier.spec import Amplifier
 from .devices.tech import Corner, check_range
 from .stages import get_stage
+
+__all__ = ["AMPLIFIER_METRICS", "Amplifier", "Conditions", "Design", "LIMIT_NAMES", "PVT_METRICS", "Result",
+           "Targets"]
 
 PVT_METRICS = (
     "iq_a", "headroom_high_v", "headroom_low_v", "swing_v", "iout_source_a", "iout_sink_a",
@@ -27,7 +32,9 @@ class Design:
     """A population of n designs of one architecture. Arrays have shape (n,), SI units.
 
     w, l: role -> width and length [m]; bias: bias name -> value [A or ohm];
-    tied: roles whose bulk sits on their source (own well).
+    tied: roles whose bulk sits on their source (own well); cc: the amplifier's
+    compensation capacitance per design [F] when the search sizes it (None: the amplifier's
+    own value).
     """
 
     architecture: str
@@ -35,6 +42,7 @@ class Design:
     l: dict
     bias: dict
     tied: frozenset = frozenset()
+    cc: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         stage = get_stage(self.architecture)
@@ -56,6 +64,8 @@ class Design:
         for name, arr in self.bias.items():
             if np.any(~(np.asarray(arr) > 0)):
                 raise ValueError(f"[bias] {name} = {np.min(arr)!r} {stage.BIAS[name]} must be positive")
+        if self.cc is not None and np.any(~(np.asarray(self.cc) > 0)):
+            raise ValueError(f"compensation cc = {np.min(self.cc)!r} F must be positive")
         bad = sorted(set(self.tied) - set(stage.ROLES))
         if bad:
             raise ValueError(f"bulk ties name unknown roles {', '.join(bad)}")
@@ -68,7 +78,8 @@ class Design:
         """The designs at the integer positions idx, as a population of their own."""
         return Design(self.architecture, {k: np.asarray(v)[idx] for k, v in self.w.items()},
                       {k: np.asarray(v)[idx] for k, v in self.l.items()},
-                      {k: np.asarray(v)[idx] for k, v in self.bias.items()}, self.tied)
+                      {k: np.asarray(v)[idx] for k, v in self.bias.items()}, self.tied,
+                      None if self.cc is None else np.asarray(self.cc)[idx])
 
 
 @dataclass(frozen=True, slots=True)
@@ -145,6 +156,10 @@ class Targets:
     # Bias sources as mirrors: architecture -> study key (`circuit.mirrors.source_keys`) ->
     # `circuit.mirrors.Mirror`; a source not named is ideal (the default for every source).
     mirrors: dict = field(default_factory=dict)
+    amplifier: Amplifier | None = None  # the amplifier the stage sits in; None: none described
+    phase_margin_min: float = 0.0  # deg  lowest phase margin of the loop gain (needs the amplifier)
+    slew_min: float = 0.0  # V/s   lowest output slew rate (needs the amplifier)
+    gate_time_max: float = np.inf  # s  longest time to move the gates to the drive limit (needs the amplifier)
 
     def __post_init__(self) -> None:
         check_range("i_load", self.i_load, 1e-9, 10.0, "A")
@@ -156,6 +171,13 @@ class Targets:
         if not self.power_max > 0 or not self.iout_peak_max > 0:
             raise ValueError(f"power_max = {self.power_max} W and iout_peak_max = {self.iout_peak_max} A must be "
                              f"positive (inf switches them off)")
+        if self.amplifier is None:
+            for name, off in (("phase_margin_min", 0.0), ("slew_min", 0.0), ("gate_time_max", np.inf)):
+                if getattr(self, name) != off:
+                    raise ValueError(f"{name} needs an amplifier description (the stage's surrounding amplifier)")
+        check_range("phase_margin_min", self.phase_margin_min, 0.0, 180.0, "deg")
+        check_range("slew_min", self.slew_min, 0.0, 1e12, "V/s")
+        check_range("gate_time_max", self.gate_time_max, 0.0, np.inf, "s")
         if self.iq_min > self.iq_max:
             raise ValueError(f"iq window is inverted: min {self.iq_min} A > max {self.iq_max} A")
         for arch, table in self.mirrors.items():

@@ -49,7 +49,7 @@ def summarise(pvt, design, stage, cond, corner, temp, vdd, targets):
     j = cond.nominal_index()
     area = sum(np.asarray(design.w[r]) * np.asarray(design.l[r]) for r in stage.ROLES) * targets.layout_factor
     sens = pvt["supply_sens_pct_per_v"]
-    return {
+    out = {
         "iq_a": pvt["iq_a"][:, j],
         "iq_min_a": pvt["iq_a"].min(axis=1),
         "iq_max_a": pvt["iq_a"].max(axis=1),
@@ -70,6 +70,11 @@ def summarise(pvt, design, stage, cond, corner, temp, vdd, targets):
         "fp2_hz": pvt["fp2_hz"].min(axis=1),
         "c_drive_f": pvt["c_drive_f"].max(axis=1),
     }
+    if "phase_margin_deg" in pvt:  # an amplifier is described: the worst case over PVT
+        for name, worst in (("ugf_hz", np.min), ("phase_margin_deg", np.min), ("p1_hz", np.min), ("fint_hz", np.min),
+                            ("fz_hz", np.min), ("slew_v_per_s", np.min), ("gate_time_s", np.max)):
+            out[name] = worst(pvt[name], axis=1)
+    return out
 
 
 def where(corner, temp, vdd, j):
@@ -113,6 +118,13 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
             else np.full((n, k), inf)
         m["iout_peak"] = (targets.iout_peak_max - peak_hi) / targets.iout_peak_max \
             if np.isfinite(targets.iout_peak_max) else np.full((n, k), inf)
+        if targets.amplifier is not None:  # the amplifier's targets, only when one is described
+            m["phase_margin"] = (pvt["phase_margin_deg"] - targets.phase_margin_min) / targets.phase_margin_min \
+                if targets.phase_margin_min > 0 else np.full((n, k), inf)
+            m["slew"] = (pvt["slew_v_per_s"] - targets.slew_min) / targets.slew_min if targets.slew_min > 0 \
+                else np.full((n, k), inf)
+            m["gate_time"] = (targets.gate_time_max - pvt["gate_time_s"]) / targets.gate_time_max \
+                if np.isfinite(targets.gate_time_max) else np.full((n, k), inf)
     sig = f" {{}} {targets.iq_sigmas:g} sigma" if targets.iq_sigmas else ""
 
     def at(j):
@@ -148,6 +160,13 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
         "power": lambda i, j: f"power = {eng(pvt['power_w'][i, j], 'W')} > {eng(targets.power_max, 'W')} {at(j)}",
         "iout_peak": lambda i, j: f"peak output current at full drive = {eng(peak_hi[i, j], 'A')} > cap "
                                   f"{eng(targets.iout_peak_max, 'A')} {at(j)}",
+        "phase_margin": lambda i, j: f"phase margin = {pvt['phase_margin_deg'][i, j]:.3g} deg < "
+                                     f"{targets.phase_margin_min:.3g} deg {at(j)} "
+                                     f"(unity gain at {eng(pvt['ugf_hz'][i, j], 'Hz')})",
+        "slew": lambda i, j: f"slew rate = {pvt['slew_v_per_s'][i, j] * 1e-6:.3g} V/us < "
+                             f"{targets.slew_min * 1e-6:.3g} V/us {at(j)}",
+        "gate_time": lambda i, j: f"time to move the gates to the drive limit = {eng(pvt['gate_time_s'][i, j], 's')}"
+                                  f" > {eng(targets.gate_time_max, 's')} {at(j)}",
     }
     margins, worst = {}, {}
     for key, arr in m.items():

@@ -17,7 +17,7 @@ from .files.errors import InputError
 from .files.space import study_ties
 from .files.study import load_design, load_study
 from .files.units import format_eng
-from .review.evaluation import json_safe, result_to_dict
+from .review.evaluation import amplifier_dict, json_safe, result_to_dict
 from .review.montecarlo import confirm_sigma
 from .search.runtime import keep_freed_memory
 
@@ -29,7 +29,8 @@ SUMMARY_UNITS = {
     "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "power_max_w": "W", "headroom_high_v": "V",
     "headroom_low_v": "V", "swing_v": "V", "iout_source_a": "A", "iout_sink_a": "A", "iout_peak_a": "A",
     "ab_ratio": "", "area_um2": "um^2", "iq_sigma_pct": "%", "supply_sens_pct_per_v": "%/V", "vdd_min_v": "V",
-    "fp2_hz": "Hz", "c_drive_f": "F",
+    "fp2_hz": "Hz", "c_drive_f": "F", "ugf_hz": "Hz", "phase_margin_deg": "deg", "p1_hz": "Hz",
+    "fint_hz": "Hz", "fz_hz": "Hz", "slew_v_per_s": "V/s", "gate_time_s": "s",
 }
 SUMMARY_MEANING = {
     "iq_a": "quiescent current (tt, nominal supply and temperature)",
@@ -48,8 +49,15 @@ SUMMARY_MEANING = {
     "iq_sigma_pct": "worst 1-sigma Iq spread from mismatch",
     "supply_sens_pct_per_v": "worst Iq change per volt of supply",
     "vdd_min_v": "lowest supply keeping every device in its region",
-    "fp2_hz": "lowest output pole gm_out / (2 pi C_load)",
+    "fp2_hz": "lowest output pole (gm_out / (2 pi (C_load + C_gates)) without an amplifier)",
     "c_drive_f": "gate capacitance the stage loads its driver with",
+    "ugf_hz": "lowest unity-gain frequency of the loop gain",
+    "phase_margin_deg": "worst phase margin of the loop gain",
+    "p1_hz": "lowest dominant pole",
+    "fint_hz": "lowest internal pole (the control path)",
+    "fz_hz": "lowest right-half-plane zero",
+    "slew_v_per_s": "lowest output slew rate",
+    "gate_time_s": "longest time to move the gates to the drive limit",
 }
 LIMIT_WORDS = ("limits: what stops the drive on each side (source/sink). compliance: the driver got within "
                "its compliance of the rail; control-saturation: the bias loop's control device left saturation "
@@ -61,11 +69,21 @@ def _shown(name: str, value, unit: str) -> str:
         return "yes" if value else "CANNOT DELIVER"
     if value is None:
         return "cannot deliver" if name in ("headroom_high_v", "headroom_low_v", "swing_v") else "n/a"
-    return f"{value:.4g} {unit}".rstrip() if unit in ("", "%", "%/V", "um^2") else format_eng(value, unit)
+    if unit == "V/s":
+        return f"{value * 1e-6:.4g} V/us"
+    return f"{value:.4g} {unit}".rstrip() if unit in ("", "%", "%/V", "um^2", "deg") else format_eng(value, unit)
 
 
 def _print_table(out: dict, mc: dict | None) -> None:
     print(f"architecture: {out['architecture']}    feasible: {'yes' if out['feasible'] else 'no'}")
+    amp = out.get("amplifier")
+    if amp is None:
+        print("amplifier: none described (no [amplifier] table): no loop gain, phase margin or slew; fp2_hz is "
+              "gm_out / (2 pi (C_load + C_gates))")
+    else:
+        print(f"amplifier: two-stage Miller, target unity gain {format_eng(amp['unity_gain_hz'], 'Hz')}, "
+              f"Cc {format_eng(amp['compensation_f'], 'F')}, gm1 {format_eng(amp['transconductance_s'], 'S')}, "
+              f"feedback {amp['feedback']:g}, first-stage current {format_eng(amp['current_a'], 'A')}")
     print()
     for name, value in out["summary"].items():
         print(f"  {name:24s} {_shown(name, value, SUMMARY_UNITS.get(name, '')):>14s}   {SUMMARY_MEANING.get(name, '')}")
@@ -118,6 +136,7 @@ def cmd_evaluate(args) -> int:
     for line in length_warnings(study.tech, [design]):
         print(f"warning: {line}", file=sys.stderr)
     out = result_to_dict(res)
+    out["amplifier"] = amplifier_dict(study.targets, design)
     mc = None
     if args.montecarlo:
         if not 2 <= args.montecarlo <= MAX_MONTECARLO:

@@ -2,7 +2,6 @@
 refused, and --resume refuses when the study or technology text changed."""
 from __future__ import annotations
 
-import json
 import pickle
 import zipfile
 from pathlib import Path

@@ -127,7 +127,8 @@ def test_study_fuzz(data):
     c, t = study.conditions, study.targets
     assert 0 < c.vdd_min <= c.vdd_nom <= c.vdd_max <= 60
     assert all(math.isfinite(x) and x > 0 for x in c.temps)  # kelvin
-    finite_fields(t, allow_inf=("iq_max", "headroom_max", "area_max", "power_max", "iout_peak_max"))
+    finite_fields(t, allow_inf=("iq_max", "headroom_max", "area_max", "power_max", "iout_peak_max",
+                                  "gate_time_max"))
     for name in ("i_load", "c_load", "iq_min", "iq_max", "iq_sigmas", "headroom_max", "ab_min", "area_max",
                  "fp2_min", "layout_factor", "power_max", "iout_peak_max"):
         assert getattr(t, name) >= 0, name

@@ -113,7 +113,7 @@ def test_netlist_devices_carry_diffusion_geometry(run, tmp_path):
     deck = tmp_path / "d.cir"
     assert main(["netlist", str(run), "--row", rid, "--out", str(deck)]) == 0
     lines = [ln for ln in deck.read_text().splitlines() if ln.startswith("M_")]
-    assert len(lines) == 8
+    assert len(lines) == 2 * 8  # the stage's 8 devices, in its subcircuit and in the AC bench's copy
     study = study_of_run(r.path, r.record)
     for ln in lines:
         w = float(re.search(r" w=([0-9.e+-]+)", ln).group(1))

@@ -34,9 +34,9 @@ r_bias = "100k"
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
-    """A small run folder with a few floating-loop rows (population 8 x 3 generations)."""
+    """A small run folder with a few floating-loop rows (population 12 x 4 generations)."""
     tmp = tmp_path_factory.mktemp("hostile")
-    study = tiny_study(tmp, population=8, generations=3)
+    study = tiny_study(tmp, population=12, generations=4)
     out = tmp / "run"
     assert main(["optimise", str(study), "--out", str(out)]) == 0
     assert len((out / "front.csv").read_text().splitlines()) >= 3, "the fixture needs two rows or more"

@@ -26,7 +26,7 @@ MODELS = ["models"] + sorted(info.name for info in pkgutil.walk_packages(models.
 
 # Lowest first. A module belongs to the longest entry its dotted name starts with; "models"
 # holds the top modules (evaluate, summary), "optimise" only the package's constants.
-FLOORS = ["models.numerics", "models.devices", "models.circuit", "models.stages", "models",
+FLOORS = ["models.numerics", "models.devices", "models.circuit", "models.stages", "models.amplifier", "models",
           "optimise", "optimise.files", "optimise.search", "optimise.review", "optimise.report",
           "optimise.spice", "optimise.calibrate", "optimise.sweep", "optimise.cli"]
 MAX_LINES = 450

@@ -263,3 +263,18 @@ def test_search_constrains_mirror_compliance_for_every_architecture(tmp_path):
     record = (out / "run.json").read_text()
     assert '"mirror_compliance"' in record
     assert "margin_mirror_compliance" in (out / "front.csv").read_text().splitlines()[0]
+
+
+def test_mirror_output_resistance_loads_the_amplifiers_nodes():
+    # The demo describes an amplifier: its small-signal model must see each mirror's output
+    # conductance 1 / r_out where the source feeds a node. With 100 Mohm sources the rest
+    # point moves little (Iq +1.5 %, as measured), but the high-resistance nodes of the bias
+    # loop lose gain, so the dominant pole rises by about a fifth (30.6 -> 37.1 Hz measured);
+    # without the conductances in the matrices it would move with Iq alone.
+    study, design = demo()
+    keys = source_keys(get_stage("floating-loop").TOPOLOGY).values()
+    lossy = {"floating-loop": {k: Mirror(sigma_pct=0.0, r_out=1e8) for k in keys}}
+    ideal = evaluate(design, study.tech, study.conditions, study.targets)
+    real = evaluate(design, study.tech, study.conditions, dataclasses.replace(study.targets, mirrors=lossy))
+    assert real.pvt["iq_a"][0, 0] / ideal.pvt["iq_a"][0, 0] == pytest.approx(1.0, abs=0.03)
+    assert real.pvt["p1_hz"][0, 0] / ideal.pvt["p1_hz"][0, 0] > 1.1

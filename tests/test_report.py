@@ -27,14 +27,15 @@ DEMO = ROOT / "studies" / "sensor-buffer.toml"
 
 
 def make_run(tmp: Path) -> Path:
-    """A tiny run folder: the demo study cut to tt and ss at 27 C, population 12 x 4 generations."""
+    """A tiny run folder: the demo study cut to tt and ss at 27 C, population 16 x 6 generations (enough for
+    several feasible designs under the amplifier's phase-margin target)."""
     text = DEMO.read_text().replace('"tech/', f'"{ROOT / "studies" / "tech"}/')
     text = text.replace("temperatures_c = [27, -40, 125]", "temperatures_c = [27]")
     text = text.replace('corners = ["tt", "ff", "ss", "fs", "sf"]', 'corners = ["tt", "ss"]')
     study = tmp / "tiny.toml"
     study.write_text(text)
     out = tmp / "run"
-    assert main(["optimise", str(study), "--out", str(out), "--population", "12", "--generations", "4"]) == 0
+    assert main(["optimise", str(study), "--out", str(out), "--population", "16", "--generations", "6"]) == 0
     return out
 
 
@@ -113,7 +114,7 @@ def test_page_needs_no_outside_resource(report):
     assert not re.search(r"https?:", page, flags=re.I)
     assert not re.search(r"""(?:src|href)\s*=\s*["']?//""", page, flags=re.I)
     srcs = re.findall(r'<img[^>]*\ssrc="([^"]*)"', page)
-    assert len(srcs) == 4  # fronts, parallel coordinates, mismatch, supply
+    assert len(srcs) == 5  # fronts, parallel coordinates, the knee's loop gain (the demo has an amplifier), mismatch, supply
     for src in srcs:
         head, data = src.split(",", 1)
         assert head == "data:image/png;base64"
@@ -124,7 +125,8 @@ def test_page_needs_no_outside_resource(report):
 def test_markdown_figures_are_written_beside_it(report):
     run, _, md = report
     names = re.findall(r"!\[[^\]]*\]\(([^)]+)\)", md)
-    assert names == ["report-fronts.png", "report-parallel.png", "report-mismatch.png", "report-supply.png"]
+    assert names == ["report-fronts.png", "report-parallel.png", "report-bode.png", "report-mismatch.png",
+                     "report-supply.png"]
     for name in names:
         assert (run / name).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 

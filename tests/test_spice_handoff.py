@@ -18,12 +18,14 @@ from __future__ import annotations
 
 import csv
 import re
+import tempfile
 import tomllib
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+from models.devices.tech import Corner
 from models.stages import get_stage
 from optimise.cli import main
 from optimise.files.techfile import load_tech
@@ -239,9 +241,29 @@ def test_calibration_recovers_level1_parameters(tmp_path, capsys):
         # lambda is per volt at the one length swept (1 um): VA = 1 / lambda = va_per_l L.
         assert mt.va_per_l * 1e-6 == pytest.approx(want["va"], rel=0.02), pol
     assert "weak inversion" in report and "triode" in report
+    # Without TOX a level-1 card has no gate charge: cox and cov stay marked as not measured.
+    assert "# F/m^2, default, not calibrated" in out.read_text()
     # Refuses to overwrite without --overwrite.
     code, _, err = _run(["calibrate", "--models", card, "--lmin", "1u", "--vdd", "5", "--out", out], capsys)
     assert code == 2 and "--overwrite" in err
+
+
+@pytest.mark.ngspice
+def test_gate_capacitances_are_read_from_the_cards_ac_response():
+    # Level 1 with TOX and overlaps: Cox = eps_ox / TOX with eps_ox = 3.9 eps0 (ngspice's
+    # level-1 constant; textbook fact, e.g. Sedra and Smith), overlap = CGDO per metre of width.
+    # Meyer's model gives Cgd = 0 in saturation and Cgs + Cgd = Cox W L at VDS = 0 in strong
+    # inversion, so both are recovered to the simulator's precision.
+    from optimise.calibrate.devicefit import gate_capacitances
+    card = ("* level 1 with gate charge\n.model nch nmos (level=1 vto=0.7 kp=110u tox=20n cgdo=3e-10 cgso=3e-10)\n"
+            ".model pch pmos (level=1 vto=-0.7 kp=50u tox=25n cgdo=2e-10 cgso=2e-10)\n")
+    with tempfile.TemporaryDirectory() as d:
+        path = Path(d) / "caps.mod"
+        path.write_text(card)
+        caps = gate_capacitances(tb.load_models(path, "nch", "pch"), Corner.TT, 27.0, 2e-6, 3.3)
+    eps_ox = 3.9 * 8.854214871e-12
+    assert caps[1] == pytest.approx((eps_ox / 20e-9, 3e-10), rel=1e-4)
+    assert caps[-1] == pytest.approx((eps_ox / 25e-9, 2e-10), rel=1e-4)
 
 
 # ---------------------------------------------------------------------------------------

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import re
 
-import numpy as np
 import pytest
 
 from optimise.files.errors import InputError

@@ -18,6 +18,7 @@ import numpy as np
 from scipy.special import expit
 
 from .conditions import Mos, early_voltage, specific_current
+from .tech import MosTech
 
 
 def ekv_f(x):
@@ -113,3 +114,35 @@ def saturation_voltage(m: Mos, w, l, i_abs, slope):
     ispec = specific_current(m, w, l)
     v = m.ut * (2.0 * np.sqrt(i_abs / ispec) + 4.0)
     return (v, m.ut / np.sqrt(np.maximum(i_abs, 1e-18) * ispec)) if slope else v
+
+
+def capacitances(m: Mos, mt: MosTech, w, l, vgb, vdb, vsb):
+    """Small-signal capacitances of one device at a bias point (frame voltages) [F].
+
+    Intrinsic part from the normalised inversion charges of the charge-based model,
+    qs = sqrt(1/4 + if) - 1/2 and qd = sqrt(1/4 + ir) - 1/2 (if, ir the forward and
+    reverse inversion coefficients):
+    cgs = Cox W L qs (2 qs + 4 qd + 3) / (3 (qs + qd + 1)^2), cgd the same with qs and qd
+    exchanged, cgb = Cox W L (n - 1)/n (1 - cgs/(Cox W L) - cgd/(Cox W L)).
+    Limits: strong-inversion saturation cgs = 2/3 Cox W L, cgd = 0; triode at VDS = 0
+    cgs = cgd = 1/2 Cox W L; weak inversion cgb = Cox W L (n - 1)/n. Overlap W Cov on both
+    the source and the drain side. No junction data in the technology file: cdb = csb = 0.
+
+    Returns (cgs, cgd, cgb, cdb, csb), broadcast shape of the inputs.
+
+    References: C. C. Enz, E. A. Vittoz, Charge-Based MOS Transistor Modeling, Wiley 2006,
+    ch. 4 (intrinsic capacitances in terms of the normalised charges; from memory).
+    """
+    vp = (np.asarray(vgb, dtype=float) - m.vt0) / m.n
+    i_f = ekv_f((vp - np.asarray(vsb)) / m.ut)
+    i_r = ekv_f((vp - np.asarray(vdb)) / m.ut)
+    qs = np.sqrt(0.25 + i_f) - 0.5
+    qd = np.sqrt(0.25 + i_r) - 0.5
+    den = 3.0 * (qs + qd + 1.0) ** 2
+    c_s = qs * (2.0 * qs + 4.0 * qd + 3.0) / den
+    c_d = qd * (2.0 * qd + 4.0 * qs + 3.0) / den
+    w = np.asarray(w, dtype=float)
+    cwl = mt.cox * w * np.asarray(l, dtype=float)
+    cov = mt.cov * w
+    zero = np.zeros(np.broadcast(cwl, c_s).shape)
+    return cwl * c_s + cov, cwl * c_d + cov, cwl * (m.n - 1.0) / m.n * (1.0 - c_s - c_d), zero, zero

@@ -1,7 +1,14 @@
 """The device interface every stage uses, whatever the model kind: drain current with partial
 derivatives, closed-form inverses (gate and source voltage in saturation, diode voltage),
-saturation voltage and gate capacitance. Each kind's equations live in its own module
-(`ekv`, `square_law`, `table`); this one dispatches on `Mos.kind`.
+saturation voltage, gate capacitance and the small-signal capacitances. Each kind's
+equations live in its own module (`ekv`, `square_law`, `table`); this one dispatches on `Mos.kind`.
+
+Every kind module implements `partials(m, w, l, vgb, vdb, vsb, dvt, dbeta)` and
+`capacitances(m, mt, w, l, vgb, vdb, vsb)`: m the `Mos` at its conditions, mt the
+`MosTech` of the polarity (cox, cov and whatever else the kind needs), w, l [m], frame
+voltages [V] (bulk referenced, times the polarity); it returns (cgs, cgd, cgb, cdb, csb)
+[F], each the broadcast shape: gate-source and gate-drain (intrinsic plus overlap),
+gate-bulk, drain-bulk and source-bulk (junction) capacitances, all >= 0.
 
 Validity
 --------
@@ -60,7 +67,7 @@ __all__ = [
     "Mos", "at_conditions", "early_voltage", "inversion_coefficient", "specific_current",
     "ekv_constants", "ekv_f", "ekv_f_inverse", "ekv_f_prime", "ekv_gate_sat", "ekv_terms",
     "current_partials", "current", "gate_voltage_sat", "source_voltage_sat", "diode_voltage",
-    "refine_diode", "saturation_voltage", "gate_capacitance",
+    "refine_diode", "saturation_voltage", "gate_capacitance", "capacitances",
 ]
 
 _KINDS = {ModelKind.EKV: ekv, ModelKind.SQUARE_LAW: square_law, ModelKind.TABLE: table}
@@ -198,3 +205,27 @@ def gate_capacitance(mt: MosTech, w, l, ic):
     w = np.asarray(w, dtype=float)
     frac = ((mt.n - 1.0) / mt.n + (2.0 / 3.0) * ic) / (1.0 + ic)
     return mt.cox * w * np.asarray(l) * frac + 2.0 * mt.cov * w
+
+
+def capacitances(m: Mos, mt: MosTech, w, l, vg, vd, vs, vb=0.0):
+    """Small-signal capacitances of a device at a bias point [F].
+
+    Parameters
+    ----------
+    m : Mos
+        Device polarity and parameters at its operating conditions.
+    mt : MosTech
+        The polarity's technology constants (cox, cov).
+    w, l : float or ndarray
+        Drawn width and length [m].
+    vg, vd, vs, vb : float or ndarray
+        Physical node voltages [V] (vb = vs for a device in its own well).
+
+    Returns
+    -------
+    cgs, cgd, cgb, cdb, csb : ndarray
+        Gate-source and gate-drain (intrinsic plus overlap), gate-bulk, drain-bulk and
+        source-bulk capacitances [F], each the broadcast shape; see the kind modules.
+    """
+    vgb, vdb, vsb = frame(m, vg, vd, vs, vb)
+    return _KINDS[m.kind].capacitances(m, mt, w, l, vgb, vdb, vsb)

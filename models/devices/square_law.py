@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from .conditions import Mos, early_voltage
+from .tech import MosTech
 
 
 def threshold(m, vsb, dvt):
@@ -89,3 +90,45 @@ def saturation_voltage(m: Mos, w, l, i_abs, slope):
     beta = m.kp * np.asarray(w) / np.asarray(l)
     v = np.sqrt(2.0 * i_abs / beta)
     return (v, 1.0 / np.sqrt(2.0 * np.maximum(i_abs, 1e-18) * beta)) if slope else v
+
+
+def capacitances(m: Mos, mt: MosTech, w, l, vgb, vdb, vsb):
+    """Small-signal capacitances of one device at a bias point (frame voltages) [F]:
+    Meyer's gate capacitances as SPICE level 1 evaluates them, plus overlap.
+
+    With VGST = VGS - VT (VT with body effect), VDSAT = max(VGST, 0.025 V) and
+    C0 = Cox W L: VGST <= -phi: cgb = C0; -phi < VGST <= -phi/2: cgb = -VGST C0 / phi;
+    -phi/2 < VGST <= 0: cgb as before and cgs = 2/3 C0 + 4/3 C0 VGST / phi (split with
+    cgd as below when VDS < VDSAT); VGST > 0: saturation (VDS >= VDSAT) cgs = 2/3 C0,
+    cgd = 0; triode cgs = 2/3 C0 (1 - (VDSAT - VDS)^2 / (2 VDSAT - VDS)^2),
+    cgd = 2/3 C0 (1 - VDSAT^2 / (2 VDSAT - VDS)^2). Overlap W Cov on the source and
+    drain sides (CGSO = CGDO = Cov), none to the bulk. A reversed device (VDS < 0) is the
+    same device with drain and source exchanged. No junction data in the technology file:
+    cdb = csb = 0 (level 1 with CJ = 0).
+
+    Returns (cgs, cgd, cgb, cdb, csb), broadcast shape of the inputs.
+
+    References: J. E. Meyer, "MOS models and circuit simulation", RCA Review 32, 1971;
+    the level-1 evaluation as in SPICE2/ngspice (from memory).
+    """
+    vgb, vdb, vsb = (np.asarray(v, dtype=float) for v in (vgb, vdb, vsb))
+    swap = vdb < vsb
+    vs_ = np.where(swap, vdb, vsb)
+    vd_ = np.where(swap, vsb, vdb)
+    vth, _ = threshold(m, vs_, 0.0)
+    vgst = vgb - vs_ - vth
+    vds = vd_ - vs_
+    vdsat = np.maximum(vgst, 0.025)
+    c0 = mt.cox * np.asarray(w, dtype=float) * np.asarray(l, dtype=float)
+    phi = m.phi
+    cgb = np.where(vgst <= -phi, c0, np.where(vgst <= 0.0, -vgst * c0 / phi, 0.0))
+    depleted = np.where(vgst > -0.5 * phi, 2.0 / 3.0 * c0 + 4.0 / 3.0 * c0 * vgst / phi, 0.0)
+    cgs_on = np.where(vgst > 0.0, 2.0 / 3.0 * c0, depleted)
+    dif2 = (2.0 * vdsat - vds) ** 2
+    tri = vds < vdsat
+    cgs = np.where(tri, cgs_on * (1.0 - (vdsat - vds) ** 2 / dif2), cgs_on)
+    cgd = np.where(tri, cgs_on * (1.0 - vdsat**2 / dif2), 0.0)
+    cov = mt.cov * np.asarray(w, dtype=float)
+    cgs, cgd = np.where(swap, cgd, cgs) + cov, np.where(swap, cgs, cgd) + cov
+    zero = np.zeros(np.shape(cgs))
+    return cgs, cgd, cgb, zero, zero

@@ -201,6 +201,33 @@ def quantity_forward(c: TableConstants, name: str, vgs, vds, vsb):
     return out * c.width_scale
 
 
+def capacitances(m: Mos, mt, w, l, vgb, vdb, vsb):
+    """Small-signal capacitances of one device at a bias point (frame voltages) [F], from
+    the card as tabulated (the interface of every kind; see `mos.capacitances`).
+
+    ngspice reports BSIM's intrinsic transcapacitances: cgg = dQg/dVg and cgs = dQg/dVs,
+    cgd = dQg/dVd (both negative), without the overlap charges. So the intrinsic
+    gate-source part is -cgs, gate-drain -cgd, gate-bulk cgg + cgs + cgd (the rest of the
+    gate charge), each clipped at zero, and the overlap W Cov of the technology's summary
+    constants is added on the source and drain sides. The tables hold no junction data
+    (the tabulation draws no source or drain area): cdb = csb = 0, as for the analytic kinds.
+
+    Returns (cgs, cgd, cgb, cdb, csb), broadcast shape of the inputs.
+
+    Reference: BSIM3v3.2 manual (UC Berkeley, 1998), ch. 5, for the charge partition and the
+    transcapacitance signs (from memory); the signs here were read off ngspice's output.
+    """
+    shape = _shape(m, w, l, vgb, vdb, vsb)
+    w, l, vgb, vdb, vsb = _flat(shape, w, l, vgb, vdb, vsb)
+    c = constants(_flat_mos(m, shape), w, l)
+    cgg, cgs, cgd = (quantity(c, q, vgb, vdb, vsb) for q in ("cgg", "cgs", "cgd"))
+    ov = mt.cov * w
+    c_gs, c_gd = np.maximum(-cgs, 0.0), np.maximum(-cgd, 0.0)
+    c_gb = np.maximum(cgg - c_gs - c_gd, 0.0)
+    zero = np.zeros(shape)
+    return (np.reshape(c_gs + ov, shape), np.reshape(c_gd + ov, shape), np.reshape(c_gb, shape), zero, zero)
+
+
 def gate_capacitance_from(c: TableConstants, m: Mos, w, l, i_abs):
     """Gate capacitance cgg [F] as ngspice reports it, at the VGS that carries i_abs in
     saturation (VSB = 0, half-span VDS), scaled to the instance's width."""

@@ -13,8 +13,9 @@ nominal temperature (27 degC) on the typical section, at two more temperatures (
 
 `--kind` selects which fit the file's vt0 and kp (and its model line) come from; the other
 fit's parameters are written too (gamma and phi, n) because every technology carries them.
-Mismatch (a_vt, a_beta), capacitances (cox, cov), minimum width, grid and, without corner
-sections, the corners come from --base or are defaults marked as such in the file.
+The gate capacitances (cox, cov) come from an ngspice AC analysis of the card
+(`devicefit.gate_capacitances`). Mismatch (a_vt, a_beta), minimum width, grid and, without
+corner sections, the corners come from --base or are defaults marked as such in the file.
 """
 from __future__ import annotations
 
@@ -40,6 +41,7 @@ from .devicefit import (
     early_voltages,
     fit_ekv,
     fit_square,
+    gate_capacitances,
     join,
     refit,
     region_errors,
@@ -84,6 +86,7 @@ class Calibration:
     lengths: tuple
     vdd: float
     log: list = field(default_factory=list)
+    caps: dict = field(default_factory=dict)  # +1/-1 -> (cox, cov) measured by ngspice AC; empty: not measured
 
 
 def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typical: Corner = Corner.TT,
@@ -153,7 +156,12 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
             shift[f"dvt_{tag}"] = float(p["vt0"] - f.vt0)
             shift[f"kp_{tag}"] = float(p["kp"] / f.kp)
         corners[corner] = CornerShift(**shift)
-    return Calibration(kind, fits, corners, tuple(lengths), vdd)
+    log(f"gate capacitances: ngspice AC at {typical.value}, {tnom_c:g} degC, L = {format_eng(lengths[-1], 'm')}")
+    caps = gate_capacitances(models, typical, tnom_c, lengths[-1], vdd)
+    for pol in (1, -1):
+        if pol not in caps:
+            log(f"{'NMOS' if pol == 1 else 'PMOS'}: the card models no gate capacitance; cox and cov are not measured")
+    return Calibration(kind, fits, corners, tuple(lengths), vdd, caps=caps)
 
 
 # ---------------------------------------------------------------------------------------
@@ -191,6 +199,13 @@ def _g(x: float) -> str:
     return format(float(x), ".6g")
 
 
+def _capacitance_lines(caps: tuple, length: float) -> list:
+    cox, cov = caps
+    where = f"ngspice AC of a {format_eng(WIDTH, 'm')} x {format_eng(length, 'm')} device"
+    return [f"cox = {_g(cox)}          # F/m^2, measured: {where} in strong inversion",
+            f"cov = {_g(cov)}          # F/m, measured: {where}, gate-drain in saturation (overlap and fringe)"]
+
+
 def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, base, command: str) -> str:
     """The technology file text (the format of `optimise.files.techfile`), every value commented."""
     fitted = "fitted" if cal.kind is ModelKind.EKV else "fitted (EKV fit; unused by the square law)"
@@ -203,7 +218,7 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
         f"voltages up to {cal.vdd:g} V; least-squares fit of the {cal.kind.value} equations.",
         f"# Made with: {command}",
         *([f"# The card's own first line: {title}"] if title else []),
-        "# Values marked 'from base' or 'default, not calibrated' are not measured by DC sweeps.",
+        "# Values marked 'from base' or 'default, not calibrated' are not measured by the sweeps.",
         "# A fit of a card, not the card: model estimates for early design only.",
         "",
         f'name = "{name}"',
@@ -229,8 +244,9 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
             f"mu_exp = {_g(f.mu_exp)}         # fitted: kp at the same temperatures",
             f"a_vt = {_g(mt.a_vt if mt else DEFAULTS['a_vt'])}          # V*m, {kept}",
             f"a_beta = {_g(mt.a_beta if mt else DEFAULTS['a_beta'])}        # m, {kept}",
-            f"cox = {_g(mt.cox if mt else DEFAULTS['cox'])}          # F/m^2, {kept}",
-            f"cov = {_g(mt.cov if mt else DEFAULTS['cov'])}          # F/m, {kept}",
+            *(_capacitance_lines(cal.caps[pol], cal.lengths[-1]) if pol in cal.caps else [
+                f"cox = {_g(mt.cox if mt else DEFAULTS['cox'])}          # F/m^2, {kept}",
+                f"cov = {_g(mt.cov if mt else DEFAULTS['cov'])}          # F/m, {kept}"]),
             f"w_min = {_g(mt.w_min if mt else lmin)}        # m, {kept if mt else 'default (= l_min), not calibrated'}",
             f"l_min = {_g(lmin)}        # m, shortest length fitted",
         ]

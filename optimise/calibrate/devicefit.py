@@ -156,6 +156,45 @@ def sweep(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, vdd: f
     return {pol: Curves(*(np.concatenate([p[f] for p in ps]) for f in range(7))) for pol, ps in parts.items()}
 
 
+def gate_capacitances(models: tb.ModelSource, corner: Corner, temp_c: float, length: float, vdd: float,
+                      timeout: float = 120.0) -> dict[int, tuple[float, float]]:
+    """Gate-oxide and overlap capacitance of the card per polarity: +1/-1 -> (cox [F/m^2],
+    cov [F/m]), from an ngspice AC analysis at 1 kHz of two W = WIDTH, L = `length` devices.
+
+    - Overlap: VGS = 0.8 VDD, VDS = VDD (saturation, where the channel's own gate-drain
+      capacitance is near zero) with the AC volt on the drain; the gate current over omega is
+      the gate-drain capacitance, the card's overlap and fringe: cov = Cgd / W (the source
+      side taken equal).
+    - Oxide: VGS = VDD, VDS = 0 (strong inversion, no pinch-off) with the AC volt on the gate;
+      the whole gate capacitance is Cox W L + 2 cov W, so cox = (Cgg - 2 cov W) / (W L).
+
+    A long `length` keeps the drawn length close to the electrical one. The DC sweeps cannot
+    see either value; the small-signal model of the stage inside its amplifier uses both.
+    A polarity whose card models no gate charge (a level-1 card without TOX) is left out.
+    """
+    f = 1e3
+    lines = ["stagefront calibrate: gate capacitances", f".options {tb.netlist.OPTIONS}", f".temp {temp_c!r}",
+             models.reference(corner)]
+    for pol, name in ((1, models.nmos), (-1, models.pmos)):
+        tag = "n" if pol == 1 else "p"
+        lines += [f"V_GO{tag} go{tag} 0 dc {pol * 0.8 * vdd!r}", f"V_DO{tag} do{tag} 0 dc {pol * vdd!r} ac 1",
+                  f"M_O{tag} do{tag} go{tag} 0 0 {name} w={WIDTH!r} l={float(length)!r}",
+                  f"V_GX{tag} gx{tag} 0 dc {pol * vdd!r} ac 1",
+                  f"M_X{tag} 0 gx{tag} 0 0 {name} w={WIDTH!r} l={float(length)!r}"]
+    lines += [f".ac lin 1 {f!r} {f!r}", ".end"]
+    res = ngspice.run("\n".join(lines), timeout=timeout)
+    out = {}
+    for pol in (1, -1):
+        tag = "n" if pol == 1 else "p"
+        c_gd = abs(float(np.imag(tb.vector(res, f"i(v_go{tag})")[0]))) / (2 * math.pi * f)
+        c_gg = abs(float(np.imag(tb.vector(res, f"i(v_gx{tag})")[0]))) / (2 * math.pi * f)
+        cov = c_gd / WIDTH
+        cox = (c_gg - 2.0 * c_gd) / (WIDTH * length)
+        if np.isfinite(cox) and np.isfinite(cov) and cox > 0 and cov >= 0:
+            out[pol] = (cox, cov)
+    return out
+
+
 # ---------------------------------------------------------------------------------------
 # Model currents
 # ---------------------------------------------------------------------------------------

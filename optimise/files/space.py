@@ -48,7 +48,8 @@ SEARCH_KEYS = ("population", "generations", "checkpoint_every", "reference")
 
 @dataclass(frozen=True)
 class Variable:
-    """One searched (or fixed) quantity: kind is "w", "l" or "bias"; SI bounds."""
+    """One searched (or fixed) quantity: kind is "w", "l", "bias" or "cc" (the amplifier's
+    compensation capacitor, when the study gives it bounds); SI bounds."""
 
     name: str
     kind: str
@@ -101,13 +102,15 @@ class Space:
             w[role] = _snap(values[f"{src}.w"], self.grid)
             l[role] = _snap(values[f"{src}.l"], self.grid)
         bias = {b: values[b] for b in stage.BIAS}
-        return Design(self.architecture, w, l, bias, self.tied_bulk)
+        return Design(self.architecture, w, l, bias, self.tied_bulk, values.get("cc"))
 
     def encode(self, design: Design) -> np.ndarray:
         """X (n, n_free) of a Design (inverse of decode up to grid snapping)."""
         cols = []
         for v in self.free:
-            if v.kind == "bias":
+            if v.kind == "cc":
+                val = design.cc
+            elif v.kind == "bias":
                 val = design.bias[v.target]
             else:
                 val = (design.w if v.kind == "w" else design.l)[v.target]
@@ -173,6 +176,11 @@ def load_search(study: Study) -> SearchSettings:
     for arch in study.architectures:
         spaces[arch] = _space(where, arch, sub_table(where, "bounds", arch, bounds_t.get(arch, {})),
                               sub_table(where, "ties", arch, ties_t.get(arch, {})), tech)
+        amp = study.targets.amplifier
+        if amp is not None and amp.cc_bounds is not None:  # [amplifier] compensation = [lower, upper]
+            sp = spaces[arch]
+            spaces[arch] = Space(arch, sp.variables + (Variable("cc", "cc", "cc", *amp.cc_bounds),), sp.ties,
+                                 sp.tied_bulk, sp.grid)
 
     search_t = sub_table(where, "", "search", data.get("search", {}))
     check_keys(where, "search", search_t, SEARCH_KEYS)

@@ -1,7 +1,9 @@
 """Study and design files: TOML in, checked model objects out.
 
 A study names the technology, the supply range, temperatures and corners, the load, the
-driver and the targets; a design file gives one candidate's sizes and bias. Every problem
+driver and the targets, and optionally the [amplifier] the stage sits in (its keys in
+AMPLIFIER_KEYS; the targets phase_margin_min, slew_min and gate_time_max need it); a design
+file gives one candidate's sizes and bias. Every problem
 is an InputError naming the file, the key, the value and what is allowed.
 """
 from __future__ import annotations
@@ -14,6 +16,7 @@ import numpy as np
 from models.devices.constants import ZERO_CELSIUS
 from models.devices.tech import Corner, Tech
 from models.evaluate import Conditions, Design, Targets
+from models.records import Amplifier
 from models.stages import STAGES, get_stage
 
 from .errors import InputError
@@ -22,7 +25,7 @@ from .tables import build, check_keys, closest, micrometres, number, read_toml, 
 from .techfile import check_table_size, check_table_temperatures, load_tech
 
 STUDY_KEYS = ("name", "description", "technology", "architectures", "seed", "supply", "conditions", "load",
-              "driver", "targets", "objectives", "bounds", "ties", "search", "mirrors")
+              "driver", "targets", "objectives", "bounds", "ties", "search", "mirrors", "amplifier")
 SUPPLY_KEYS = ("nominal", "min", "max")
 CONDITION_KEYS = ("temperatures_c", "corners")
 LOAD_KEYS = ("current", "capacitance")
@@ -30,6 +33,21 @@ DRIVER_KEYS = ("compliance", "drive")
 TARGET_UNITS = {"iq_min": "A", "iq_max": "A", "iq_sigmas": "", "headroom_max": "V", "ab_min": "",
                 "area_max_um2": "", "fp2_min": "Hz", "layout_factor": "",
                 "power_max": "W", "iout_peak_max": "A"}
+# Targets that need the [amplifier] table (the stage's surrounding amplifier).
+AMPLIFIER_TARGET_UNITS = {"phase_margin_min": "deg", "slew_min": "V/s", "gate_time_max": "s"}
+AMPLIFIER_TARGET_RANGE = {"phase_margin_min": (0.0, 180.0), "slew_min": (0.0, 1e12), "gate_time_max": (0.0, 1.0)}
+# [amplifier] key -> (Amplifier field, unit, lowest, highest, default or None when required).
+# The ranges refuse values no integrated amplifier has (common practice, no source).
+AMPLIFIER_KEYS = {
+    "unity_gain": ("ugf", "Hz", 1.0, 1e11, None),
+    "compensation": ("cc", "F", 0.0, 1e-6, None),
+    "r_out": ("r1", "ohm", 1.0, 1e15, None),
+    "c_out": ("c1", "F", 0.0, 1e-6, 0.0),
+    "current": ("i1", "A", 1e-12, 10.0, None),
+    "feedback": ("beta", "", 1e-6, 1.0, 1.0),
+    "transconductance": ("gm1", "S", 0.0, 100.0, 0.0),
+    "load_resistance": ("r_load", "ohm", 1e-3, float("inf"), float("inf")),
+}
 
 # The lowest value each target may take, and whether it must lie strictly above it.
 TARGET_FLOOR = {"iq_min": (0.0, False), "iq_max": (0.0, True), "iq_sigmas": (0.0, False),
@@ -156,7 +174,9 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     driver = sub_table(where, "", "driver", data.get("driver", {}))
     check_keys(where, "driver", driver, DRIVER_KEYS)
     targets_t = sub_table(where, "", "targets", data.get("targets", {}))
-    check_keys(where, "targets", targets_t, tuple(TARGET_UNITS))
+    check_keys(where, "targets", targets_t, tuple(TARGET_UNITS) + tuple(AMPLIFIER_TARGET_UNITS))
+    amp_targets = {k: v for k, v in targets_t.items() if k in AMPLIFIER_TARGET_UNITS}
+    targets_t = {k: v for k, v in targets_t.items() if k not in AMPLIFIER_TARGET_UNITS}
     kw = {k: number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
     for k, v in kw.items():
         low, strict = TARGET_FLOOR[k]
@@ -177,6 +197,7 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
         vcomp=number(where, "driver", "compliance", driver.get("compliance", 0.2), "V"),
         drive=drive,
     )
+    kw.update(_amplifier(where, data, amp_targets))
     targets = build(where, "targets", Targets, kw)
 
     archs = _list(where, "", "architectures", data.get("architectures", list(STAGES)))
@@ -189,6 +210,55 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
         raise InputError(where, f"seed = {show(seed)} is not allowed", "a non-negative integer")
     return Study(path, str(data.get("name", path.stem)), tech, tech_path, conditions, targets, tuple(archs), seed, data)
+
+
+def _amplifier(where, data, amp_targets) -> dict:
+    """The optional [amplifier] table (the two-stage Miller amplifier this stage is the
+    second stage of) and the targets that need it, as Targets keywords."""
+    if "amplifier" not in data:
+        if amp_targets:
+            key = next(iter(amp_targets))
+            raise InputError(where, f"[targets] {key} needs an [amplifier] table",
+                             "the amplifier's unity_gain, compensation, r_out, current (and c_out, feedback)",
+                             "describe the amplifier this stage sits in, or drop the target")
+        return {}
+    table = sub_table(where, "", "amplifier", data["amplifier"])
+    required = tuple(k for k, spec in AMPLIFIER_KEYS.items() if spec[4] is None)
+    check_keys(where, "amplifier", table, tuple(AMPLIFIER_KEYS), required)
+    kw = {}
+    for key, (name, unit, lo, hi, default) in AMPLIFIER_KEYS.items():
+        if key == "compensation" and isinstance(table.get(key), list):
+            # [lower, upper]: the search sizes Cc per design (log scale, like a bias).
+            pair = table[key]
+            if len(pair) != 2:
+                raise InputError(where, f"[amplifier] compensation = {show(pair)} is not a value or a "
+                                        "[lower, upper] pair", "e.g. \"3p\" or [\"1p\", \"10p\"] in F")
+            c_lo, c_hi = (number(where, "amplifier", key, x, unit) for x in pair)
+            if not 0 < c_lo <= c_hi <= hi:
+                raise InputError(where, f"[amplifier] compensation = {show(pair)} is not allowed",
+                                 f"0 < lower <= upper <= {hi:g} F")
+            kw["cc_bounds"], kw[name] = (c_lo, c_hi), float(np.sqrt(c_lo * c_hi))
+            continue
+        value = number(where, "amplifier", key, table[key], unit, allow_inf=key == "load_resistance") \
+            if key in table else default
+        if not lo <= value <= hi:
+            raise InputError(where, f"[amplifier] {key} = {show(table[key])} is not allowed",
+                             f"{lo:g} to {hi:g} {unit}".rstrip())
+        kw[name] = value
+    if kw["gm1"] == 0.0 and kw["cc"] == 0.0:
+        raise InputError(where, "[amplifier] compensation = 0 leaves the first stage without a transconductance",
+                         "compensation > 0 F, or a transconductance in S",
+                         "gm1 = 2 pi unity_gain compensation / feedback")
+    out = {"amplifier": build(where, "amplifier", Amplifier, kw)}
+    for key, value in amp_targets.items():
+        v = number(where, "targets", key, value, AMPLIFIER_TARGET_UNITS[key])
+        lo, hi = AMPLIFIER_TARGET_RANGE[key]
+        if not lo <= v <= hi or (key == "gate_time_max" and v == 0):
+            raise InputError(where, f"[targets] {key} = {show(value)} is not allowed",
+                             f"{'>' if key == 'gate_time_max' else '>='} {lo:g} and <= {hi:g} "
+                             f"{AMPLIFIER_TARGET_UNITS[key]}")
+        out[key] = v
+    return out
 
 
 def design_from_tables(where: str, arch, devices, bias, tech: Tech, ties: dict | None = None) -> Design:
@@ -265,8 +335,15 @@ def load_design(path, tech: Tech, ties_of=None) -> Design:
     `optimise.files.space.study_ties`); a tied role may then be left out of the file."""
     where = str(path)
     data = read_toml(path)
-    check_keys(where, "", data, ("architecture", "devices", "bias", "name"), ("architecture", "devices", "bias"))
+    check_keys(where, "", data, ("architecture", "devices", "bias", "name", "compensation"),
+               ("architecture", "devices", "bias"))
     ties = None
     if ties_of is not None and isinstance(data["architecture"], str) and data["architecture"] in STAGES:
         ties = ties_of(data["architecture"])
-    return design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech, ties)
+    design = design_from_tables(where, data["architecture"], data["devices"], data["bias"], tech, ties)
+    if "compensation" in data:  # this design's Cc, for a study that sizes it
+        cc = number(where, "", "compensation", data["compensation"], "F")
+        if not 0 < cc <= 1e-6:
+            raise InputError(where, f"compensation = {show(data['compensation'])} is not allowed", "0 < Cc <= 1u F")
+        design = replace(design, cc=np.array([cc]))
+    return design

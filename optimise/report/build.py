@@ -125,7 +125,20 @@ def _job(data: ReportData) -> list:
             f"output pole >= {format_eng(t.fp2_min, 'Hz')}" if t.fp2_min > 0 else "",
             f"power <= {format_eng(t.power_max, 'W')} at every PVT point" if np.isfinite(t.power_max) else "",
             f"peak output current <= {format_eng(t.iout_peak_max, 'A')}" if np.isfinite(t.iout_peak_max) else "",
-            f"layout factor {t.layout_factor:g}") if x)),
+            f"layout factor {t.layout_factor:g}",
+            f"phase margin >= {t.phase_margin_min:g} deg" if t.phase_margin_min > 0 else "",
+            f"slew rate >= {t.slew_min * 1e-6:g} V/us" if t.slew_min > 0 else "",
+            f"gate time <= {format_eng(t.gate_time_max, 's')}" if np.isfinite(t.gate_time_max) else "") if x)),
+        ("amplifier", "none described: no loop gain, phase margin or slew; the output pole is "
+                      "gm_out / (2 pi (C_load + C_gates))" if t.amplifier is None else
+         f"two-stage Miller, this stage second: target unity gain {format_eng(t.amplifier.ugf, 'Hz')} at feedback "
+         f"{t.amplifier.beta:g}, "
+         + (f"Cc {format_eng(t.amplifier.cc, 'F')}, gm1 {format_eng(t.amplifier.transconductance, 'S')}"
+            if t.amplifier.cc_bounds is None else
+            f"Cc searched from {format_eng(t.amplifier.cc_bounds[0], 'F')} to "
+            f"{format_eng(t.amplifier.cc_bounds[1], 'F')} (gm1 = 2 pi f_u Cc / beta; column cc_f)")
+         + f", first stage {format_eng(t.amplifier.r1, 'ohm')} "
+         f"and {format_eng(t.amplifier.c1, 'F')}, {format_eng(t.amplifier.i1, 'A')} available"),
         ("objectives", ", ".join(f"{n} ({'maximise' if v == 'max' else 'minimise'}, {OBJECTIVES[n][0]})"
                                  for n, v in data.objectives.items())),
         ("search budget", f"NSGA-II, population {rec.get('population')} x {rec.get('generations')} generations "
@@ -255,7 +268,27 @@ def _knee_pvt(data: ReportData) -> list:
             f"drive on each side: compliance (the driver got within its compliance of the rail) or "
             f"control-saturation (the bias loop's control device left saturation first, so the loop caps the drive). "
             + ("Every target is met at every point." if not viol else "Missed: " + "; ".join(viol)),
-            Table("knee-pvt", header, rows, classes)]
+            Table("knee-pvt", header, rows, classes)] + _knee_amplifier(data, res)
+
+
+def _knee_amplifier(data: ReportData, res: dict) -> list:
+    """The knee inside its amplifier: loop gain, poles and slew per PVT point, and its Bode plot."""
+    from .figures import bode_figure
+
+    if data.study.targets.amplifier is None:
+        return ["No amplifier described in the study: no loop gain, phase margin or slew is computed."]
+    keys = [("ugf_hz", "unity gain [MHz]", 1e-6), ("phase_margin_deg", "phase margin [deg]", 1.0),
+            ("p1_hz", "dominant pole [Hz]", 1.0), ("fp2_hz", "output pole [MHz]", 1e-6),
+            ("fint_hz", "internal pole [MHz]", 1e-6), ("fz_hz", "RHP zero [MHz]", 1e-6),
+            ("slew_v_per_s", "slew [V/us]", 1e-6), ("gate_time_s", "gate time [us]", 1e6)]
+    header = [("corner", "corner"), ("temp_c", "temp [C]"), ("vdd_v", "vdd [V]")] + [(k, t) for k, t, _ in keys]
+    rows = [[Cell(pt["corner"], pt["corner"]), num_cell(pt["temp_c"]), num_cell(pt["vdd_v"])]
+            + [num_cell(np.nan if pt[k] is None else pt[k], sc) for k, _, sc in keys] for pt in res["pvt"]]
+    return ["The knee inside its amplifier at every PVT point: the loop gain's unity-gain frequency and phase margin, "
+            "the poles and the right-half-plane zero of the full small-signal model, slew rate and gate time.",
+            Table("knee-amplifier", header, rows),
+            Figure("bode", bode_figure(data), "Loop gain of the knee at the PVT point of its worst phase margin "
+                   "beside the typical one; dots mark the unity-gain crossing.")]
 
 
 def _mismatch(data: ReportData) -> list:

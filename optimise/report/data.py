@@ -67,6 +67,7 @@ class ReportData:
     verify: tuple = (None, "")  # (DataFrame or None, note)
     verify_href: str = "verify.csv"  # verify.csv as linked from the report
     verify_caveat: str = ""  # from RUN/verify.json: e.g. EKV study checked against level-1 cards
+    knee_design: object = None  # the knee as a one-element Design
 
 
 def gather(run, count: int = 8) -> ReportData:
@@ -101,6 +102,7 @@ def gather(run, count: int = 8) -> ReportData:
     cond, tech, targets = study.conditions, study.tech, study.targets
     [(_, knee_design)] = populations(picks.iloc[:1])
     data.knee = evaluate(knee_design, tech, cond, targets)
+    data.knee_design = knee_design
     data.mc = confirm(knee_design, study, MC_SAMPLES, int(r.record.get("seed", 1)), result=data.knee)
     corner, temp, vnom = cond.typical, cond.temps[0], cond.vdd_nom
     supplies = np.unique(np.r_[np.linspace(cond.vdd_min, cond.vdd_max, SWEEP_POINTS), vnom])

@@ -96,3 +96,38 @@ def supply_figure(data: ReportData) -> bytes:
     ax.legend(fontsize=7, loc="best")
     fig.tight_layout()
     return png_bytes(fig, dpi=100)
+
+
+def bode_figure(data: ReportData) -> bytes:
+    """The knee's loop gain inside the study's amplifier: magnitude and phase at the PVT point
+    of its worst phase margin beside the typical one (typical corner, first temperature,
+    nominal supply), with the unity-gain frequency and phase margin of each."""
+    from models.evaluate import loop_gain_at
+
+    from ..search.plots import _plt
+
+    plt, res, s = _plt(), data.knee, data.study
+    j_typ = s.conditions.nominal_index()
+    j_worst = int(np.argmin(res.pvt["phase_margin_deg"][0]))
+    f = np.logspace(-1, 10, 440)
+    fig, (am, ph) = plt.subplots(2, 1, figsize=(8, 6), sharex=True)
+    for j, label, style in ((j_typ, "typical", "-"), (j_worst, "worst phase margin", "--")):
+        corner, temp, vdd = res.corners[j], float(res.temps[j]), float(res.vdd[j])
+        mag, phase = loop_gain_at(data.knee_design, s.tech, corner, temp, vdd, s.targets, f)
+        where = f"{corner.value}, {temp - ZERO_CELSIUS:g} C, {vdd:g} V"
+        fu, pm = res.pvt["ugf_hz"][0, j], res.pvt["phase_margin_deg"][0, j]
+        am.semilogx(f, mag, style, label=f"{label}: {where}; unity gain {fu / 1e6:.3g} MHz, margin {pm:.1f} deg")
+        ph.semilogx(f, phase, style)
+        ph.plot([fu], [pm - 180.0], "o", color=am.lines[-1].get_color())
+    am.axhline(0.0, color="#777777", lw=0.8)
+    ph.axhline(-180.0, color="#777777", lw=0.8)
+    am.set_ylabel("|T| [dB]")
+    ph.set_ylabel("phase of T [deg]")
+    ph.set_xlabel("frequency [Hz]")
+    am.set_title(f"Loop gain of {data.picks['id'].iloc[0]} inside its amplifier")
+    am.legend(fontsize=7)
+    for a in (am, ph):
+        a.grid(alpha=0.3, which="both")
+    am.set_ylim(max(am.get_ylim()[0], -80.0), am.get_ylim()[1])
+    fig.tight_layout()
+    return png_bytes(fig, dpi=100)

@@ -110,8 +110,14 @@ def _volts(row: dict) -> bool:
     return isinstance(metric, str) and (metric.endswith("_v") or "headroom" in metric)
 
 
-def _show_error(v: float, volts: bool) -> str:
+def _show_error(v: float, volts: bool, deg: bool = False) -> str:
+    if deg:  # the AC bench's phase margin, compared in degrees
+        return f"{v:+.3g} deg"
     return f"{v * 1e3:+.3g} mV" if volts else f"{100 * v:+.3g} %"
+
+
+def _deg(row: dict) -> bool:
+    return str(row.get("error_unit", "")).strip().lower() == "deg"
 
 
 def _verify_cell(col: str, row: dict) -> Cell:
@@ -121,7 +127,7 @@ def _verify_cell(col: str, row: dict) -> Cell:
         if not np.isfinite(v):
             return Cell("", None)
         if col == "error":
-            return Cell(_show_error(v, _volts(row)), abs(v))
+            return Cell(_show_error(v, _volts(row), _deg(row)), abs(v))
         if col in ("model", "simulator") and isinstance(metric, str):
             unit = {"_a": "A", "_v": "V", "_w": "W", "_hz": "Hz", "_f": "F"}.get(metric[metric.rfind("_"):], "")
             return Cell(format_eng(v, unit) if unit else short(v, 6), v)
@@ -142,14 +148,15 @@ def _stats(rs: list) -> list:
     """Cells: points, median |error|, 95th percentile |error|, worst error, rows holding it."""
     err = np.array([float(r["error"]) for r in rs])
     mag = np.abs(err)
-    volts = _volts(rs[0])
+    volts, deg = _volts(rs[0]), _deg(rs[0])
     top = float(mag.max())
     holders = [r for r, m in zip(rs, mag) if m == top]
     at = "; ".join(_at(r) for r in holders[:3]) + (f" (+{len(holders) - 3} more)" if len(holders) > 3 else "")
     worst = float(err[int(np.argmax(mag))])
     med, p95 = float(np.median(mag)), float(np.percentile(mag, 95))
-    return [Cell(str(len(rs)), len(rs)), Cell(_show_error(med, volts).lstrip("+"), med),
-            Cell(_show_error(p95, volts).lstrip("+"), p95), Cell(_show_error(worst, volts), abs(worst)), Cell(at)]
+    return [Cell(str(len(rs)), len(rs)), Cell(_show_error(med, volts, deg).lstrip("+"), med),
+            Cell(_show_error(p95, volts, deg).lstrip("+"), p95), Cell(_show_error(worst, volts, deg), abs(worst)),
+            Cell(at)]
 
 
 def verification_blocks(verify: tuple, href: str = "verify.csv", caveat: str = "") -> list:
@@ -165,7 +172,9 @@ def verification_blocks(verify: tuple, href: str = "verify.csv", caveat: str = "
         return [note]
     records = table.to_dict("records")
     out = [Link(note + " Errors are simulator minus model: relative for currents (%), in millivolts for voltages "
-                       "(headrooms). Every comparison is in", href, ".")]
+                       "(headrooms)" + (", in degrees for the AC bench's phase margin (its unity-gain frequency "
+                                      "relative)" if "error_unit" in table and (table["error_unit"] == "deg").any()
+                                      else "") + ". Every comparison is in", href, ".")]
     if caveat:
         out.append(caveat)
     if not ({"metric", "error"} <= set(table.columns) and len(table)):

@@ -9,6 +9,7 @@ import numpy as np
 
 from models.devices.constants import ZERO_CELSIUS
 from models.evaluate import LIMIT_NAMES, PVT_METRICS, Result
+from models.records import AMPLIFIER_METRICS
 
 
 def _finite(x):
@@ -23,7 +24,7 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
     for j in range(len(res.vdd)):
         row = {"corner": res.corners[j].value, "temp_c": round(float(res.temps[j]) - ZERO_CELSIUS, 6),
                "vdd_v": float(res.vdd[j]), "converged": bool(res.converged[i, j])}
-        for name in PVT_METRICS:
+        for name in PVT_METRICS + tuple(n for n in AMPLIFIER_METRICS if n in res.pvt):
             row[name] = _finite(res.pvt[name][i, j])
         # A headroom is null where the stage cannot deliver the peak load; these say so.
         row["delivers_source"] = bool(res.pvt["delivers_source"][i, j])
@@ -40,6 +41,21 @@ def result_to_dict(res: Result, i: int = 0) -> dict:
                     for name, v in res.summary.items()},
         "pvt": pvt,
     }
+
+
+def amplifier_dict(targets, design=None, i: int = 0) -> dict | None:
+    """The study's amplifier as the evaluate JSON's "amplifier" object (SI), with design i's
+    own compensation capacitor when the study sizes it; None when the study describes none."""
+    amp = targets.amplifier
+    if amp is None:
+        return None
+    cc = float(design.cc[i]) if design is not None and design.cc is not None else amp.cc
+    out = {"unity_gain_hz": amp.ugf, "compensation_f": cc, "r_out_ohm": amp.r1, "c_out_f": amp.c1,
+           "current_a": amp.i1, "feedback": amp.beta, "transconductance_s": float(amp.gm1_for(cc)),
+           "load_resistance_ohm": _finite(amp.r_load)}
+    if amp.cc_bounds is not None:
+        out["compensation_bounds_f"] = list(amp.cc_bounds)
+    return out
 
 
 def json_safe(obj, path: str = "", notes: list | None = None):

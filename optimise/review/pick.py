@@ -44,7 +44,8 @@ _PLAIN = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
 # Column suffix -> unit the VALUE is read in, and whether scale letters are allowed.
 _SUFFIX_UNITS = (("_pct_per_v", "%/V", False), ("_um2", "um^2", False), ("_um", "um", False),
                  ("_pct", "%", False), ("_ohm", "ohm", True), ("_hz", "Hz", True), ("_a", "A", True),
-                 ("_w", "W", True), ("_v", "V", True), ("_f", "F", True))
+                 ("_w", "W", True), ("_v", "V", True), ("_f", "F", True), ("_deg", "deg", False),
+                 ("_v_per_s", "V/s", True), ("_s", "s", True))
 
 
 @dataclass(frozen=True)

@@ -35,6 +35,8 @@ UNIT_SUFFIX = {"A": "a", "ohm": "ohm"}
 METRICS = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "headroom_high_v", "headroom_low_v", "swing_v",
            "iout_source_a", "iout_sink_a", "ab_ratio", "area_um2", "iq_sigma_pct", "supply_sens_pct_per_v",
            "vdd_min_v", "fp2_hz", "c_drive_f", "power_max_w", "iout_peak_a", "delivers_load")
+# With an [amplifier] table: the worst case over PVT of the stage inside its amplifier.
+AMPLIFIER_COLUMNS = ("ugf_hz", "phase_margin_deg", "p1_hz", "fint_hz", "fz_hz", "slew_v_per_s", "gate_time_s")
 # Significant digits of a bias value in front.csv (far below any model's accuracy).
 BIAS_DIGITS = 6
 
@@ -46,16 +48,24 @@ def margin_column(name: str) -> str:
 
 def clean_design(design: Design) -> Design:
     """The design with sizes rounded to the picometre (the grid's own decimals in um)
-    and bias values to BIAS_DIGITS significant digits, converted the way a design file
+    and bias values (and a searched compensation capacitor) to BIAS_DIGITS significant digits, converted the way a design file
     or a front.csv row is read back (micrometres x 1e-6), so evaluating it reproduces
     what front.csv says."""
     def um(x):
         return np.round(np.asarray(x, dtype=float) * 1e6, 6) * 1e-6
 
-    bias = {k: np.array([float(f"{v:.{BIAS_DIGITS}g}") for v in np.asarray(b, dtype=float)])
-            for k, b in design.bias.items()}
+    def digits(b):
+        return np.array([float(f"{v:.{BIAS_DIGITS}g}") for v in np.asarray(b, dtype=float)])
+
     return Design(design.architecture, {k: um(v) for k, v in design.w.items()},
-                  {k: um(v) for k, v in design.l.items()}, bias, design.tied)
+                  {k: um(v) for k, v in design.l.items()}, {k: digits(b) for k, b in design.bias.items()},
+                  design.tied, None if design.cc is None else digits(design.cc))
+
+
+def metric_columns(study: Study) -> tuple[str, ...]:
+    """The metric columns of front.csv: METRICS, and AMPLIFIER_COLUMNS when the study
+    describes the amplifier."""
+    return METRICS + (AMPLIFIER_COLUMNS if study.targets.amplifier is not None else ())
 
 
 def variable_columns(archs) -> list[str]:
@@ -86,6 +96,8 @@ def design_rows(design: Design) -> list[dict]:
             row[f"{role}_bulk"] = "source" if role in design.tied else "rail"
         for name, unit in stage.BIAS.items():
             row[f"{name}_{UNIT_SUFFIX[unit]}"] = float(design.bias[name][i])
+        if design.cc is not None:  # the searched compensation capacitor
+            row["cc_f"] = float(design.cc[i])
         rows.append(row)
     return rows
 
@@ -98,7 +110,9 @@ def design_from_row(row: dict | pd.Series) -> Design:
     l = {r: np.array([row[f"{r}_l_um"] * 1e-6]) for r in stage.ROLES}
     tied = frozenset(r for r in stage.ROLES if row[f"{r}_bulk"] == "source")
     bias = {b: np.array([float(row[f"{b}_{UNIT_SUFFIX[u]}"])]) for b, u in stage.BIAS.items()}
-    return Design(arch, w, l, bias, tied)
+    cc = row.get("cc_f") if hasattr(row, "get") else None
+    cc = np.array([float(cc)]) if cc is not None and np.isfinite(float(cc)) else None
+    return Design(arch, w, l, bias, tied, cc)
 
 
 def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFrame, dict]:
@@ -132,7 +146,7 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
         df = pd.DataFrame(design_rows(design))
         df.insert(0, "architecture", run.architecture)
         df.insert(0, "id", [f"{PREFIX[run.architecture]}-{k + 1:03d}" for k in range(len(df))])
-        for name in METRICS:
+        for name in metric_columns(study):
             df[name] = res.summary[name]
         for name in cnames:
             if name != "converged":  # every row converged at every PVT point, or it would not be feasible
@@ -140,13 +154,15 @@ def front_table(study: Study, settings, runs: list[ArchRun]) -> tuple[pd.DataFra
         df["_F"] = list(objective_values(res, settings.objectives))
         frames.append(df)
     if not frames:  # nothing feasible: keep the full header so the file still documents its columns
-        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) + list(METRICS)
+        amp = study.targets.amplifier
+        cols = ["id", "architecture", "overall_front"] + variable_columns(study.architectures) \
+            + (["cc_f"] if amp is not None and amp.cc_bounds is not None else []) + list(metric_columns(study))
         cols += [margin_column(n) for n in cnames if n != "converged"]
         return pd.DataFrame(columns=cols), results
     table = pd.concat(frames, ignore_index=True)
     F_all = np.stack(table.pop("_F").to_list())
     table.insert(2, "overall_front", non_dominated(F_all))
-    cols = ["id", "architecture", "overall_front"] + [c for c in variable_columns(study.architectures)
+    cols = ["id", "architecture", "overall_front"] + [c for c in variable_columns(study.architectures) + ["cc_f"]
                                                        if c in table.columns]
     cols += [c for c in table.columns if c not in cols]
     return table[cols], results

@@ -12,7 +12,8 @@ A run folder is handed from one designer to another and may have been edited by 
   within RESISTANCE_OHM ohms, ``ROLE_bulk`` ``rail`` or ``source``;
 - ``overall_front`` and ``delivers_load``: true or false;
 - every other column (metrics, constraint margins, whatever their names) a finite number or
-  empty; the metrics in NON_NEGATIVE not below zero.
+  empty (``inf`` too in INFINITE_OK, where it means "none"); the metrics in NON_NEGATIVE not
+  below zero.
 
 Errors name the file, the line, the row id and the column. `check_run_record` does the same
 for run.json (types and ranges of what report, compare, pick and sweep read from it).
@@ -44,6 +45,8 @@ RESISTANCE_OHM = (0.0, 1e12)
 # Metrics that cannot be negative whatever the design.
 NON_NEGATIVE = ("iq_a", "iq_min_a", "iq_max_a", "power_w", "power_max_w", "area_um2", "iq_sigma_pct", "c_drive_f")
 TEXT_COLUMNS = ("id", "architecture")
+# Amplifier columns where +inf is a value: no such zero or pole, no slew limit, never reached.
+INFINITE_OK = ("fz_hz", "fint_hz", "p1_hz", "slew_v_per_s", "gate_time_s")
 BOOL_COLUMNS = ("overall_front", "delivers_load")
 _NUMBER = re.compile(r"\s*[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?\s*")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f\x85\u2028\u2029]")
@@ -145,6 +148,8 @@ def _number(text: str, col: str, spec, line: int, rid: str, fail) -> float:
             fail(line, rid, col, "is empty", f"a number in {spec[1]}", "every variable of the row's architecture "
                                                                    "is needed to rebuild its design")
         return np.nan
+    if col in INFINITE_OK and spec is None and text.strip().lower().lstrip("+") in ("inf", "infinity"):
+        return math.inf
     if not _NUMBER.fullmatch(text):
         what = "is not a finite number" if text.strip().lower().lstrip("+-") in ("nan", "inf", "infinity") \
             else "is not a number"

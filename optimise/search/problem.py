@@ -38,6 +38,9 @@ def constraint_names(study: Study) -> tuple[str, ...]:
         names.append("power")
     if np.isfinite(t.iout_peak_max):
         names.append("iout_peak")
+    if t.amplifier is not None:  # the surrounding amplifier's targets
+        names += [n for n, on in (("phase_margin", t.phase_margin_min > 0), ("slew", t.slew_min > 0),
+                                  ("gate_time", np.isfinite(t.gate_time_max))) if on]
     return tuple(names)
 
 

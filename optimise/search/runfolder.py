@@ -108,10 +108,11 @@ def populations(rows: pd.DataFrame) -> list[tuple[list, Design]]:
         except KeyError as err:
             raise InputError("front.csv", f"has no column {err.args[0]!r} for the {row['architecture']} design "
                                           f"{row['id']}", hint="re-run the search with this version") from None
-        groups.setdefault((d.architecture, d.tied), []).append((row["id"], d))
+        groups.setdefault((d.architecture, d.tied, d.cc is None), []).append((row["id"], d))
     out = []
-    for (arch, tied), members in groups.items():
+    for (arch, tied, no_cc), members in groups.items():
         ds = [d for _, d in members]
         cat = lambda attr: {k: np.concatenate([getattr(d, attr)[k] for d in ds]) for k in getattr(ds[0], attr)}  # noqa: E731
-        out.append(([i for i, _ in members], Design(arch, cat("w"), cat("l"), cat("bias"), tied)))
+        cc = None if no_cc else np.concatenate([d.cc for d in ds])  # a searched compensation capacitor
+        out.append(([i for i, _ in members], Design(arch, cat("w"), cat("l"), cat("bias"), tied, cc)))
     return out

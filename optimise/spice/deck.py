@@ -150,6 +150,10 @@ def netlist_text(study: Study, row_id: str, design: Design, models: tb.ModelSour
     lines += tb.drive_block(mod, sub, -1, "", vdd, n_snk, v_snk, batch=False)
     if nodeset + nodeset_l:
         lines.append(".nodeset " + " ".join(nodeset + nodeset_l))
+    if targets.amplifier is not None:
+        from .acbench import netlist_block
+
+        lines += netlist_block(design, study, models, corner, temp, vdd, pv)
     vectors = " ".join(tb.device_vector(part, "", role) for part in ("rest", "load", "src", "snk")
                        for role in (mod.PULL_DOWN, mod.PULL_UP))
     lines += [

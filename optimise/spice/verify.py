@@ -58,7 +58,8 @@ def time_limit(designs: int, supplies: int) -> float:
     """Wall-clock limit [s] of one verify deck of `designs` designs at `supplies` supplies."""
     return TIME_BASE_S + TIME_PER_POINT_S * designs * supplies
 METRICS = ("iq_a", "headroom_high_v", "headroom_low_v", "iout_source_a", "iout_sink_a")
-ABSOLUTE = ("headroom_high_v", "headroom_low_v")  # compared in volts; the rest relatively
+ABSOLUTE = ("headroom_high_v", "headroom_low_v", "phase_margin_deg")  # compared in volts (degrees); the rest relatively
+AC_METRICS = ("ugf_hz", "phase_margin_deg")  # with an [amplifier] table: the AC bench (optimise.spice.acbench)
 COLUMNS = ("id", "architecture", "corner", "temp_c", "vdd_v", "metric", "model", "simulator", "error",
            "error_unit", "note")
 
@@ -279,6 +280,8 @@ def _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, strea
                 log(f"  {pop.design.architecture} {corner.value} {temp - ZERO_CELSIUS:g} C: {pop.design.size} designs "
                     f"in {time.perf_counter() - t1:.2f} s")
                 records += _records(pop, corner, temp, sim)
+                if study.targets.amplifier is not None:
+                    records += _ac_records(pop, study, models, corner, temp, log)
     write_text(folder / "verify.csv", _csv(records))
     # What the report needs to word the figures: which models ngspice ran.
     write_text(folder / "verify.json", json.dumps({"models": str(models_path) if models_path else None,
@@ -321,6 +324,39 @@ def _records(pop: Population, corner: Corner, temp: float, sim: dict) -> list[di
     return out
 
 
+def _ac_records(pop: Population, study, models, corner: Corner, temp: float, log) -> list[dict]:
+    """verify.csv records of the AC bench: unity-gain frequency and phase margin of every
+    design of `pop` at every supply, the model beside ngspice."""
+    from . import acbench
+
+    res = pop.result
+    sim = {}
+    for start in range(0, pop.design.size, BATCH):
+        members = list(range(start, min(start + BATCH, pop.design.size)))
+        try:
+            sim.update(acbench.simulate_ac(pop.design, members, study, models, corner, temp))
+        except NgspiceError as err:
+            log(f"  AC bench of {len(members)} designs failed: {_first_lines(err, 1)}")
+    out = []
+    for j in np.flatnonzero([c == corner and t == temp for c, t in zip(res.corners, res.temps)]):
+        vdd = float(res.vdd[j])
+        for k, rid in enumerate(pop.ids):
+            got = sim.get((k, vdd))
+            for metric in AC_METRICS:
+                model = float(res.pvt[metric][k, j])
+                rec = {"id": rid, "architecture": pop.design.architecture, "corner": corner.value,
+                       "temp_c": round(float(temp) - ZERO_CELSIUS, 6), "vdd_v": vdd, "metric": metric,
+                       "model": model, "simulator": None, "error": None,
+                       "error_unit": "deg" if metric == "phase_margin_deg" else "rel", "note": "AC bench"}
+                if got is not None:
+                    rec["simulator"] = float(got[metric])
+                    rec["error"] = _error(metric, model, rec["simulator"])
+                else:
+                    rec["note"] = "AC bench not simulated (ngspice failed)"
+                out.append(rec)
+    return out
+
+
 def _csv(records) -> str:
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
@@ -336,7 +372,7 @@ def summarise(records) -> dict:
     Errors are relative for currents and in volts for headrooms (see the module notes).
     """
     out = {}
-    for metric in METRICS:
+    for metric in METRICS + tuple(m for m in AC_METRICS if any(r["metric"] == m for r in records)):
         rs = [r for r in records if r["metric"] == metric and r["error"] is not None and np.isfinite(r["error"])]
         if not rs:
             out[metric] = {"points": 0}
@@ -359,7 +395,8 @@ def _summary(records, pops, stream, wall) -> None:
         if not s["points"]:
             p(f"  {metric:18s} {0:6d} {'-':>15s} {'-':>12s}")
             continue
-        scale, unit = (1e3, "mV") if metric in ABSOLUTE else (100.0, "%")
+        scale, unit = ((1.0, "deg") if metric == "phase_margin_deg" else (1e3, "mV")) if metric in ABSOLUTE \
+            else (100.0, "%")
         r = s["worst_at"]
         p(f"  {metric:18s} {s['points']:6d} {s['median_abs'] * scale:12.2f} {unit:2s} "
           f"{s['worst'] * scale:+9.2f} {unit:2s}  {r['id']} {r['corner']} {r['temp_c']:g} C {r['vdd_v']:g} V")

@@ -22,7 +22,8 @@ Axis keys:
 - ``seed``: the search seed.
 - dotted study keys: ``supply.nominal|min|max``, ``conditions.temperatures_c|corners``,
   ``load.current|capacitance``, ``driver.compliance|drive``, ``targets.NAME`` (every key of
-  a study's [targets]), ``search.population|generations|checkpoint_every``, and any
+  a study's [targets]), ``amplifier.NAME`` (every key of the [amplifier] table),
+  ``search.population|generations|checkpoint_every``, and any
   ``bounds.``/``ties.`` path that exists in the base study (e.g.
   ``"bounds.floating-loop.ib_n" = [["0.3u", "10u"], ["1u", "10u"]]``).
 
@@ -57,6 +58,8 @@ from ..files.folders import component
 from ..files.study import (
     CONDITION_KEYS,
     DRIVER_KEYS,
+    AMPLIFIER_KEYS,
+    AMPLIFIER_TARGET_UNITS,
     LOAD_KEYS,
     SUPPLY_KEYS,
     TARGET_UNITS,
@@ -69,7 +72,8 @@ SEARCH_OVERRIDES = {"population": 4, "generations": 1, "checkpoint_every": 1}  #
 STUDY_AXES = (("architecture", "technology", "seed")
               + tuple(f"supply.{k}" for k in SUPPLY_KEYS) + tuple(f"conditions.{k}" for k in CONDITION_KEYS)
               + tuple(f"load.{k}" for k in LOAD_KEYS) + tuple(f"driver.{k}" for k in DRIVER_KEYS)
-              + tuple(f"targets.{k}" for k in TARGET_UNITS) + tuple(f"search.{k}" for k in SEARCH_OVERRIDES))
+              + tuple(f"targets.{k}" for k in TARGET_UNITS) + tuple(f"search.{k}" for k in SEARCH_OVERRIDES)
+              + tuple(f"targets.{k}" for k in AMPLIFIER_TARGET_UNITS) + tuple(f"amplifier.{k}" for k in AMPLIFIER_KEYS))
 
 
 @dataclass(frozen=True)
