@@ -1,0 +1,253 @@
+"""Every reported metric of `evaluate` against a hand solution or an independent computation.
+
+Each case is chosen so that the published square-law (SPICE level 1, Shichman and Hodges,
+IEEE JSSC 3(3), 1968) equations solve it in closed form: mirror-symmetric devices (P
+constants = N constants), no length modulation (va_per_l = inf) and sources on their bulk,
+so no body effect. The expected values are written out beside each assertion; the tests
+then read the same numbers from the evaluate JSON object (optimise.review.evaluation) and a
+front.csv row (optimise.search.export), so a metric that goes wrong anywhere between the
+solve and the file is seen.
+
+Mismatch: the adjoint sensitivities against central finite differences of the full solve
+(threshold and current factor of every device moved in turn, signs included), and the
+sigma against the Pelgrom area law (M. J. M. Pelgrom, A. C. J. Duinmaijer, A. P. G.
+Welbers, "Matching properties of MOS transistors", IEEE JSSC 24(5):1433-1440, 1989)
+summed by hand over those differences.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+import pytest
+from scipy.optimize import brentq
+from stage_helpers import NO_CLM, STACKED, T_TEST, floating_sizes, make_design, make_tech, mos_tech
+
+from models.devices.tech import Corner, ModelKind
+from models.evaluate import Conditions, Targets, corner_shifts, devices_at, evaluate, rest_point
+from models.stages import get_stage
+from optimise.review.evaluation import result_to_dict
+from optimise.search.export import design_from_row, design_rows
+
+SQ = ModelKind.SQUARE_LAW
+EKV = ModelKind.EKV
+VT, KP = 0.5, 100e-6  # V, A/V^2: the test process (invented), both polarities
+TECH_SQ = make_tech(SQ, mos_tech(vt0=VT, kp=KP, va_per_l=NO_CLM))
+SUPPLIES = (3.3, 2.7, 3.6)  # V: nominal, min, max (evaluate's grid order: nominal first)
+COND = Conditions((Corner.TT,), (T_TEST,), *SUPPLIES)
+C_LOAD = 20e-12  # F
+LAYOUT = 1.5  # area factor, not 1, so that leaving it out is seen
+TARGETS = Targets(i_load=100e-6, c_load=C_LOAD, vcomp=0.2, layout_factor=LAYOUT)
+
+
+# ---------------------------------------------------------------------------------------
+# Fixed bias, hand-solved at every supply
+# ---------------------------------------------------------------------------------------
+IB, R_BIAS = 2e-6, 100e3  # A, ohm: vb = ib r_bias = 0.2 V between the gates
+VB = IB * R_BIAS
+FB_W, FB_L = 2.0, 2.0  # um, both devices: beta = KP W/L = 100 uA/V^2
+BETA = KP * FB_W / FB_L
+
+
+def fixed_bias_hand(vdd):
+    """Hand solution of the symmetric fixed-bias pair at supply vdd (square law, no CLM).
+
+    Equal beta and VT: both gate-source voltages are (VDD - vb)/2, so
+    Iq = beta/2 ((VDD - vb)/2 - VT)^2; gm = beta (VGS - VT) each.
+    Driven up (source): gp = vcomp + vb, gn = vcomp < VT (MN_OUT off); MP_OUT has
+    VSG - VT = VDD - vcomp - vb - VT and at mid-supply VSD = VDD/2 < that (triode):
+    I = beta (vov VSD - VSD^2/2). The headroom is the VSD at which the triode current equals
+    the load: VSD = vov - sqrt(vov^2 - 2 I_load / beta). The sink side is the mirror image.
+    Lowest supply: mn_out / mp_out stay saturated at VDD/2 while VDD >= 2 (VGS - VT); the
+    pair conducts while VDD >= vb + 2 VT; the bias sources need vb + 2 vcomp.
+    """
+    vov = (vdd - VB) / 2.0 - VT
+    iq = 0.5 * BETA * vov**2
+    drive = vdd - TARGETS.vcomp - VB - VT
+    vsd = 0.5 * vdd
+    peak = BETA * (drive * vsd - 0.5 * vsd**2)
+    headroom = drive - math.sqrt(drive**2 - 2.0 * TARGETS.i_load / BETA)
+    return dict(iq=iq, gm=2.0 * BETA * vov, peak=peak, headroom=headroom,
+                vdd_min=max(2.0 * vov, VB + 2.0 * VT, VB + 2.0 * TARGETS.vcomp))
+
+
+@pytest.fixture(scope="module")
+def fixed_bias():
+    design = make_design("fixed-bias", {"mn_out": (FB_W, FB_L), "mp_out": (FB_W, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    res = evaluate(design, TECH_SQ, COND, TARGETS)
+    assert res.converged.all()
+    return design, res
+
+
+def test_fixed_bias_per_supply_metrics_match_the_hand_solution(fixed_bias):
+    _, res = fixed_bias
+    for j, vdd in enumerate(res.vdd):
+        hand = fixed_bias_hand(vdd)
+        # Closed forms on both sides; the solver's gate to 1e-10 V or better: 1e-9 relative.
+        assert res.pvt["iq_a"][0, j] == pytest.approx(hand["iq"], rel=1e-9)
+        # Output pole as defined today: gm_out / (2 pi C_load) with gm_out = gm(MN_OUT) + gm(MP_OUT).
+        assert res.pvt["fp2_hz"][0, j] == pytest.approx(hand["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
+        # The gate at its drive limit is a closed form; the current at mid-supply too.
+        assert res.pvt["iout_source_a"][0, j] == pytest.approx(hand["peak"], rel=1e-9)
+        assert res.pvt["iout_sink_a"][0, j] == pytest.approx(hand["peak"], rel=1e-9)
+        # The output voltage is solved to 0.1 uV (models.operating.driven_point).
+        assert res.pvt["headroom_high_v"][0, j] == pytest.approx(hand["headroom"], abs=2e-7)
+        assert res.pvt["headroom_low_v"][0, j] == pytest.approx(hand["headroom"], abs=2e-7)
+        assert res.pvt["swing_v"][0, j] == pytest.approx(vdd - 2.0 * hand["headroom"], abs=4e-7)
+        # Here the output devices' saturation binds (2 (VGS - VT) = VDD - 1.2 V > vb + 2 VT = 1.2 V).
+        assert hand["vdd_min"] == pytest.approx(vdd - VB - 2.0 * VT, rel=1e-12)
+        assert res.pvt["vdd_min_v"][0, j] == pytest.approx(hand["vdd_min"], rel=1e-9)
+        # The idle device is cut off at the drive limit (gate at vcomp = 0.2 V < VT): class B.
+        assert res.pvt["ab_ratio"][0, j] == 0.0
+
+
+def test_fixed_bias_summary_matches_the_hand_solution(fixed_bias):
+    design, res = fixed_bias
+    s = {k: v[0] for k, v in res.summary.items()}
+    nom, lo, hi = (fixed_bias_hand(v) for v in SUPPLIES)
+    # (Iq(3.6 V) - Iq(2.7 V)) / Iq(3.3 V) / 0.9 V in %/V: (1.44 - 0.5625) / 1.1025 / 0.9 * 100 = 88.4354 %/V,
+    # positive (Iq rises with the supply) and divided by the supply span.
+    sens = 100.0 * (hi["iq"] - lo["iq"]) / nom["iq"] / (SUPPLIES[2] - SUPPLIES[1])
+    assert sens == pytest.approx(88.4354, rel=1e-6)  # the hand figure above, 6 digits
+    assert s["supply_sens_pct_per_v"] == pytest.approx(sens, rel=1e-9)
+    assert np.all(res.pvt["supply_sens_pct_per_v"][0] == s["supply_sens_pct_per_v"])
+    # Power: nominal supply times (Iq + the bias branch ib): 3.3 V (55.125 uA + 2 uA) = 188.51 uW.
+    assert s["power_w"] == pytest.approx(3.3 * (55.125e-6 + 2e-6), rel=1e-9)
+    # Area: layout factor x sum of W L = 1.5 x (2 x 2 um^2 + 2 x 2 um^2) = 12 um^2.
+    assert s["area_um2"] == pytest.approx(12.0, rel=1e-12)
+    # Worst cases over the supplies: the lowest supply has the least drive, the highest needs most.
+    assert s["iq_a"] == pytest.approx(nom["iq"], rel=1e-9)
+    assert s["iq_min_a"] == pytest.approx(lo["iq"], rel=1e-9)
+    assert s["iq_max_a"] == pytest.approx(hi["iq"], rel=1e-9)
+    assert s["headroom_high_v"] == pytest.approx(lo["headroom"], abs=2e-7)
+    assert s["iout_source_a"] == pytest.approx(lo["peak"], rel=1e-9)
+    assert s["vdd_min_v"] == pytest.approx(hi["vdd_min"], rel=1e-9)
+    assert s["fp2_hz"] == pytest.approx(lo["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
+    assert s["swing_v"] == pytest.approx(SUPPLIES[1] - 2.0 * lo["headroom"], abs=4e-7)
+    # The same numbers in the evaluate JSON object, with the binding requirement named.
+    js = result_to_dict(res, 0)
+    for key, value in s.items():
+        assert js["summary"][key] == pytest.approx(float(value), rel=1e-15), key
+    for j, row in enumerate(js["pvt"]):
+        assert row["vdd_v"] == res.vdd[j] and row["iq_a"] == pytest.approx(res.pvt["iq_a"][0, j], rel=1e-15)
+        assert row["vdd_min_set_by"] == "mn_out leaves saturation"
+    # A front.csv row writes the sizes in micrometres and reads them back to the same design.
+    row = design_rows(design)[0]
+    assert row["mn_out_w_um"] == pytest.approx(FB_W, rel=1e-12) and row["r_bias_ohm"] == R_BIAS
+    back = design_from_row(dict(row, architecture="fixed-bias"))
+    assert back.w["mp_out"][0] == pytest.approx(FB_W * 1e-6, rel=1e-12)
+
+
+# ---------------------------------------------------------------------------------------
+# Floating loop, hand-solved: ab_ratio is the smaller of the two sides; power counts every branch
+# ---------------------------------------------------------------------------------------
+FL_VDD = 5.0  # V
+FL_IB, FL_IB_CTL = 10e-6, 20e-6  # A
+FL_N = dict(out=(10, 1), d1=(1, 1), d2=(1, 1), ctl=(1, 1))
+FL_P = dict(out=(10, 1), d1=(1, 1), d2=(1, 1), ctl=(2.25, 1))  # a wider P control device: sides differ
+
+
+def floating_hand():
+    """Square-law loops with every stacked source on its bulk and no length modulation:
+    ov(D1) + ov(D2) = ov(CTL) + ov(OUT), ov = sqrt(2 I / beta) (E. Seevinck, R. J. Wiegerink,
+    "Generalized translinear circuit principle", IEEE JSSC 26(8), 1991). At rest both loops
+    give the same Iq and the control currents add up to ib_ctl (solved by bisection here);
+    at the drive limit the active control device carries all of ib_ctl (the other one is off),
+    which fixes the idle output device's current from its own loop."""
+    beta = {k: KP * w / l for k, (w, l) in FL_N.items()}
+    beta_p = {k: KP * w / l for k, (w, l) in FL_P.items()}
+
+    def iq_of(b, i_ctl):
+        ov = 2.0 * math.sqrt(2.0 * FL_IB / b["d1"]) - math.sqrt(2.0 * i_ctl / b["ctl"])
+        return 0.5 * b["out"] * ov**2
+
+    i_nc = brentq(lambda i: iq_of(beta, i) - iq_of(beta_p, FL_IB_CTL - i), 1e-12, FL_IB_CTL - 1e-12, xtol=1e-20)
+    iq = iq_of(beta, i_nc)
+    return iq, iq_of(beta, FL_IB_CTL) / iq, iq_of(beta_p, FL_IB_CTL) / iq
+
+
+def test_floating_loop_ab_ratio_is_the_smaller_side_and_power_counts_every_branch():
+    design = make_design("floating-loop", floating_sizes(FL_N, FL_P),
+                         dict(ib_n=FL_IB, ib_p=FL_IB, ib_ctl=FL_IB_CTL), tied=STACKED)
+    cond = Conditions((Corner.TT,), (T_TEST,), FL_VDD, FL_VDD, FL_VDD)
+    targets = dataclasses.replace(TARGETS, vcomp=1e-3)  # the control device's saturation edge binds
+    res = evaluate(design, TECH_SQ, cond, targets)
+    assert res.converged.all()
+    iq, ab_source, ab_sink = floating_hand()
+    # The two sides differ (about 0.33 and 0.57), so min and max of them are told apart.
+    assert ab_source < 0.8 * ab_sink < 0.8
+    assert res.summary["iq_a"][0] == pytest.approx(iq, rel=1e-7)
+    # Square law: continuous at the control device's saturation edge, so the limit costs nothing;
+    # the edge is solved to 1 uV in the gates: 1e-5 relative.
+    assert res.pvt["ab_ratio"][0, 0] == pytest.approx(min(ab_source, ab_sink), rel=1e-5)
+    assert res.summary["ab_ratio"][0] <= 1.0
+    # Power: VDD (Iq + ib_n + ib_p + ib_ctl), every bias branch (40 uA here, about a third of it).
+    assert res.summary["power_w"][0] == pytest.approx(FL_VDD * (iq + 2 * FL_IB + FL_IB_CTL), rel=1e-7)
+    # Area: 1.5 x (10 + 1 + 1 + 1 + 10 + 1 + 1 + 2.25) um^2 = 40.875 um^2.
+    assert res.summary["area_um2"][0] == pytest.approx(40.875, rel=1e-12)
+
+
+# ---------------------------------------------------------------------------------------
+# Mismatch: adjoint sensitivities against finite differences of the full solve
+# ---------------------------------------------------------------------------------------
+MM_VDD = 3.3  # V
+# An EKV process with length modulation and body effect, unequal N and P (invented for the test).
+TECH_MM = make_tech(EKV, mos_tech(vt0=0.55, kp=180e-6, n=1.35, gamma=0.6, phi=0.85, va_per_l=2e7, a_vt=8e-9,
+                                  a_beta=1.5e-8),
+                    mos_tech(vt0=0.65, kp=60e-6, n=1.4, gamma=0.5, phi=0.8, va_per_l=1.5e7, a_vt=9e-9,
+                             a_beta=1.5e-8))
+MM_DESIGNS = {
+    "floating-loop": make_design("floating-loop", floating_sizes(dict(out=(60, 0.5), d1=(6, 1.5), d2=(9, 1.5),
+                                                                      ctl=(12, 1.0)),
+                                                                 dict(out=(180, 0.5), d1=(30, 1.5), d2=(20, 1.5),
+                                                                      ctl=(25, 1.0))),
+                                 dict(ib_n=2e-6, ib_p=3e-6, ib_ctl=4e-6), tied={"mn_ctl"}),
+    "fixed-bias": make_design("fixed-bias", {"mn_out": (60, 0.5), "mp_out": (180, 0.5)}, dict(ib=4e-6, r_bias=500e3)),
+    "follower": make_design("follower", {"mn_f": (200, 0.5), "mp_f": (600, 0.5), "mn_b": (20, 0.5),
+                                         "mp_b": (50, 0.7)}, dict(ib=2e-6), tied={"mp_b"}),
+}
+
+
+def _iq(design, dvt, dbeta, sensitivity=False):
+    stage = get_stage(design.architecture)
+    devs = devices_at(stage, design, TECH_MM, corner_shifts(TECH_MM, [Corner.TT]), np.full(1, T_TEST),
+                      np.zeros(1, dtype=int), dvt, dbeta)
+    bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
+    _, ok, sens, op = rest_point(stage, devs, bias, np.full(1, MM_VDD), sensitivity=sensitivity)
+    assert ok.all()
+    return float(op[stage.PULL_DOWN][0][0]), sens
+
+
+@pytest.mark.parametrize("architecture", list(MM_DESIGNS))
+def test_mismatch_sensitivities_and_sigma_match_finite_differences(architecture):
+    design = MM_DESIGNS[architecture]
+    stage = get_stage(architecture)
+    zero = {r: np.zeros(1) for r in stage.ROLES}
+    iq0, sens = _iq(design, zero, zero, sensitivity=True)
+    h_vt, h_beta = 1e-5, 1e-5  # V, 1: truncation ~ (h / UT)^2 ~ 1e-7, solve rounding ~ 1e-14 V / h ~ 1e-9
+    fd, var = {}, 0.0
+    for role in stage.ROLES:
+        for k, h in ((0, h_vt), (1, h_beta)):
+            up = [dict(zero), dict(zero)]
+            dn = [dict(zero), dict(zero)]
+            up[k][role] = np.full(1, h)
+            dn[k][role] = np.full(1, -h)
+            fd[role, k] = (_iq(design, *up)[0] - _iq(design, *dn)[0]) / (2.0 * h)
+        spec = stage.TOPOLOGY.spec(role)
+        mt = TECH_MM.mos(spec.polarity)
+        area = design.w[role][0] * design.l[role][0]
+        # [Pel89]: a matched pair differs by sigma = A / sqrt(W L); each device of the pair deviates
+        # independently from the mean, so by A / sqrt(2 W L) (the pair's variance is the sum of two).
+        var += (fd[role, 0] * mt.a_vt / math.sqrt(2.0 * area)) ** 2 + (fd[role, 1] * mt.a_beta / math.sqrt(2.0 * area)) ** 2
+    scale = max(abs(v) for v in fd.values())
+    for (role, k), value in fd.items():
+        # Signs included: each sensitivity on its own, to the differences' truncation error.
+        assert sens[role][k][0] == pytest.approx(value, rel=1e-5, abs=1e-7 * scale), (role, k)
+    # Sensitivities of both kinds matter here (none of the devices is negligible by construction).
+    assert abs(fd[stage.PULL_DOWN, 0]) > 0 and abs(fd[stage.PULL_DOWN, 1]) > 0
+    res = evaluate(design, TECH_MM, Conditions((Corner.TT,), (T_TEST,), MM_VDD, MM_VDD, MM_VDD),
+                   Targets(i_load=10e-6, c_load=C_LOAD))
+    assert res.summary["iq_a"][0] == pytest.approx(iq0, rel=1e-12)
+    # The reported sigma, from the hand sum over the finite differences (truncation 1e-5 relative).
+    assert res.summary["iq_sigma_pct"][0] == pytest.approx(100.0 * math.sqrt(var) / iq0, rel=1e-5)
