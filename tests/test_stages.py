@@ -12,6 +12,7 @@ equalities; CP (common practice) rules only as bounds or orderings.
 from __future__ import annotations
 
 import dataclasses
+import math
 from pathlib import Path
 
 import numpy as np
@@ -340,11 +341,12 @@ def test_monte_carlo_iq_spread_matches_the_linear_estimate(architecture):
     iq, ok = monte_carlo_iq(design, tech, Corner.TT, T_TEST, MC_VDD, MC_SAMPLES, np.random.default_rng(MC_SEED))
     assert ok.all()
     mc_pct = 100.0 * np.std(iq) / res.summary["iq_a"][0]
-    # DESIGN.md 2.3 [Pel89]: the linear propagation of the Pelgrom sigmas through the solved point must
-    # agree with Monte Carlo. 10 % as asked: the sampling error of a standard deviation from 20 000
-    # draws is 1/sqrt(2 N) = 0.5 %, the rest is room for the curvature of Iq in dVT at a few % sigma.
+    # [Pel89]: the linear propagation of the Pelgrom sigmas through the solved point must agree with
+    # Monte Carlo. Tolerance from the sample count: the standard error of a standard deviation from
+    # N normal draws is 1/sqrt(2 N) = 0.5 % at N = 20 000; 4 of those (2 %), plus 0.7 % for the
+    # curvature of Iq in dVT at a few % sigma (the linear estimate leaves it out).
     # Measured MC / linear: 2.780 / 2.789 %, 1.538 / 1.545 %, 3.039 / 3.060 % (within 0.7 %).
-    assert mc_pct == pytest.approx(linear_pct, rel=0.10)
+    assert mc_pct == pytest.approx(linear_pct, rel=4.0 / math.sqrt(2 * MC_SAMPLES) + 0.007)
 
 
 # ---------------------------------------------------------------------------------------
