@@ -6,6 +6,7 @@ Run by hand (not a test, not in CI), from the repository root::
     python3 benchmarks/mutate.py --modules models/summary.py models/devices/ekv.py
     python3 benchmarks/mutate.py --max-mutants 10 --jobs 2 --seed 3
     python3 benchmarks/mutate.py --list                 # the planted changes only, nothing run
+    python3 benchmarks/mutate.py --named                # only the hand-written changes of NAMED
 
 The package, its tests and studies are copied to a temporary folder; each mutant is one
 module of that copy rewritten through `ast` with a single change, and the mapped subset of
@@ -74,6 +75,23 @@ BINOPS = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mu
 CMPOPS = {ast.Lt: ast.GtE, ast.GtE: ast.Lt, ast.Gt: ast.LtE, ast.LtE: ast.Gt, ast.Eq: ast.NotEq, ast.NotEq: ast.Eq}
 SYMBOL = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**", ast.BitAnd: "&", ast.BitOr: "|",
           ast.Lt: "<", ast.GtE: ">=", ast.Gt: ">", ast.LtE: "<=", ast.Eq: "==", ast.NotEq: "!="}
+# Hand-written wrong changes (path, text, replacement): each once in its file. Small errors a
+# reviewer could miss, in the numbers the tool reports.
+NAMED = [
+    ("models/devices/conditions.py", "return 2.0 * m.n * m.kp", "return 0.95 * 2.0 * m.n * m.kp"),
+    ("models/devices/mismatch.py", "return sigma_pair_vt(a_vt, w, l) / np.sqrt(2.0)",
+     "return sigma_pair_vt(a_vt, w, l) / np.sqrt(1.9)"),
+    ("models/devices/mismatch.py", "return sigma_pair_beta(a_beta, w, l) / np.sqrt(2.0)",
+     "return sigma_pair_beta(a_beta, w, l) / np.sqrt(1.9)"),
+    ("models/circuit/nodal.py", "s_beta = -(d.p * i_d / (1.0 + d.dbeta)) * w", "s_beta = (d.p * i_d / (1.0 + d.dbeta)) * w"),
+    ("models/summary.py", "100.0 * (i_hi - i_lo) / ref", "100.0 * (i_lo - i_hi) / ref"),
+    ("models/summary.py", "/ ref / max(span, 1e-300)", "/ ref"),
+    ("models/evaluate.py", "fp2 = gm / (2.0 * np.pi * targets.c_load)", "fp2 = gm / (np.pi * targets.c_load)"),
+    ("models/evaluate.py", '"ab_ratio": np.minimum(ab_src, ab_snk)', '"ab_ratio": np.maximum(ab_src, ab_snk)'),
+    ("models/stages/fixed_bias.py", '("mn_out leaves saturation", 2.0 *', '("mn_out leaves saturation", 1.0 *'),
+    ("models/stages/fixed_bias.py", '("mp_out leaves saturation", 2.0 *', '("mp_out leaves saturation", 1.0 *'),
+    ("models/summary.py", '(pvt["iq_a"][:, j] + stage.bias_total(bias))', '(pvt["iq_a"][:, j])'),
+]
 GUARD_KEYWORDS = {"xtol", "tol", "rtol", "atol", "max_iter", "iterations", "step_max"}
 
 
@@ -245,11 +263,28 @@ def run_tests(root: Path, tests: list[str], timeout: float) -> tuple[str, float]
     return ("pass" if proc.returncode == 0 else "fail"), time.perf_counter() - t0
 
 
+def named_sites() -> list[Site]:
+    out = []
+    for k, (path, old, new) in enumerate(NAMED):
+        text = (REPO / path).read_text()
+        if text.count(old) != 1:
+            raise SystemExit(f"NAMED change {k}: {old!r} occurs {text.count(old)} times in {path}, not once")
+        out.append(Site(path, -1 - k, text[:text.index(old)].count("\n") + 1, f"{old} -> {new}"))
+    return out
+
+
+def source_of(site: Site) -> str:
+    if site.index < 0:
+        path, old, new = NAMED[-1 - site.index]
+        return (REPO / path).read_text().replace(old, new)
+    return mutated_source(REPO / site.path, site.index)
+
+
 def run_mutant(root: Path, site: Site, timeout: float) -> tuple[Site, str, float]:
     target = root / site.path
     original = target.read_text()
     try:
-        target.write_text(mutated_source(REPO / site.path, site.index))
+        target.write_text(source_of(site))
         outcome, wall = run_tests(root, tests_for(site.path), timeout)
     finally:
         target.write_text(original)
@@ -270,11 +305,12 @@ def main() -> int:
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--jobs", type=int, default=1, help="mutants run at once (each in its own copy)")
     ap.add_argument("--list", action="store_true", help="print the chosen mutants and stop")
+    ap.add_argument("--named", action="store_true", help="run the hand-written changes of NAMED instead")
     args = ap.parse_args()
 
     rng = random.Random(args.seed)
-    chosen: list[Site] = []
-    for path in targets(args.modules):
+    chosen: list[Site] = named_sites() if args.named else []
+    for path in [] if args.named else targets(args.modules):
         all_sites = sites(path)
         pick = all_sites if not args.max_mutants or len(all_sites) <= args.max_mutants else \
             sorted(rng.sample(all_sites, args.max_mutants), key=lambda s: s.index)

@@ -46,97 +46,119 @@ TARGETS = Targets(i_load=100e-6, c_load=C_LOAD, vcomp=0.2, layout_factor=LAYOUT)
 # ---------------------------------------------------------------------------------------
 IB, R_BIAS = 2e-6, 100e3  # A, ohm: vb = ib r_bias = 0.2 V between the gates
 VB = IB * R_BIAS
-FB_W, FB_L = 2.0, 2.0  # um, both devices: beta = KP W/L = 100 uA/V^2
-BETA = KP * FB_W / FB_L
+FB_L = 2.0  # um, both devices
+# (W of MN_OUT, W of MP_OUT) in um: equal devices, and each side the stronger one in turn, so
+# that each output device's saturation is the binding requirement in one of the cases.
+FB_WIDTHS = {"equal": (2.0, 2.0), "wide-n": (4.0, 2.0), "wide-p": (2.0, 4.0)}
 
 
-def fixed_bias_hand(vdd):
-    """Hand solution of the symmetric fixed-bias pair at supply vdd (square law, no CLM).
+def fixed_bias_hand(vdd, wn, wp):
+    """Hand solution of the fixed-bias pair at supply vdd (square law, no CLM, equal VT).
 
-    Equal beta and VT: both gate-source voltages are (VDD - vb)/2, so
-    Iq = beta/2 ((VDD - vb)/2 - VT)^2; gm = beta (VGS - VT) each.
+    beta = KP W/L. Equal currents: beta_n ov_n^2 = beta_p ov_p^2 (ov = VGS - VT), and the two
+    gate-source voltages add up to VDD - vb, so ov_n = (VDD - vb - 2 VT) / (1 + k), ov_p = k ov_n
+    with k = sqrt(beta_n / beta_p); Iq = beta_n/2 ov_n^2; gm = beta ov each.
     Driven up (source): gp = vcomp + vb, gn = vcomp < VT (MN_OUT off); MP_OUT has
     VSG - VT = VDD - vcomp - vb - VT and at mid-supply VSD = VDD/2 < that (triode):
     I = beta (vov VSD - VSD^2/2). The headroom is the VSD at which the triode current equals
-    the load: VSD = vov - sqrt(vov^2 - 2 I_load / beta). The sink side is the mirror image.
-    Lowest supply: mn_out / mp_out stay saturated at VDD/2 while VDD >= 2 (VGS - VT); the
-    pair conducts while VDD >= vb + 2 VT; the bias sources need vb + 2 vcomp.
+    the load: VSD = vov - sqrt(vov^2 - 2 I_load / beta). The sink side is the mirror image with
+    MN_OUT's beta. Lowest supply: each output device stays saturated at VDD/2 while
+    VDD >= 2 ov; the pair conducts while VDD >= vb + 2 VT; the bias sources need vb + 2 vcomp.
     """
-    vov = (vdd - VB) / 2.0 - VT
-    iq = 0.5 * BETA * vov**2
+    bn, bp = KP * wn / FB_L, KP * wp / FB_L
+    k = math.sqrt(bn / bp)
+    ov_n = (vdd - VB - 2.0 * VT) / (1.0 + k)
+    ov_p = k * ov_n
     drive = vdd - TARGETS.vcomp - VB - VT
     vsd = 0.5 * vdd
-    peak = BETA * (drive * vsd - 0.5 * vsd**2)
-    headroom = drive - math.sqrt(drive**2 - 2.0 * TARGETS.i_load / BETA)
-    return dict(iq=iq, gm=2.0 * BETA * vov, peak=peak, headroom=headroom,
-                vdd_min=max(2.0 * vov, VB + 2.0 * VT, VB + 2.0 * TARGETS.vcomp))
+
+    def peak(b):
+        return b * (drive * vsd - 0.5 * vsd**2)
+
+    def headroom(b):
+        return drive - math.sqrt(drive**2 - 2.0 * TARGETS.i_load / b)
+
+    return dict(iq=0.5 * bn * ov_n**2, gm=bn * ov_n + bp * ov_p, peak_src=peak(bp), peak_snk=peak(bn),
+                head_high=headroom(bp), head_low=headroom(bn), req_n=2.0 * ov_n, req_p=2.0 * ov_p,
+                vdd_min=max(2.0 * ov_n, 2.0 * ov_p, VB + 2.0 * VT, VB + 2.0 * TARGETS.vcomp))
 
 
-@pytest.fixture(scope="module")
-def fixed_bias():
-    design = make_design("fixed-bias", {"mn_out": (FB_W, FB_L), "mp_out": (FB_W, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+@pytest.fixture(scope="module", params=list(FB_WIDTHS))
+def fixed_bias(request):
+    wn, wp = FB_WIDTHS[request.param]
+    design = make_design("fixed-bias", {"mn_out": (wn, FB_L), "mp_out": (wp, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
     res = evaluate(design, TECH_SQ, COND, TARGETS)
     assert res.converged.all()
-    return design, res
+    return request.param, design, res
 
 
 def test_fixed_bias_per_supply_metrics_match_the_hand_solution(fixed_bias):
-    _, res = fixed_bias
+    case, _, res = fixed_bias
+    wn, wp = FB_WIDTHS[case]
     for j, vdd in enumerate(res.vdd):
-        hand = fixed_bias_hand(vdd)
+        hand = fixed_bias_hand(vdd, wn, wp)
         # Closed forms on both sides; the solver's gate to 1e-10 V or better: 1e-9 relative.
         assert res.pvt["iq_a"][0, j] == pytest.approx(hand["iq"], rel=1e-9)
         # Output pole as defined today: gm_out / (2 pi C_load) with gm_out = gm(MN_OUT) + gm(MP_OUT).
         assert res.pvt["fp2_hz"][0, j] == pytest.approx(hand["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
         # The gate at its drive limit is a closed form; the current at mid-supply too.
-        assert res.pvt["iout_source_a"][0, j] == pytest.approx(hand["peak"], rel=1e-9)
-        assert res.pvt["iout_sink_a"][0, j] == pytest.approx(hand["peak"], rel=1e-9)
+        assert res.pvt["iout_source_a"][0, j] == pytest.approx(hand["peak_src"], rel=1e-9)
+        assert res.pvt["iout_sink_a"][0, j] == pytest.approx(hand["peak_snk"], rel=1e-9)
         # The output voltage is solved to 0.1 uV (models.operating.driven_point).
-        assert res.pvt["headroom_high_v"][0, j] == pytest.approx(hand["headroom"], abs=2e-7)
-        assert res.pvt["headroom_low_v"][0, j] == pytest.approx(hand["headroom"], abs=2e-7)
-        assert res.pvt["swing_v"][0, j] == pytest.approx(vdd - 2.0 * hand["headroom"], abs=4e-7)
-        # Here the output devices' saturation binds (2 (VGS - VT) = VDD - 1.2 V > vb + 2 VT = 1.2 V).
-        assert hand["vdd_min"] == pytest.approx(vdd - VB - 2.0 * VT, rel=1e-12)
+        assert res.pvt["headroom_high_v"][0, j] == pytest.approx(hand["head_high"], abs=2e-7)
+        assert res.pvt["headroom_low_v"][0, j] == pytest.approx(hand["head_low"], abs=2e-7)
+        assert res.pvt["swing_v"][0, j] == pytest.approx(vdd - hand["head_high"] - hand["head_low"], abs=4e-7)
+        # Here an output device's saturation binds (2 ov >= 1.5 V > vb + 2 VT = 1.2 V) ...
+        assert hand["vdd_min"] == pytest.approx(max(hand["req_n"], hand["req_p"]), rel=1e-12)
         assert res.pvt["vdd_min_v"][0, j] == pytest.approx(hand["vdd_min"], rel=1e-9)
+        # ... the stronger device's partner, which needs the larger overdrive for the same current.
+        named = res.requirement_names[int(res.pvt["vdd_min_what"][0, j])]
+        assert named == ("mp_out leaves saturation" if wn > wp else "mn_out leaves saturation")
         # The idle device is cut off at the drive limit (gate at vcomp = 0.2 V < VT): class B.
         assert res.pvt["ab_ratio"][0, j] == 0.0
 
 
 def test_fixed_bias_summary_matches_the_hand_solution(fixed_bias):
-    design, res = fixed_bias
+    case, design, res = fixed_bias
+    wn, wp = FB_WIDTHS[case]
     s = {k: v[0] for k, v in res.summary.items()}
-    nom, lo, hi = (fixed_bias_hand(v) for v in SUPPLIES)
-    # (Iq(3.6 V) - Iq(2.7 V)) / Iq(3.3 V) / 0.9 V in %/V: (1.44 - 0.5625) / 1.1025 / 0.9 * 100 = 88.4354 %/V,
-    # positive (Iq rises with the supply) and divided by the supply span.
+    nom, lo, hi = (fixed_bias_hand(v, wn, wp) for v in SUPPLIES)
+    # Supply sensitivity, positive (Iq rises with the supply) and divided by the supply span.
     sens = 100.0 * (hi["iq"] - lo["iq"]) / nom["iq"] / (SUPPLIES[2] - SUPPLIES[1])
-    assert sens == pytest.approx(88.4354, rel=1e-6)  # the hand figure above, 6 digits
+    if case == "equal":
+        # (Iq(3.6 V) - Iq(2.7 V)) / Iq(3.3 V) / 0.9 V in %/V, ov = (VDD - 1.2 V)/2:
+        # (1.44 - 0.5625) / 1.1025 / 0.9 * 100 = 88.4354 %/V
+        assert sens == pytest.approx(88.4354, rel=1e-6)  # the hand figure above, 6 digits
+        # Power: nominal supply times (Iq + the bias branch ib): 3.3 V (55.125 uA + 2 uA) = 188.51 uW.
+        assert nom["iq"] == pytest.approx(55.125e-6, rel=1e-12)
     assert s["supply_sens_pct_per_v"] == pytest.approx(sens, rel=1e-9)
     assert np.all(res.pvt["supply_sens_pct_per_v"][0] == s["supply_sens_pct_per_v"])
-    # Power: nominal supply times (Iq + the bias branch ib): 3.3 V (55.125 uA + 2 uA) = 188.51 uW.
-    assert s["power_w"] == pytest.approx(3.3 * (55.125e-6 + 2e-6), rel=1e-9)
-    # Area: layout factor x sum of W L = 1.5 x (2 x 2 um^2 + 2 x 2 um^2) = 12 um^2.
-    assert s["area_um2"] == pytest.approx(12.0, rel=1e-12)
+    assert s["power_w"] == pytest.approx(3.3 * (nom["iq"] + IB), rel=1e-9)
+    # Area: layout factor x sum of W L = 1.5 x (W_n + W_p) x 2 um.
+    assert s["area_um2"] == pytest.approx(LAYOUT * (wn + wp) * FB_L, rel=1e-12)
     # Worst cases over the supplies: the lowest supply has the least drive, the highest needs most.
     assert s["iq_a"] == pytest.approx(nom["iq"], rel=1e-9)
     assert s["iq_min_a"] == pytest.approx(lo["iq"], rel=1e-9)
     assert s["iq_max_a"] == pytest.approx(hi["iq"], rel=1e-9)
-    assert s["headroom_high_v"] == pytest.approx(lo["headroom"], abs=2e-7)
-    assert s["iout_source_a"] == pytest.approx(lo["peak"], rel=1e-9)
+    assert s["headroom_high_v"] == pytest.approx(lo["head_high"], abs=2e-7)
+    assert s["headroom_low_v"] == pytest.approx(lo["head_low"], abs=2e-7)
+    assert s["iout_source_a"] == pytest.approx(lo["peak_src"], rel=1e-9)
+    assert s["iout_sink_a"] == pytest.approx(lo["peak_snk"], rel=1e-9)
     assert s["vdd_min_v"] == pytest.approx(hi["vdd_min"], rel=1e-9)
     assert s["fp2_hz"] == pytest.approx(lo["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
-    assert s["swing_v"] == pytest.approx(SUPPLIES[1] - 2.0 * lo["headroom"], abs=4e-7)
+    assert s["swing_v"] == pytest.approx(SUPPLIES[1] - lo["head_high"] - lo["head_low"], abs=4e-7)
     # The same numbers in the evaluate JSON object, with the binding requirement named.
     js = result_to_dict(res, 0)
     for key, value in s.items():
         assert js["summary"][key] == pytest.approx(float(value), rel=1e-15), key
     for j, row in enumerate(js["pvt"]):
         assert row["vdd_v"] == res.vdd[j] and row["iq_a"] == pytest.approx(res.pvt["iq_a"][0, j], rel=1e-15)
-        assert row["vdd_min_set_by"] == "mn_out leaves saturation"
+        assert row["vdd_min_set_by"] == ("mp_out leaves saturation" if wn > wp else "mn_out leaves saturation")
     # A front.csv row writes the sizes in micrometres and reads them back to the same design.
     row = design_rows(design)[0]
-    assert row["mn_out_w_um"] == pytest.approx(FB_W, rel=1e-12) and row["r_bias_ohm"] == R_BIAS
+    assert row["mn_out_w_um"] == pytest.approx(wn, rel=1e-12) and row["r_bias_ohm"] == R_BIAS
     back = design_from_row(dict(row, architecture="fixed-bias"))
-    assert back.w["mp_out"][0] == pytest.approx(FB_W * 1e-6, rel=1e-12)
+    assert back.w["mp_out"][0] == pytest.approx(wp * 1e-6, rel=1e-12)
 
 
 # ---------------------------------------------------------------------------------------
