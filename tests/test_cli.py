@@ -14,7 +14,7 @@ from optimise.cli import main
 ROOT = Path(__file__).resolve().parent.parent
 STUDY = ROOT / "studies" / "sensor-buffer.toml"
 ARCHS = ("floating-loop", "fixed-bias", "follower")
-# DESIGN.md section 4: the names every evaluation reports.
+# The evaluate contract (README.md, "evaluate"): the names every evaluation reports.
 SECTION4 = ("iq_a", "power_w", "headroom_high_v", "headroom_low_v", "swing_v", "iout_source_a",
             "iout_sink_a", "ab_ratio", "area_um2", "iq_sigma_pct", "supply_sens_pct_per_v", "vdd_min_v", "fp2_hz")
 PVT_NAMES = tuple(n for n in SECTION4 if n not in ("power_w", "area_um2"))

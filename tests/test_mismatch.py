@@ -1,7 +1,7 @@
 """Pelgrom area law of models.devices.mismatch: hand values and Monte Carlo.
 
-Reference keys as in /work/shared/CHECK-VALUES.md, section 8: [Pel89] is Pelgrom,
-Duinmaijer, Welbers, IEEE JSSC 24(5), 1989.
+[Pel89] M. J. M. Pelgrom, A. C. J. Duinmaijer, A. P. G. Welbers, "Matching properties of MOS
+transistors", IEEE J. Solid-State Circuits 24(5):1433-1440, 1989.
 """
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ from models.devices import mismatch
 
 UM = 1e-6
 A_VT = 5e-3 * UM  # V*m, 5 mV*um
-A_BETA = 0.01 * UM  # m, 1 %*um (CHECK-VALUES sec. 3 "typical Abeta 1-2 %*um", M: a plausible value only)
+A_BETA = 0.01 * UM  # m, 1 %*um (typical Abeta 1-2 %*um, [Pel89] and P. R. Kinget, IEEE JSSC 40(6), 2005, from memory: a plausible value only)
 N_DRAWS = 200_000  # relative standard error of a sample sigma 1/sqrt(2 N) = 0.16 %
 SEED = 20240611
 
@@ -20,7 +20,7 @@ SEED = 20240611
 @pytest.mark.parametrize(
     "a_vt, w, l, sigma",
     [
-        # CHECK-VALUES sec. 3 area-law examples, sigma = AVT / sqrt(W L) [Pel89] (D)
+        # [Pel89] area law sigma = AVT / sqrt(W L), hand calc: 5 mV um / 1 um, / sqrt(10) um, 3.5 / 10 um
         (5e-3 * UM, 1 * UM, 1 * UM, 5.00e-3),
         (5e-3 * UM, 10 * UM, 1 * UM, 1.58e-3),
         (3.5e-3 * UM, 10 * UM, 10 * UM, 0.35e-3),

@@ -1,8 +1,13 @@
 """Device equations of models.devices.mos against published values, hand calculations and themselves.
 
-Reference keys ([AH02], [EKV95], ...) are those of /work/shared/CHECK-VALUES.md, section 8.
-Only rows with status S (seen in the source) or D (derived by arithmetic) are asserted as
-equalities; M and CP rows only bound sanity bands.
+References: [AH02] P. E. Allen, D. R. Holberg, CMOS Analog Circuit Design, 2nd ed., Oxford
+University Press, 2002 (Table 3.1-2, Example 3.1-1, Sec. 2.5 Eqs. (8), (9)); [EKV95] C. C. Enz,
+F. Krummenacher, E. A. Vittoz, "An analytical MOS transistor model valid in all regions of
+operation and dedicated to low-voltage and low-current applications", Analog Integrated
+Circuits and Signal Processing 8(1):83-114, 1995 (equations from memory); [Bin08] D. M. Binkley,
+Tradeoffs and Optimization in Analog CMOS Design, Wiley, 2008 (from memory). Values taken from a
+published table or derived from its equations by hand are asserted as equalities; rules of
+thumb remembered from the literature only bound sanity bands.
 """
 from __future__ import annotations
 
@@ -18,14 +23,14 @@ from models.devices.tech import ModelKind, MosTech, Polarity
 
 EKV = ModelKind.EKV
 SQ = ModelKind.SQUARE_LAW
-T300 = 300.0  # K, the temperature of the CHECK-VALUES derivations
+T300 = 300.0  # K, the temperature of the hand derivations below
 
 
 def ah02_tech(polarity: Polarity, va_per_l: float | None = None) -> MosTech:
-    """Generic 0.8 um process of [AH02] Table 3.1-2 (S): VT0, K', gamma, lambda at L = 1 um, 2|phiF|.
+    """Generic 0.8 um process of [AH02] Table 3.1-2: VT0, K', gamma, lambda at L = 1 um, 2|phiF|.
 
     n = 1.3 is not in that table; it is the slope factor the EKV checks below are written for.
-    tc_vt = 2.3 mV/K and mu_exp = -1.5 are [AH02] Sec. 2.5 Eqs. (9) and (8) (S).
+    tc_vt = 2.3 mV/K and mu_exp = -1.5 are [AH02] Sec. 2.5 Eqs. (9) and (8).
     The mismatch and capacitance fields are not used here.
     """
     if polarity == Polarity.N:
@@ -62,7 +67,7 @@ def test_ekv_f_inverse_round_trip():
 @pytest.mark.parametrize(
     "ic, v",
     [
-        # CHECK-VALUES sec. 1 numeric table, column "v classic" = 2 ln(exp(sqrt(IC)) - 1) (D)
+        # [EKV95] inverse of F: v = 2 ln(exp(sqrt(IC)) - 1), evaluated by hand to 4 decimals
         (0.01, -4.5043),
         (0.1, -1.9780),
         (1.0, 1.0826),
@@ -78,7 +83,7 @@ def test_ekv_f_inverse_table_values(ic, v):
 @pytest.mark.parametrize(
     "ic, ratio",
     [
-        # CHECK-VALUES sec. 1, classic gm*n*UT/ID = (1 - exp(-sqrt(IC)))/sqrt(IC) [EKV95] (D)
+        # [EKV95] gm n UT / ID = (1 - exp(-sqrt(IC))) / sqrt(IC), evaluated by hand to 4 decimals
         (0.1, 0.8573),
         (1.0, 0.6321),
         (10.0, 0.3028),
@@ -103,7 +108,7 @@ def test_weak_inversion_slope_is_n_ut_ln10_per_decade():
     ispec = mos.specific_current(m, W, L)
     vg = mos.gate_voltage_sat(m, W, L, np.array([1e-9, 1e-8]) * ispec, vs=0.0)
     slope = vg[1] - vg[0]
-    # Hand calc: n UT ln 10 = 1.3 * 25.852 mV * 2.302585 = 77.384 mV/dec at 300 K (UT: CHECK-VALUES sec. 1, D).
+    # Hand calc: n UT ln 10 = 1.3 * 25.852 mV * 2.302585 = 77.384 mV/dec at 300 K (UT = kT/q, SI 2019 k and q).
     # Tolerance: F(x) = exp(x) (1 + O(sqrt(IC))) and sqrt(IC) <= 1e-4 here.
     assert slope == pytest.approx(77.384e-3, rel=1e-3)
     assert slope == pytest.approx(m.n * m.ut * math.log(10.0), rel=1e-3)
@@ -112,7 +117,7 @@ def test_weak_inversion_slope_is_n_ut_ln10_per_decade():
 @pytest.mark.parametrize(
     "temp, ut",
     [
-        # CHECK-VALUES sec. 1, UT = kT/q with the exact SI 2019 k and q (D)
+        # UT = kT/q with the exact k and q of the SI Brochure, 9th ed. (BIPM 2019), by hand
         (300.0, 25.852e-3),
         (300.15, 25.865e-3),
         (298.15, 25.693e-3),
@@ -135,7 +140,7 @@ def test_ekv_absolute_current_from_the_specific_current():
     # so the saturated current is 0.480453 * 0.95571 uA = 0.45917 uA.
     i = mos.current(m, W, L, vg=m.vt0, vd=3.0, vs=0.0)
     assert i == pytest.approx(0.45917e-6, rel=2e-5)
-    # IC = 1 lies 1.0826 UT of VP - VS above that ([EKV95] inverse, CHECK-VALUES sec. 1): the
+    # IC = 1 lies 1.0826 UT of VP - VS above that ([EKV95] inverse, the table above): the
     # current there is Ispec itself.
     vg = m.vt0 + m.n * m.ut * 1.0826
     assert mos.current(m, W, L, vg=vg, vd=3.0, vs=0.0) == pytest.approx(0.95571e-6, rel=1e-4)
@@ -150,7 +155,7 @@ def test_square_law_nmos_allen_holberg_example():
     i = mos.current(m, 5e-6, 1e-6, vg=2.0, vd=3.0, vs=0.0, vb=0.0)
     # Hand calc: 0.5 * 110u * 5 * (2 - 0.7)^2 * (1 + 0.04 * 3) = 520.52 uA; only rounding differs.
     assert i == pytest.approx(520.52e-6, rel=1e-12)
-    # [AH02] Example 3.1-1 (S: 520 uA; recomputed D: 520.5 uA); half a unit of the last digit.
+    # [AH02] Example 3.1-1 (the book quotes 520 uA; recomputed by hand 520.5 uA); half a unit of the last digit.
     assert i == pytest.approx(520.5e-6, abs=0.05e-6)
 
 
@@ -160,7 +165,7 @@ def test_square_law_pmos_allen_holberg_example():
     i = mos.current(m, 5e-6, 1e-6, vg=3.0, vd=2.0, vs=5.0, vb=5.0)
     # Hand calc: 0.5 * 50u * 5 * (2 - 0.7)^2 * (1 + 0.05 * 3) = 242.9375 uA.
     assert i == pytest.approx(242.9375e-6, rel=1e-12)
-    # [AH02] Example 3.1-1 (S: 243 uA; recomputed D: 242.9 uA); half a unit of the last digit.
+    # [AH02] Example 3.1-1 (the book quotes 243 uA; recomputed by hand 242.9 uA); half a unit of the last digit.
     assert i == pytest.approx(242.9e-6, abs=0.05e-6)
 
 
@@ -244,7 +249,7 @@ def test_body_effect_ekv_is_n_times_the_lift(lift):
     m = device(EKV)
     i0 = 10e-6
     vg0 = mos.gate_voltage_sat(m, W, L, i0, vs=0.0, vds=2.0)
-    # DESIGN.md sec. 2.1 / [EKV95]: VP = (VG - VT0)/n, so VP - VS is unchanged when
+    # [EKV95]: VP = (VG - VT0)/n, so VP - VS is unchanged when
     # VG rises by n * VS; drain lifted too so VDS (and the CLM factor) stays the same.
     i_lifted = mos.current(m, W, L, vg0 + m.n * lift, 2.0 + lift, lift, 0.0)
     i_ref = mos.current(m, W, L, vg0, 2.0, 0.0, 0.0)
@@ -306,7 +311,7 @@ def test_both_polarities_gain_current_as_the_threshold_falls(kind):
 @pytest.mark.parametrize(
     "temp, ratio",
     [
-        # CHECK-VALUES sec. 5, mu ~ T^-1.5 ([AH02] Sec. 2.5 Eq. (8)) at T0 = 300 K (D)
+        # mu ~ T^-1.5 ([AH02] Sec. 2.5 Eq. (8)) at T0 = 300 K, (T/T0)^-1.5 by hand
         (400.0, 0.6495),
         (350.0, 0.7936),
         (250.0, 1.3145),
@@ -335,7 +340,7 @@ def test_saturation_voltage_weak_inversion_limit():
     # 4 UT onset of [EKV95] (from memory). The sqrt(IC) corrections are 1e-3 here.
     i = mos.current(m, W, L, vg, vdsat, 0.0)
     assert i / i_sat == pytest.approx(1.0 - math.exp(-4.0), rel=2e-3)
-    # CHECK-VALUES sec. 1 (M, [Bin08]): "4 UT about 0.10 V in WI"; a band, from memory.
+    # [Bin08]: "4 UT, about 0.10 V, in weak inversion"; a band, from memory.
     assert 0.09 < vdsat < 0.11
 
 

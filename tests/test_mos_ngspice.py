@@ -3,7 +3,8 @@
 Every bias point is its own device with its own four voltage sources, so one ngspice
 process per polarity evaluates them all at one operating point; no node is solved for,
 and the comparison sees the device equations only. Process constants: [AH02] Table 3.1-2
-(CHECK-VALUES.md sec. 4, S). Simulator settings follow DESIGN.md sec. 7.
+(P. E. Allen, D. R. Holberg, CMOS Analog Circuit Design, 2nd ed., Oxford University Press, 2002).
+Simulator settings: reltol 1e-7, abstol 1e-15, vntol 1e-9 (optimise.spice.netlist.OPTIONS).
 
 What ngspice adds that models.devices.mos does not: default bulk junctions (IS = 1e-14 A) with
 GMIN = 1e-12 S across them, so a few pA flow through a reverse-biased drain junction.
@@ -30,7 +31,7 @@ RAIL = 5.0  # V, bulk of the PMOS devices
 
 
 def ah02_tech(polarity: Polarity, va_per_l: float) -> MosTech:
-    """[AH02] Table 3.1-2 (S) constants; lambda via va_per_l (inf: no length modulation)."""
+    """[AH02] Table 3.1-2 constants; lambda via va_per_l (inf: no length modulation)."""
     if polarity == Polarity.N:
         vt0, kp, gamma, phi = 0.7, 110e-6, 0.4, 0.7
     else:
@@ -120,7 +121,7 @@ def test_square_law_matches_ngspice_level1(polarity):
     spice = simulated(polarity, POINTS)
     model = modelled(polarity, POINTS)
     assert np.all(model != 0.0)  # every point conducts (reversed points negatively)
-    # DESIGN.md sec. 6: the same equations, so 0.1 % bounds the simulator's own tolerances and
+    # The same equations, so 0.1 % bounds the simulator's own tolerances and
     # the junction leakage (see module notes); the observed difference is far below it.
     np.testing.assert_allclose(model, spice, rtol=1e-3)
 

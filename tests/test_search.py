@@ -57,7 +57,8 @@ def test_zdt1_front_and_hypervolume_through_the_runner(tmp_path):
     # (Deb et al. 2002 report convergence metrics of order 1e-3 at 250 x 100 evaluations).
     gap = np.abs(F[:, 1] - (1.0 - np.sqrt(np.clip(F[:, 0], 0, 1))))
     assert np.median(gap) < 0.02
-    # 2/3 exact (CHECK-VALUES section 7, derived); a finite front of this quality falls
+    # 2/3 exact (the integral of 1 - sqrt(f1) over [0, 1] under ref (1, 1), by hand; front of
+    # E. Zitzler, K. Deb, L. Thiele, Evolutionary Computation 8(2), 2000); a finite front of this quality falls
     # short by a few percent.
     assert hypervolume(F, np.zeros(2), np.ones(2)) == pytest.approx(2 / 3, rel=0.05)
     # The same export code writes it and reads it back unchanged.
@@ -68,7 +69,7 @@ def test_zdt1_front_and_hypervolume_through_the_runner(tmp_path):
 
 
 def test_hypervolume_hand_values():
-    # CHECK-VALUES section 7 (by hand): {(0.5, 0.5)} -> 0.25; {(0.25, 0.75), (0.75, 0.25)} -> 0.3125, ref (1, 1).
+    # By hand (areas of the dominated boxes): {(0.5, 0.5)} -> 0.25; {(0.25, 0.75), (0.75, 0.25)} -> 0.3125, ref (1, 1).
     z, o = np.zeros(2), np.ones(2)
     assert hypervolume(np.array([[0.5, 0.5]]), z, o) == pytest.approx(0.25)
     assert hypervolume(np.array([[0.25, 0.75], [0.75, 0.25]]), z, o) == pytest.approx(0.3125)

@@ -3,8 +3,8 @@
 Three loops, each small enough to run in seconds:
 
 - a tiny optimise run on a square-law study built from studies/tech/ah02-level1.toml, the
-  constants of [AH02] Table 3.1-2 (CHECK-VALUES.md sec. 4, S): the netlist of a row of every
-  architecture must give stagefront's Iq in ngspice within 1 % (DESIGN.md sec. 6), and
+  constants of [AH02] Table 3.1-2 (Allen and Holberg, CMOS Analog Circuit Design, 2nd ed., 2002):
+  the netlist of a row of every architecture must give stagefront's Iq in ngspice within 1 %, and
   verify with the level-1 cards of the same technology must find ngspice and the model
   agreeing on every metric;
 - calibration of a level-1 card with the same [AH02] constants must give them back;
@@ -132,7 +132,7 @@ def test_netlist_rest_point_reproduces_square_law_iq(square_run, tmp_path, capsy
     mod = get_stage(arch)
     iq_sim = abs(float(tb.vector(_op(text), tb.device_vector("rest", "", mod.PULL_DOWN))[0]))
     iq_model = float(front[front["id"] == rid]["iq_a"].iloc[0])
-    # DESIGN.md sec. 6: ngspice running the same level-1 equations gives Iq within 1 %.
+    # ngspice running the same level-1 equations gives Iq within 1 % (the simulator's tolerances).
     assert iq_sim == pytest.approx(iq_model, rel=0.01)
 
 
@@ -206,7 +206,7 @@ def test_verify_level1_agrees_with_the_square_law_model(square_run, capsys):
 # ---------------------------------------------------------------------------------------
 # calibrate: a level-1 card with known constants
 # ---------------------------------------------------------------------------------------
-# [AH02] Table 3.1-2 (CHECK-VALUES.md sec. 4, S): VT0 0.7 / -0.7 V, K' 110 / 50 uA/V^2,
+# [AH02] Table 3.1-2: VT0 0.7 / -0.7 V, K' 110 / 50 uA/V^2,
 # gamma 0.4 / 0.57 V^0.5, 2|phiF| 0.7 / 0.8 V, lambda 0.04 / 0.05 1/V (at L = 1 um).
 LEVEL1_CARD = """* level-1 cards with the constants of Allen and Holberg, Table 3.1-2
 .lib tt
