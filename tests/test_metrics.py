@@ -241,31 +241,54 @@ def _iq(design, dvt, dbeta, sensitivity=False):
     return float(op[stage.PULL_DOWN][0][0]), sens
 
 
+def _finite_differences(design, base_vt, base_beta):
+    """Central differences of Iq in each device's dvt and dbeta around the given deviations."""
+    h_vt, h_beta = 1e-5, 1e-5  # V, 1: truncation ~ (h / UT)^2 ~ 1e-7, solve rounding ~ 1e-14 V / h ~ 1e-9
+    fd = {}
+    for role in get_stage(design.architecture).ROLES:
+        for k, h in ((0, h_vt), (1, h_beta)):
+            up = [dict(base_vt), dict(base_beta)]
+            dn = [dict(base_vt), dict(base_beta)]
+            up[k][role] = up[k][role] + h
+            dn[k][role] = dn[k][role] - h
+            fd[role, k] = (_iq(design, *up)[0] - _iq(design, *dn)[0]) / (2.0 * h)
+    return fd
+
+
+def _assert_sensitivities(sens, fd):
+    scale = max(abs(v) for v in fd.values())
+    for (role, k), value in fd.items():
+        # Signs included: each sensitivity on its own, to the differences' truncation error.
+        assert sens[role][k][0] == pytest.approx(value, rel=1e-5, abs=1e-7 * scale), (role, k)
+
+
+@pytest.mark.parametrize("architecture", list(MM_DESIGNS))
+def test_mismatch_sensitivities_away_from_the_mean_match_finite_differences(architecture):
+    # The same check about a drawn-off point (every device 2 mV and +3 % off, the way a Monte
+    # Carlo sample is): the adjoint must use the instance's own current factor there.
+    design = MM_DESIGNS[architecture]
+    roles = get_stage(architecture).ROLES
+    base_vt = {r: np.full(1, 2e-3) for r in roles}
+    base_beta = {r: np.full(1, 0.03) for r in roles}
+    _, sens = _iq(design, base_vt, base_beta, sensitivity=True)
+    _assert_sensitivities(sens, _finite_differences(design, base_vt, base_beta))
+
+
 @pytest.mark.parametrize("architecture", list(MM_DESIGNS))
 def test_mismatch_sensitivities_and_sigma_match_finite_differences(architecture):
     design = MM_DESIGNS[architecture]
     stage = get_stage(architecture)
     zero = {r: np.zeros(1) for r in stage.ROLES}
     iq0, sens = _iq(design, zero, zero, sensitivity=True)
-    h_vt, h_beta = 1e-5, 1e-5  # V, 1: truncation ~ (h / UT)^2 ~ 1e-7, solve rounding ~ 1e-14 V / h ~ 1e-9
-    fd, var = {}, 0.0
+    fd, var = _finite_differences(design, zero, zero), 0.0
     for role in stage.ROLES:
-        for k, h in ((0, h_vt), (1, h_beta)):
-            up = [dict(zero), dict(zero)]
-            dn = [dict(zero), dict(zero)]
-            up[k][role] = np.full(1, h)
-            dn[k][role] = np.full(1, -h)
-            fd[role, k] = (_iq(design, *up)[0] - _iq(design, *dn)[0]) / (2.0 * h)
         spec = stage.TOPOLOGY.spec(role)
         mt = TECH_MM.mos(spec.polarity)
         area = design.w[role][0] * design.l[role][0]
         # [Pel89]: a matched pair differs by sigma = A / sqrt(W L); each device of the pair deviates
         # independently from the mean, so by A / sqrt(2 W L) (the pair's variance is the sum of two).
         var += (fd[role, 0] * mt.a_vt / math.sqrt(2.0 * area)) ** 2 + (fd[role, 1] * mt.a_beta / math.sqrt(2.0 * area)) ** 2
-    scale = max(abs(v) for v in fd.values())
-    for (role, k), value in fd.items():
-        # Signs included: each sensitivity on its own, to the differences' truncation error.
-        assert sens[role][k][0] == pytest.approx(value, rel=1e-5, abs=1e-7 * scale), (role, k)
+    _assert_sensitivities(sens, fd)
     # Sensitivities of both kinds matter here (none of the devices is negligible by construction).
     assert abs(fd[stage.PULL_DOWN, 0]) > 0 and abs(fd[stage.PULL_DOWN, 1]) > 0
     res = evaluate(design, TECH_MM, Conditions((Corner.TT,), (T_TEST,), MM_VDD, MM_VDD, MM_VDD),
@@ -273,3 +296,19 @@ def test_mismatch_sensitivities_and_sigma_match_finite_differences(architecture)
     assert res.summary["iq_a"][0] == pytest.approx(iq0, rel=1e-12)
     # The reported sigma, from the hand sum over the finite differences (truncation 1e-5 relative).
     assert res.summary["iq_sigma_pct"][0] == pytest.approx(100.0 * math.sqrt(var) / iq0, rel=1e-5)
+
+
+def test_dense_fallback_of_the_adjoint_gives_the_same_sensitivities(monkeypatch):
+    # The adjoint solve sends the elements its sparse elimination cannot vouch for to a dense
+    # LAPACK solve; both must give J^-T dIq/dx. Forcing every element down the dense path must
+    # leave every sensitivity as it was, to rounding of two elimination orders.
+    import models.circuit.nodal as nodal
+
+    design = MM_DESIGNS["floating-loop"]
+    zero = {r: np.zeros(1) for r in get_stage("floating-loop").ROLES}
+    _, sparse = _iq(design, zero, zero, sensitivity=True)
+    monkeypatch.setattr(nodal, "solve_structured", lambda entries, rhs, k, m: (np.zeros((k, m)), np.zeros(m, bool)))
+    _, dense_path = _iq(design, zero, zero, sensitivity=True)
+    for role, (s_vt, s_beta) in sparse.items():
+        assert dense_path[role][0][0] == pytest.approx(s_vt[0], rel=1e-9, abs=1e-12 * abs(s_vt[0]) + 1e-18), role
+        assert dense_path[role][1][0] == pytest.approx(s_beta[0], rel=1e-9, abs=1e-18), role
