@@ -298,7 +298,7 @@ def targets(modules: list[str] | None) -> list[Path]:
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--modules", nargs="*", help="module files relative to the repository (default: all targets)")
-    ap.add_argument("--max-mutants", type=int, default=24, help="mutants per module (seeded sample); 0: all")
+    ap.add_argument("--max-mutants", type=int, default=16, help="mutants per module (seeded sample); 0: all")
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--jobs", type=int, default=1, help="mutants run at once (each in its own copy)")
     ap.add_argument("--list", action="store_true", help="print the chosen mutants and stop")

@@ -207,3 +207,22 @@ def test_ekv_strong_inversion_absolute_current_and_temperature_match_ngspice(pol
         # At TNOM the correction above; away from it the threshold curvature as above (2.5 %;
         # measured 1.3 % for the PMOS at -40 degC).
         np.testing.assert_allclose(model, spice, rtol=rtol, err_msg=f"{t_c} degC")
+
+
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+def test_square_law_saturation_voltage_is_ngspices(polarity):
+    # ngspice's level-1 VDSAT = VGS - VTH with the body effect in VTH (SPICE3 mos1load.c), which
+    # is where the level-1 current stops rising with VDS. Without length modulation the model's
+    # sqrt(2 I / beta) is the same quantity; the saturated points at VSB = 0, 0.5 and 1 V.
+    points = [(5e-6, 1e-6, 1.5, 3.0, 0.0, False), (10e-6, 2e-6, 2.0, 2.5, 0.5, False),
+              (5e-6, 1e-6, 1.2, 2.0, 1.0, False), (2e-6, 1e-6, 0.9, 1.0, 0.0, False)]
+    text = deck(polarity, points).replace(".op", ".save all " + " ".join(f"@m{k}[vdsat]" for k in range(len(points)))
+                                          + "\n.op")
+    res = ngspice.run(text)
+    model = []
+    for w, l, vgs, vds, vsb, _ in points:
+        m = mos.at_conditions(ah02_tech(polarity, math.inf), polarity, ModelKind.SQUARE_LAW, TNOM, TNOM)
+        model.append(mos.saturation_voltage(m, w, l, mos.current(m, w, l, *physical(polarity, vgs, vds, vsb))))
+    spice = [abs(float(np.real(ngspice.vector(res, f"v(@m{k}[vdsat])")[0]))) for k in range(len(points))]
+    # Same equations; the simulator's reltol 1e-7 on the currents gives 1e-7 on the overdrive.
+    np.testing.assert_allclose(model, spice, rtol=1e-6)
