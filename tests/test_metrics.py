@@ -312,3 +312,15 @@ def test_dense_fallback_of_the_adjoint_gives_the_same_sensitivities(monkeypatch)
     for role, (s_vt, s_beta) in sparse.items():
         assert dense_path[role][0][0] == pytest.approx(s_vt[0], rel=1e-9, abs=1e-12 * abs(s_vt[0]) + 1e-18), role
         assert dense_path[role][1][0] == pytest.approx(s_beta[0], rel=1e-9, abs=1e-18), role
+
+
+def test_fixed_bias_drive_capacitance_is_the_saturation_gate_capacitance(fixed_bias):
+    case, _, res = fixed_bias
+    wn, wp = FB_WIDTHS[case]
+    mt = TECH_SQ.nmos  # cox 5 fF/um^2, cov 0.2 fF/um (tests/stage_helpers.py), both polarities
+    # A saturated device in strong inversion: Cgs = 2/3 Cox W L plus the overlap, and the gate-drain
+    # overlap (P. E. Allen, D. R. Holberg, CMOS Analog Circuit Design, 2nd ed., Table 3.2-1, from
+    # memory); both output gates: sum over MN_OUT and MP_OUT. The model interpolates towards the
+    # weak-inversion value by 1/IC; IC is about 300 here (Iq 30-80 uA, Ispec 0.17 uA x W/L), so 1 %.
+    hand = sum((2.0 / 3.0) * mt.cox * w * 1e-6 * FB_L * 1e-6 + 2.0 * mt.cov * w * 1e-6 for w in (wn, wp))
+    assert res.summary["c_drive_f"][0] == pytest.approx(hand, rel=1e-2)

@@ -169,6 +169,17 @@ def test_square_law_pmos_allen_holberg_example():
     assert i == pytest.approx(242.9e-6, abs=0.05e-6)
 
 
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+def test_slow_corner_of_the_textbook_spread(polarity):
+    # [AH02] Table 3.1-2 spreads: VT0 0.7 +- 0.15 V, K' +- 10 %. The slow corner (threshold
+    # magnitude 0.85 V, K' x 0.9) as a corner shift. Hand calc at |VGS| = 2 V, |VDS| = 3 V:
+    # NMOS 0.5 * 99u * 5 * 1.15^2 * (1 + 0.04 * 3) = 366.597 uA; PMOS 0.5 * 45u * 5 * 1.15^2 * 1.15 = 171.098 uA.
+    m = mos.at_conditions(ah02_tech(polarity), polarity, SQ, T300, T300, dvt=0.15, kp_scale=0.9)
+    vg, vd, vs, vb = physical(polarity, (2.0, 3.0, 0.0, 0.0))
+    expected = 366.597e-6 if polarity == Polarity.N else 171.0984e-6
+    assert mos.current(m, W, L, vg, vd, vs, vb) == pytest.approx(expected, rel=1e-6)  # 7 digits by hand
+
+
 # ---------------------------------------------------------------------------------------
 # One code path for both polarities; partials against finite differences
 # ---------------------------------------------------------------------------------------
