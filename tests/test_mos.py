@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 from models.devices import mos
-from models.devices.constants import thermal_voltage
+from models.devices.constants import T_NOMINAL, ZERO_CELSIUS, thermal_voltage
 from models.devices.tech import ModelKind, MosTech, Polarity
 
 EKV = ModelKind.EKV
@@ -112,6 +112,13 @@ def test_weak_inversion_slope_is_n_ut_ln10_per_decade():
     # Tolerance: F(x) = exp(x) (1 + O(sqrt(IC))) and sqrt(IC) <= 1e-4 here.
     assert slope == pytest.approx(77.384e-3, rel=1e-3)
     assert slope == pytest.approx(m.n * m.ut * math.log(10.0), rel=1e-3)
+
+
+def test_nominal_temperature_is_the_spice_default():
+    # SI Brochure, 9th ed.: 0 degC = 273.15 K; the SPICE default TNOM is 27 degC (ngspice manual,
+    # .options TNOM), the temperature technology files hold at unless they say otherwise.
+    assert ZERO_CELSIUS == 273.15
+    assert T_NOMINAL - ZERO_CELSIUS == pytest.approx(27.0, abs=1e-12)
 
 
 @pytest.mark.parametrize(
