@@ -259,6 +259,22 @@ def test_diode_voltage_is_exact(kind, polarity, i):
     assert mos.current(m, W, L, vg, vg, vs, vb) == pytest.approx(i, rel=1e-12)
 
 
+@pytest.mark.parametrize("tied", [False, True])
+@pytest.mark.parametrize("i", [1e-8, 1e-6, 1e-4])
+@pytest.mark.parametrize("polarity", [Polarity.N, Polarity.P])
+@pytest.mark.parametrize("kind", [EKV, SQ])
+def test_source_voltage_is_exact_in_saturation(kind, polarity, i, tied):
+    # The inverse for the source (a follower, or a control device whose source is the unknown):
+    # the device with its gate 2 V from the bulk, its source where the function puts it and its
+    # drain 3 V beyond (deep saturation: the EKV reverse term is below e^-100) must carry i.
+    m = device(kind, polarity)  # length modulation on, with |VDS| = 3 V in its factor
+    vb = 0.0 if polarity == Polarity.N else RAIL
+    vg = vb + polarity * 2.0
+    vs = mos.source_voltage_sat(m, W, L, i, vg, vb, vds=3.0, tied=tied)
+    vd = vs + polarity * 3.0
+    assert mos.current(m, W, L, vg, vd, vs, vs if tied else vb) == pytest.approx(i, rel=1e-9)
+
+
 # ---------------------------------------------------------------------------------------
 # Body effect
 # ---------------------------------------------------------------------------------------
