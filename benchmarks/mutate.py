@@ -270,6 +270,21 @@ def named_sites() -> list[Site]:
     return out
 
 
+def rerun_sites(log: Path) -> list[Site]:
+    """The sites of the survivors listed in an earlier run's output (lines
+    ``  path:line  change: survived``); every site with that path, line and change."""
+    wanted = set()
+    for line in log.read_text().splitlines():
+        if line.startswith("  ") and line.rstrip().endswith(")") and ": survived (" in line:
+            where, text = line.strip().split("  ", 1)
+            path, lineno = where.rsplit(":", 1)
+            wanted.add((path, int(lineno), text.rsplit(": survived (", 1)[0]))
+    out = []
+    for path in sorted({w[0] for w in wanted}):
+        out += [s for s in sites(REPO / path) if (s.path, s.line, s.text) in wanted]
+    return out
+
+
 def source_of(site: Site) -> str:
     if site.index < 0:
         path, old, new = NAMED[-1 - site.index]
@@ -303,12 +318,15 @@ def main() -> int:
     ap.add_argument("--jobs", type=int, default=1, help="mutants run at once (each in its own copy)")
     ap.add_argument("--list", action="store_true", help="print the chosen mutants and stop")
     ap.add_argument("--named", action="store_true", help="run the hand-written changes of NAMED instead")
+    ap.add_argument("--rerun", metavar="LOG", help="run again only the survivors printed in an earlier run's output")
     args = ap.parse_args()
     signal.signal(signal.SIGTERM, lambda *_: sys.exit(1))  # so a killed run still removes its copies
 
     rng = random.Random(args.seed)
     chosen: list[Site] = named_sites() if args.named else []
-    for path in [] if args.named else targets(args.modules):
+    if args.rerun:
+        chosen = rerun_sites(Path(args.rerun))
+    for path in [] if args.named or args.rerun else targets(args.modules):
         all_sites = sites(path)
         pick = all_sites if not args.max_mutants or len(all_sites) <= args.max_mutants else \
             sorted(rng.sample(all_sites, args.max_mutants), key=lambda s: s.index)
