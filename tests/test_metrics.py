@@ -330,7 +330,8 @@ def test_drive_capacitance_in_weak_inversion_is_the_depletion_capacitance():
     # In weak inversion the gate sees the oxide in series with the depletion layer,
     # Cox W L (n - 1)/n (C. Enz, E. Vittoz, Charge-Based MOS Transistor Modeling, Wiley 2006,
     # from memory), plus both overlaps. EKV fixed-bias pair with its gates 0.25 V above each
-    # rail (0.25 V below VT0): IC about 6e-4, so the strong-inversion share is below 0.3 %.
+    # rail (0.25 V below VT0): IC about 6e-4; the interpolation towards the strong-inversion value
+    # raises the intrinsic part by (2/3 n/(n - 1) - 1) IC = 1.9 IC, about 0.1 %: 0.2 % asserted.
     tech = make_tech(EKV, mos_tech(vt0=VT, kp=KP, va_per_l=NO_CLM))
     vdd, w, l = 3.3, 2.0, 2.0  # V, um, um
     design = make_design("fixed-bias", {"mn_out": (w, l), "mp_out": (w, l)}, dict(ib=IB, r_bias=(vdd - 0.5) / IB))
@@ -338,4 +339,4 @@ def test_drive_capacitance_in_weak_inversion_is_the_depletion_capacitance():
     assert res.converged.all()
     mt = tech.nmos
     hand = 2.0 * ((mt.n - 1.0) / mt.n * mt.cox * w * l * 1e-12 + 2.0 * mt.cov * w * 1e-6)
-    assert res.summary["c_drive_f"][0] == pytest.approx(hand, rel=1e-2)
+    assert res.summary["c_drive_f"][0] == pytest.approx(hand, rel=2e-3)
