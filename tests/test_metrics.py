@@ -340,3 +340,46 @@ def test_drive_capacitance_in_weak_inversion_is_the_depletion_capacitance():
     mt = tech.nmos
     hand = 2.0 * ((mt.n - 1.0) / mt.n * mt.cox * w * l * 1e-12 + 2.0 * mt.cov * w * 1e-6)
     assert res.summary["c_drive_f"][0] == pytest.approx(hand, rel=2e-3)
+
+
+def test_a_failed_driven_point_is_reported_at_its_pvt_point(monkeypatch):
+    # Numerical failure is reported per design and PVT point, never dropped: a driven point that
+    # does not converge (forced here at the lowest supply, sourcing side) must clear `converged`
+    # there, word the failure and make the design infeasible, while every other point stands.
+    import models.evaluate as ev
+
+    real = ev.driven_point
+
+    def failing(stage, devs, bias, vdd, nodes, direction, targets, iq):
+        out = list(real(stage, devs, bias, vdd, nodes, direction, targets, iq))
+        if direction > 0:
+            out[4] = out[4] & (vdd != SUPPLIES[1])
+        return tuple(out)
+
+    monkeypatch.setattr(ev, "driven_point", failing)
+    design = make_design("fixed-bias", {"mn_out": (2.0, FB_L), "mp_out": (2.0, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    res = evaluate(design, TECH_SQ, COND, TARGETS)
+    assert list(res.converged[0]) == [v != SUPPLIES[1] for v in res.vdd]
+    assert not res.feasible[0]
+    assert res.violations[0][0].startswith("operating point did not converge at 1 of 3 PVT points")
+
+
+def test_chunks_bound_the_elements_solved_at_once(monkeypatch):
+    import models.evaluate as ev
+
+    sizes, real = [], ev._chunk
+
+    def recording(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
+        sizes.append(len(idx_design))
+        return real(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt)
+
+    monkeypatch.setattr(ev, "_chunk", recording)
+    design = make_design("fixed-bias", {"mn_out": ([2.0, 3.0, 4.0], FB_L), "mp_out": (2.0, FB_L)},
+                         dict(ib=IB, r_bias=R_BIAS))
+    res = evaluate(design, TECH_SQ, COND, TARGETS, chunk=4)
+    # 3 designs x 3 supplies = 9 elements in chunks of at most 4, each element once.
+    assert sizes == [4, 4, 1]
+    whole = real  # the same population in one chunk gives the same numbers (elements are independent)
+    monkeypatch.setattr(ev, "_chunk", whole)
+    one = evaluate(design, TECH_SQ, COND, TARGETS)
+    np.testing.assert_array_equal(res.pvt["iq_a"], one.pvt["iq_a"])
