@@ -129,10 +129,11 @@ def test_fixed_bias_summary_matches_the_hand_solution(fixed_bias):
         # (Iq(3.6 V) - Iq(2.7 V)) / Iq(3.3 V) / 0.9 V in %/V, ov = (VDD - 1.2 V)/2:
         # (1.44 - 0.5625) / 1.1025 / 0.9 * 100 = 88.4354 %/V
         assert sens == pytest.approx(88.4354, rel=1e-6)  # the hand figure above, 6 digits
-        # Power: nominal supply times (Iq + the bias branch ib): 3.3 V (55.125 uA + 2 uA) = 188.51 uW.
-        assert nom["iq"] == pytest.approx(55.125e-6, rel=1e-12)
+        # Power: nominal supply times (Iq + the bias branch ib): 3.3 V (55.125 uA + 2 uA) = 188.5125 uW.
+        assert s["power_w"] == pytest.approx(188.5125e-6, rel=1e-9)
     assert s["supply_sens_pct_per_v"] == pytest.approx(sens, rel=1e-9)
     assert np.all(res.pvt["supply_sens_pct_per_v"][0] == s["supply_sens_pct_per_v"])
+    # Power of every case: VDD_nom (Iq + ib), the bias branch included.
     assert s["power_w"] == pytest.approx(3.3 * (nom["iq"] + IB), rel=1e-9)
     # Area: layout factor x sum of W L = 1.5 x (W_n + W_p) x 2 um.
     assert s["area_um2"] == pytest.approx(LAYOUT * (wn + wp) * FB_L, rel=1e-12)

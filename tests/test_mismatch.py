@@ -12,7 +12,9 @@ from models.devices import mismatch
 
 UM = 1e-6
 A_VT = 5e-3 * UM  # V*m, 5 mV*um
-A_BETA = 0.01 * UM  # m, 1 %*um (typical Abeta 1-2 %*um, [Pel89] and P. R. Kinget, IEEE JSSC 40(6), 2005, from memory: a plausible value only)
+# m, 1 %*um: typical Abeta is 1-2 %*um ([Pel89]; P. R. Kinget, IEEE JSSC 40(6), 2005; from memory),
+# a plausible value only.
+A_BETA = 0.01 * UM
 N_DRAWS = 200_000  # relative standard error of a sample sigma 1/sqrt(2 N) = 0.16 %
 SEED = 20240611
 
