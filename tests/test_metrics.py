@@ -171,7 +171,7 @@ FL_N = dict(out=(10, 1), d1=(1, 1), d2=(1, 1), ctl=(1, 1))
 FL_P = dict(out=(10, 1), d1=(1, 1), d2=(1, 1), ctl=(2.25, 1))  # a wider P control device: sides differ
 
 
-def floating_hand():
+def floating_hand(split=False):
     """Square-law loops with every stacked source on its bulk and no length modulation:
     ov(D1) + ov(D2) = ov(CTL) + ov(OUT), ov = sqrt(2 I / beta) (E. Seevinck, R. J. Wiegerink,
     "Generalized translinear circuit principle", IEEE JSSC 26(8), 1991). At rest both loops
@@ -187,6 +187,8 @@ def floating_hand():
 
     i_nc = brentq(lambda i: iq_of(beta, i) - iq_of(beta_p, FL_IB_CTL - i), 1e-12, FL_IB_CTL - 1e-12, xtol=1e-20)
     iq = iq_of(beta, i_nc)
+    if split:
+        return iq, i_nc
     return iq, iq_of(beta, FL_IB_CTL) / iq, iq_of(beta_p, FL_IB_CTL) / iq
 
 
@@ -384,3 +386,113 @@ def test_chunks_bound_the_elements_solved_at_once(monkeypatch):
     monkeypatch.setattr(ev, "_chunk", whole)
     one = evaluate(design, TECH_SQ, COND, TARGETS)
     np.testing.assert_array_equal(res.pvt["iq_a"], one.pvt["iq_a"])
+
+
+# ---------------------------------------------------------------------------------------
+# Every lowest-supply requirement on its own, and the follower by hand
+# ---------------------------------------------------------------------------------------
+FO_SIZES = {"mn_b": (1, 1), "mp_b": (4, 1), "mn_f": (10, 1), "mp_f": (40, 1)}  # um: 1:10 on both sides
+FO_IB, FO_VDD = 10e-6, 3.3  # A, V
+
+
+def _requirements(design, vdd, vcomp):
+    stage = get_stage(design.architecture)
+    devs = devices_at(stage, design, TECH_SQ, corner_shifts(TECH_SQ, [Corner.TT]), np.full(1, T_TEST),
+                      np.zeros(1, dtype=int))
+    bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
+    nodes, ok, _, op = rest_point(stage, devs, bias, np.full(1, vdd), sensitivity=False)
+    assert ok.all()
+    return {name: float(v[0]) for name, v in stage.requirements(devs, bias, np.full(1, vdd), nodes, op, vcomp)}
+
+
+def _ov(i, w, l=1.0):
+    """Square-law overdrive sqrt(2 I / beta) [V] of a device of W/L w/l in the test process."""
+    return math.sqrt(2.0 * i / (KP * w / l))
+
+
+def test_each_lowest_supply_requirement_matches_the_hand_solution():
+    vcomp = 0.3  # V
+    # Fixed bias (equal devices): cut-off at vb + 2 VT, each output device 2 ov, the bias
+    # sources vb + 2 vcomp (see fixed_bias_hand).
+    fb = make_design("fixed-bias", {"mn_out": (4.0, FB_L), "mp_out": (2.0, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    hand = fixed_bias_hand(3.3, 4.0, 2.0)
+    got = _requirements(fb, 3.3, vcomp)
+    want = {"output pair cuts off": VB + 2 * VT, "mn_out leaves saturation": hand["req_n"],
+            "mp_out leaves saturation": hand["req_p"], "ib sources lose compliance": VB + 2 * vcomp}
+    assert got == pytest.approx(want, rel=1e-9)
+    # Floating loop (floating_hand): each output device 2 ov_out at Iq; each control device
+    # needs VSG(MP_OUT) + VGS(MN_OUT) + its own ov; each bias source its diode stack
+    # (2 (VT + ov_d), no body effect with the sources on their bulks) plus vcomp.
+    fl = make_design("floating-loop", floating_sizes(FL_N, FL_P), dict(ib_n=FL_IB, ib_p=FL_IB, ib_ctl=FL_IB_CTL),
+                     tied=STACKED)
+    iq, i_nc = floating_hand(split=True)
+    gates = 2 * VT + _ov(iq, 10) + _ov(iq, 10)
+    want = {"mn_out leaves saturation": 2 * _ov(iq, 10), "mp_out leaves saturation": 2 * _ov(iq, 10),
+            "mn_ctl leaves saturation": gates + _ov(i_nc, 1), "mp_ctl leaves saturation": gates + _ov(FL_IB_CTL - i_nc, 2.25),
+            "ib_n source loses compliance": 2 * (VT + _ov(FL_IB, 1)) + vcomp,
+            "ib_p source loses compliance": 2 * (VT + _ov(FL_IB, 1)) + vcomp}
+    assert _requirements(fl, FL_VDD, vcomp) == pytest.approx(want, rel=1e-7)
+    # Follower (test_follower_matches_the_hand_solution): each bias source needs twice its
+    # diode's gate-source voltage plus vcomp, each follower 2 ov at Iq.
+    fo = make_design("follower", FO_SIZES, dict(ib=FO_IB), tied=set(FO_SIZES))
+    iq = FO_IB * 10
+    want = {"ib top source loses compliance": 2 * (VT + _ov(FO_IB, 1) + vcomp),
+            "ib bottom source loses compliance": 2 * (VT + _ov(FO_IB, 4) + vcomp),
+            "mn_f leaves saturation": 2 * _ov(iq, 10), "mp_f leaves saturation": 2 * _ov(iq, 40)}
+    assert _requirements(fo, FO_VDD, vcomp) == pytest.approx(want, rel=1e-9)
+
+
+def test_follower_matches_the_hand_solution():
+    # Every bulk on its source (no body effect), no length modulation, 1:10 current densities on
+    # both sides: the loop VGS(MN_B) + VSG(MP_B) = VGS(MN_F) + VSG(MP_F) holds with each follower
+    # at its diode's overdrive, so Iq = 10 ib (the square-root law of Seevinck and Wiegerink 1991
+    # with equal densities). Drive limit up: the top source reaches VDD - vcomp, so MN_F's VGS is
+    # VDD/2 - vcomp at mid-supply (saturated: its drain is on the supply) and MP_F, whose gate sits
+    # two diode drops lower, is off (VSG 0.22 V < VT): the peak is beta_F/2 (VDD/2 - vcomp - VT)^2.
+    design = make_design("follower", FO_SIZES, dict(ib=FO_IB), tied=set(FO_SIZES))
+    cond = Conditions((Corner.TT,), (T_TEST,), FO_VDD, FO_VDD, FO_VDD)
+    res = evaluate(design, TECH_SQ, cond, TARGETS)
+    assert res.converged.all()
+    iq = 10 * FO_IB
+    assert res.summary["iq_a"][0] == pytest.approx(iq, rel=1e-9)
+    assert VT + _ov(FO_IB, 1) + VT + _ov(FO_IB, 4) + TARGETS.vcomp - FO_VDD / 2 < VT  # the idle device is off
+    drive = FO_VDD / 2 - TARGETS.vcomp - VT
+    assert res.summary["iout_source_a"][0] == pytest.approx(0.5 * KP * 10 * drive**2, rel=1e-9)
+    assert res.summary["iout_sink_a"][0] == pytest.approx(0.5 * KP * 40 * drive**2, rel=1e-9)
+    # Output conductance of the followers at rest: gm = beta ov each (no body effect here).
+    gm = KP * 10 * _ov(iq, 10) + KP * 40 * _ov(iq, 40)
+    assert res.summary["fp2_hz"][0] == pytest.approx(gm / (2 * math.pi * C_LOAD), rel=1e-9)
+    # Lowest supply: the top source, twice MN_B's VGS plus vcomp (1.894 V + 0.4 V = 2.294 V).
+    assert res.summary["vdd_min_v"][0] == pytest.approx(2 * (VT + _ov(FO_IB, 1) + TARGETS.vcomp), rel=1e-9)
+    # Power: VDD (Iq + ib) = 3.3 V x 110 uA.
+    assert res.summary["power_w"][0] == pytest.approx(3.3 * 110e-6, rel=1e-9)
+
+
+@pytest.mark.parametrize("direction", [+1, -1])
+def test_bracketed_fallback_finds_the_same_drive_limit_edge(monkeypatch, direction):
+    # The floating loop's drive limit at the control device's saturation edge is a Newton solve
+    # with a bracketed search behind it for the elements Newton leaves. With Newton made to fail
+    # there, the fallback must find the same gates (to its 1e-9 V bracket) and the same kind of limit.
+    from models.stages import floating_loop
+
+    design = make_design("floating-loop", floating_sizes(FL_N, FL_P), dict(ib_n=FL_IB, ib_p=FL_IB, ib_ctl=FL_IB_CTL),
+                         tied=STACKED)
+    stage = get_stage("floating-loop")
+    devs = devices_at(stage, design, TECH_SQ, corner_shifts(TECH_SQ, [Corner.TT]), np.full(1, T_TEST),
+                      np.zeros(1, dtype=int))
+    bias = {k: np.asarray(v, dtype=float) for k, v in design.bias.items()}
+    vdd = np.full(1, FL_VDD)
+    nodes, ok, _, _ = rest_point(stage, devs, bias, vdd, sensitivity=False)
+    newton_edge = floating_loop.driven(devs, bias, vdd, nodes, direction, "both", 1e-3)
+    real = floating_loop.newton
+
+    def failing(fun, x0, step_max=0.25, xtol=1e-8, max_iter=60):
+        x, ok = real(fun, x0, step_max, xtol, max_iter)
+        return x, ok & (step_max != 0.2)  # the edge solve (step_max 0.2) reports failure
+
+    monkeypatch.setattr(floating_loop, "newton", failing)
+    gn, gp, limit, ok_b = floating_loop.driven(devs, bias, vdd, nodes, direction, "both", 1e-3)
+    assert ok_b.all() and newton_edge[3].all()
+    assert limit[0] == newton_edge[2][0] == 1  # the control device's saturation edge
+    assert gn[0] == pytest.approx(newton_edge[0][0], abs=1e-7)
+    assert gp[0] == pytest.approx(newton_edge[1][0], abs=1e-7)
