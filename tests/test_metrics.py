@@ -47,6 +47,7 @@ TARGETS = Targets(i_load=100e-6, c_load=C_LOAD, vcomp=0.2, layout_factor=LAYOUT)
 IB, R_BIAS = 2e-6, 100e3  # A, ohm: vb = ib r_bias = 0.2 V between the gates
 VB = IB * R_BIAS
 FB_L = 2.0  # um, both devices
+BETA_FB = KP * 2.0 / FB_L  # A/V^2, a 2 um / 2 um device
 # (W of MN_OUT, W of MP_OUT) in um: equal devices, and each side the stronger one in turn, so
 # that each output device's saturation is the binding requirement in one of the cases.
 FB_WIDTHS = {"equal": (2.0, 2.0), "wide-n": (4.0, 2.0), "wide-p": (2.0, 4.0)}
@@ -496,3 +497,47 @@ def test_bracketed_fallback_finds_the_same_drive_limit_edge(monkeypatch, directi
     assert limit[0] == newton_edge[2][0] == 1  # the control device's saturation edge
     assert gn[0] == pytest.approx(newton_edge[0][0], abs=1e-7)
     assert gp[0] == pytest.approx(newton_edge[1][0], abs=1e-7)
+
+
+def test_supply_sensitivity_of_a_stage_cut_off_at_the_nominal_supply():
+    # vb = 2.45 V: the pair is off at 2.7 V and 3.3 V (VDD - vb < 2 VT) and conducts at 3.6 V, with
+    # ov = (3.6 - 2.45 - 1)/2 = 75 mV. Iq(nominal) = 0, so the largest Iq of the group stands in
+    # for it (a stage that conducts at some supplies only must not look supply-stable):
+    # 100 (Iq(3.6) - 0) / Iq(3.6) / 0.9 V = 111.11 %/V.
+    design = make_design("fixed-bias", {"mn_out": (2.0, FB_L), "mp_out": (2.0, FB_L)}, dict(ib=IB, r_bias=2.45 / IB))
+    res = evaluate(design, TECH_SQ, COND, TARGETS)
+    assert list(res.pvt["iq_a"][0] > 0) == [False, False, True]  # nominal, min, max
+    assert res.pvt["iq_a"][0, 2] == pytest.approx(0.5 * BETA_FB * 0.075**2, rel=1e-6)
+    assert res.summary["supply_sens_pct_per_v"][0] == pytest.approx(100.0 / 0.9, rel=1e-12)
+
+
+def test_margins_are_relative_to_their_limits_at_the_worst_pvt_point(fixed_bias):
+    case, design, res0 = fixed_bias
+    wn, wp = FB_WIDTHS[case]
+    hand = {v: fixed_bias_hand(v, wn, wp) for v in SUPPLIES}
+    sigma = res0.pvt["iq_sigma_pct"][0] / 100.0  # checked against finite differences above
+    iq = res0.pvt["iq_a"][0]
+    # Limits placed so that each margin is set by a different supply; g = (limit - achieved)/limit
+    # for upper limits and (achieved - limit)/limit for lower ones (pymoo convention, feasible >= 0).
+    targets = dataclasses.replace(TARGETS, iq_min=40e-6, iq_max=100e-6, iq_sigmas=3.0, headroom_max=0.4,
+                                  ab_min=0.0, fp2_min=1.2 * min(h["gm"] for h in hand.values()) / (2 * math.pi * C_LOAD),
+                                  area_max=20e-12)
+    res = evaluate(design, TECH_SQ, COND, targets)
+    m = {k: v[0] for k, v in res.margins.items()}
+    assert m["iq_low"] == pytest.approx(min((iq * (1 - 3 * sigma) - 40e-6) / 40e-6), rel=1e-9)
+    assert m["iq_high"] == pytest.approx(min((100e-6 - iq * (1 + 3 * sigma)) / 100e-6), rel=1e-9)
+    worst_head = max(max(h["head_high"], h["head_low"]) for h in hand.values())
+    assert m["headroom"] == pytest.approx((0.4 - worst_head) / 0.4, rel=1e-6)
+    worst_load = min(min(h["peak_src"], h["peak_snk"]) for h in hand.values())
+    assert m["load_current"] == pytest.approx((worst_load - TARGETS.i_load) / TARGETS.i_load, rel=1e-9)
+    assert m["fp2"] == pytest.approx(1 / 1.2 - 1, rel=1e-9)
+    assert m["area"] == pytest.approx((20.0 - LAYOUT * (wn + wp) * FB_L) / 20.0, rel=1e-12)
+    assert m["vdd_min"] == pytest.approx(min((v - hand[v]["vdd_min"]) / v for v in SUPPLIES), rel=1e-9)
+    assert m["ab_ratio"] > 1e300  # ab_min = 0 switches the check off (the largest float stands for inf)
+    assert res.feasible[0] == all(value >= 0 for value in m.values())
+    # The worded violations of the failing margins, and reading the last design by a negative index.
+    assert any("below the window minimum" in v for v in res.violations[0]) == (m["iq_low"] < 0)
+    assert any("output pole" in v for v in res.violations[0])
+    assert res.violations[-1] == res.violations[0]
+    # The evaluate JSON object gives temperatures in degrees Celsius.
+    assert result_to_dict(res, 0)["pvt"][0]["temp_c"] == pytest.approx(T_TEST - 273.15, abs=1e-9)
