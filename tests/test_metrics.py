@@ -41,6 +41,12 @@ LAYOUT = 1.5  # area factor, not 1, so that leaving it out is seen
 TARGETS = Targets(i_load=100e-6, c_load=C_LOAD, vcomp=0.2, layout_factor=LAYOUT)
 
 
+def approx(expected, rel=1e-12, abs=0.0):
+    """pytest.approx without its default absolute floor of 1e-12, which would swallow the
+    femtofarads, nanoamps and sensitivities compared here."""
+    return pytest.approx(expected, rel=rel, abs=abs)
+
+
 # ---------------------------------------------------------------------------------------
 # Fixed bias, hand-solved at every supply
 # ---------------------------------------------------------------------------------------
@@ -99,19 +105,19 @@ def test_fixed_bias_per_supply_metrics_match_the_hand_solution(fixed_bias):
     for j, vdd in enumerate(res.vdd):
         hand = fixed_bias_hand(vdd, wn, wp)
         # Closed forms on both sides; the solver's gate to 1e-10 V or better: 1e-9 relative.
-        assert res.pvt["iq_a"][0, j] == pytest.approx(hand["iq"], rel=1e-9)
+        assert res.pvt["iq_a"][0, j] == approx(hand["iq"], rel=1e-9)
         # Output pole as defined today: gm_out / (2 pi C_load) with gm_out = gm(MN_OUT) + gm(MP_OUT).
-        assert res.pvt["fp2_hz"][0, j] == pytest.approx(hand["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
+        assert res.pvt["fp2_hz"][0, j] == approx(hand["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
         # The gate at its drive limit is a closed form; the current at mid-supply too.
-        assert res.pvt["iout_source_a"][0, j] == pytest.approx(hand["peak_src"], rel=1e-9)
-        assert res.pvt["iout_sink_a"][0, j] == pytest.approx(hand["peak_snk"], rel=1e-9)
+        assert res.pvt["iout_source_a"][0, j] == approx(hand["peak_src"], rel=1e-9)
+        assert res.pvt["iout_sink_a"][0, j] == approx(hand["peak_snk"], rel=1e-9)
         # The output voltage is solved to 0.1 uV (models.operating.driven_point).
-        assert res.pvt["headroom_high_v"][0, j] == pytest.approx(hand["head_high"], abs=2e-7)
-        assert res.pvt["headroom_low_v"][0, j] == pytest.approx(hand["head_low"], abs=2e-7)
-        assert res.pvt["swing_v"][0, j] == pytest.approx(vdd - hand["head_high"] - hand["head_low"], abs=4e-7)
+        assert res.pvt["headroom_high_v"][0, j] == approx(hand["head_high"], abs=2e-7)
+        assert res.pvt["headroom_low_v"][0, j] == approx(hand["head_low"], abs=2e-7)
+        assert res.pvt["swing_v"][0, j] == approx(vdd - hand["head_high"] - hand["head_low"], abs=4e-7)
         # Here an output device's saturation binds (2 ov >= 1.5 V > vb + 2 VT = 1.2 V) ...
-        assert hand["vdd_min"] == pytest.approx(max(hand["req_n"], hand["req_p"]), rel=1e-12)
-        assert res.pvt["vdd_min_v"][0, j] == pytest.approx(hand["vdd_min"], rel=1e-9)
+        assert hand["vdd_min"] == approx(max(hand["req_n"], hand["req_p"]), rel=1e-12)
+        assert res.pvt["vdd_min_v"][0, j] == approx(hand["vdd_min"], rel=1e-9)
         # ... the stronger device's partner, which needs the larger overdrive for the same current.
         named = res.requirement_names[int(res.pvt["vdd_min_what"][0, j])]
         assert named == ("mp_out leaves saturation" if wn > wp else "mn_out leaves saturation")
@@ -129,38 +135,38 @@ def test_fixed_bias_summary_matches_the_hand_solution(fixed_bias):
     if case == "equal":
         # (Iq(3.6 V) - Iq(2.7 V)) / Iq(3.3 V) / 0.9 V in %/V, ov = (VDD - 1.2 V)/2:
         # (1.44 - 0.5625) / 1.1025 / 0.9 * 100 = 88.4354 %/V
-        assert sens == pytest.approx(88.4354, rel=1e-6)  # the hand figure above, 6 digits
+        assert sens == approx(88.4354, rel=1e-6)  # the hand figure above, 6 digits
         # Power: nominal supply times (Iq + the bias branch ib): 3.3 V (55.125 uA + 2 uA) = 188.5125 uW.
-        assert s["power_w"] == pytest.approx(188.5125e-6, rel=1e-9)
-    assert s["supply_sens_pct_per_v"] == pytest.approx(sens, rel=1e-9)
+        assert s["power_w"] == approx(188.5125e-6, rel=1e-9)
+    assert s["supply_sens_pct_per_v"] == approx(sens, rel=1e-9)
     assert np.all(res.pvt["supply_sens_pct_per_v"][0] == s["supply_sens_pct_per_v"])
     # Power of every case: VDD_nom (Iq + ib), the bias branch included.
-    assert s["power_w"] == pytest.approx(3.3 * (nom["iq"] + IB), rel=1e-9)
+    assert s["power_w"] == approx(3.3 * (nom["iq"] + IB), rel=1e-9)
     # Area: layout factor x sum of W L = 1.5 x (W_n + W_p) x 2 um.
-    assert s["area_um2"] == pytest.approx(LAYOUT * (wn + wp) * FB_L, rel=1e-12)
+    assert s["area_um2"] == approx(LAYOUT * (wn + wp) * FB_L, rel=1e-12)
     # Worst cases over the supplies: the lowest supply has the least drive, the highest needs most.
-    assert s["iq_a"] == pytest.approx(nom["iq"], rel=1e-9)
-    assert s["iq_min_a"] == pytest.approx(lo["iq"], rel=1e-9)
-    assert s["iq_max_a"] == pytest.approx(hi["iq"], rel=1e-9)
-    assert s["headroom_high_v"] == pytest.approx(lo["head_high"], abs=2e-7)
-    assert s["headroom_low_v"] == pytest.approx(lo["head_low"], abs=2e-7)
-    assert s["iout_source_a"] == pytest.approx(lo["peak_src"], rel=1e-9)
-    assert s["iout_sink_a"] == pytest.approx(lo["peak_snk"], rel=1e-9)
-    assert s["vdd_min_v"] == pytest.approx(hi["vdd_min"], rel=1e-9)
-    assert s["fp2_hz"] == pytest.approx(lo["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
-    assert s["swing_v"] == pytest.approx(SUPPLIES[1] - lo["head_high"] - lo["head_low"], abs=4e-7)
+    assert s["iq_a"] == approx(nom["iq"], rel=1e-9)
+    assert s["iq_min_a"] == approx(lo["iq"], rel=1e-9)
+    assert s["iq_max_a"] == approx(hi["iq"], rel=1e-9)
+    assert s["headroom_high_v"] == approx(lo["head_high"], abs=2e-7)
+    assert s["headroom_low_v"] == approx(lo["head_low"], abs=2e-7)
+    assert s["iout_source_a"] == approx(lo["peak_src"], rel=1e-9)
+    assert s["iout_sink_a"] == approx(lo["peak_snk"], rel=1e-9)
+    assert s["vdd_min_v"] == approx(hi["vdd_min"], rel=1e-9)
+    assert s["fp2_hz"] == approx(lo["gm"] / (2.0 * math.pi * C_LOAD), rel=1e-9)
+    assert s["swing_v"] == approx(SUPPLIES[1] - lo["head_high"] - lo["head_low"], abs=4e-7)
     # The same numbers in the evaluate JSON object, with the binding requirement named.
     js = result_to_dict(res, 0)
     for key, value in s.items():
-        assert js["summary"][key] == pytest.approx(float(value), rel=1e-15), key
+        assert js["summary"][key] == approx(float(value), rel=1e-15), key
     for j, row in enumerate(js["pvt"]):
-        assert row["vdd_v"] == res.vdd[j] and row["iq_a"] == pytest.approx(res.pvt["iq_a"][0, j], rel=1e-15)
+        assert row["vdd_v"] == res.vdd[j] and row["iq_a"] == approx(res.pvt["iq_a"][0, j], rel=1e-15)
         assert row["vdd_min_set_by"] == ("mp_out leaves saturation" if wn > wp else "mn_out leaves saturation")
     # A front.csv row writes the sizes in micrometres and reads them back to the same design.
     row = design_rows(design)[0]
-    assert row["mn_out_w_um"] == pytest.approx(wn, rel=1e-12) and row["r_bias_ohm"] == R_BIAS
+    assert row["mn_out_w_um"] == approx(wn, rel=1e-12) and row["r_bias_ohm"] == R_BIAS
     back = design_from_row(dict(row, architecture="fixed-bias"))
-    assert back.w["mp_out"][0] == pytest.approx(wp * 1e-6, rel=1e-12)
+    assert back.w["mp_out"][0] == approx(wp * 1e-6, rel=1e-12)
 
 
 # ---------------------------------------------------------------------------------------
@@ -203,15 +209,15 @@ def test_floating_loop_ab_ratio_is_the_smaller_side_and_power_counts_every_branc
     iq, ab_source, ab_sink = floating_hand()
     # The two sides differ (about 0.33 and 0.57), so min and max of them are told apart.
     assert ab_source < 0.8 * ab_sink < 0.8
-    assert res.summary["iq_a"][0] == pytest.approx(iq, rel=1e-7)
+    assert res.summary["iq_a"][0] == approx(iq, rel=1e-7)
     # Square law: continuous at the control device's saturation edge, so the limit costs nothing;
     # the edge is solved to 1 uV in the gates: 1e-5 relative.
-    assert res.pvt["ab_ratio"][0, 0] == pytest.approx(min(ab_source, ab_sink), rel=1e-5)
+    assert res.pvt["ab_ratio"][0, 0] == approx(min(ab_source, ab_sink), rel=1e-5)
     assert res.summary["ab_ratio"][0] <= 1.0
     # Power: VDD (Iq + ib_n + ib_p + ib_ctl), every bias branch (40 uA here, about a third of it).
-    assert res.summary["power_w"][0] == pytest.approx(FL_VDD * (iq + 2 * FL_IB + FL_IB_CTL), rel=1e-7)
+    assert res.summary["power_w"][0] == approx(FL_VDD * (iq + 2 * FL_IB + FL_IB_CTL), rel=1e-7)
     # Area: 1.5 x (10 + 1 + 1 + 1 + 10 + 1 + 1 + 2.25) um^2 = 40.875 um^2.
-    assert res.summary["area_um2"][0] == pytest.approx(40.875, rel=1e-12)
+    assert res.summary["area_um2"][0] == approx(40.875, rel=1e-12)
 
 
 # ---------------------------------------------------------------------------------------
@@ -263,7 +269,7 @@ def _assert_sensitivities(sens, fd):
     scale = max(abs(v) for v in fd.values())
     for (role, k), value in fd.items():
         # Signs included: each sensitivity on its own, to the differences' truncation error.
-        assert sens[role][k][0] == pytest.approx(value, rel=1e-5, abs=1e-7 * scale), (role, k)
+        assert sens[role][k][0] == approx(value, rel=1e-5, abs=1e-7 * scale), (role, k)
 
 
 @pytest.mark.parametrize("architecture", list(MM_DESIGNS))
@@ -297,9 +303,9 @@ def test_mismatch_sensitivities_and_sigma_match_finite_differences(architecture)
     assert abs(fd[stage.PULL_DOWN, 0]) > 0 and abs(fd[stage.PULL_DOWN, 1]) > 0
     res = evaluate(design, TECH_MM, Conditions((Corner.TT,), (T_TEST,), MM_VDD, MM_VDD, MM_VDD),
                    Targets(i_load=10e-6, c_load=C_LOAD))
-    assert res.summary["iq_a"][0] == pytest.approx(iq0, rel=1e-12)
+    assert res.summary["iq_a"][0] == approx(iq0, rel=1e-12)
     # The reported sigma, from the hand sum over the finite differences (truncation 1e-5 relative).
-    assert res.summary["iq_sigma_pct"][0] == pytest.approx(100.0 * math.sqrt(var) / iq0, rel=1e-5)
+    assert res.summary["iq_sigma_pct"][0] == approx(100.0 * math.sqrt(var) / iq0, rel=1e-5)
 
 
 def test_dense_fallback_of_the_adjoint_gives_the_same_sensitivities(monkeypatch):
@@ -314,8 +320,8 @@ def test_dense_fallback_of_the_adjoint_gives_the_same_sensitivities(monkeypatch)
     monkeypatch.setattr(nodal, "solve_structured", lambda entries, rhs, k, m: (np.zeros((k, m)), np.zeros(m, bool)))
     _, dense_path = _iq(design, zero, zero, sensitivity=True)
     for role, (s_vt, s_beta) in sparse.items():
-        assert dense_path[role][0][0] == pytest.approx(s_vt[0], rel=1e-9, abs=1e-12 * abs(s_vt[0]) + 1e-18), role
-        assert dense_path[role][1][0] == pytest.approx(s_beta[0], rel=1e-9, abs=1e-18), role
+        assert dense_path[role][0][0] == approx(s_vt[0], rel=1e-9, abs=1e-12 * abs(s_vt[0]) + 1e-18), role
+        assert dense_path[role][1][0] == approx(s_beta[0], rel=1e-9, abs=1e-18), role
 
 
 def test_fixed_bias_drive_capacitance_is_the_saturation_gate_capacitance(fixed_bias):
@@ -327,7 +333,7 @@ def test_fixed_bias_drive_capacitance_is_the_saturation_gate_capacitance(fixed_b
     # memory); both output gates: sum over MN_OUT and MP_OUT. The model interpolates towards the
     # weak-inversion value by 1/IC; IC is about 300 here (Iq 30-80 uA, Ispec 0.17 uA x W/L), so 1 %.
     hand = sum((2.0 / 3.0) * mt.cox * w * 1e-6 * FB_L * 1e-6 + 2.0 * mt.cov * w * 1e-6 for w in (wn, wp))
-    assert res.summary["c_drive_f"][0] == pytest.approx(hand, rel=1e-2)
+    assert res.summary["c_drive_f"][0] == approx(hand, rel=1e-2)
 
 
 def test_drive_capacitance_in_weak_inversion_is_the_depletion_capacitance():
@@ -343,7 +349,7 @@ def test_drive_capacitance_in_weak_inversion_is_the_depletion_capacitance():
     assert res.converged.all()
     mt = tech.nmos
     hand = 2.0 * ((mt.n - 1.0) / mt.n * mt.cox * w * l * 1e-12 + 2.0 * mt.cov * w * 1e-6)
-    assert res.summary["c_drive_f"][0] == pytest.approx(hand, rel=2e-3)
+    assert res.summary["c_drive_f"][0] == approx(hand, rel=2e-3)
 
 
 def test_a_failed_driven_point_is_reported_at_its_pvt_point(monkeypatch):
@@ -420,7 +426,7 @@ def test_each_lowest_supply_requirement_matches_the_hand_solution():
     got = _requirements(fb, 3.3, vcomp)
     want = {"output pair cuts off": VB + 2 * VT, "mn_out leaves saturation": hand["req_n"],
             "mp_out leaves saturation": hand["req_p"], "ib sources lose compliance": VB + 2 * vcomp}
-    assert got == pytest.approx(want, rel=1e-9)
+    assert got == approx(want, rel=1e-9)
     # Floating loop (floating_hand): each output device 2 ov_out at Iq; each control device
     # needs VSG(MP_OUT) + VGS(MN_OUT) + its own ov; each bias source its diode stack
     # (2 (VT + ov_d), no body effect with the sources on their bulks) plus vcomp.
@@ -432,7 +438,7 @@ def test_each_lowest_supply_requirement_matches_the_hand_solution():
             "mn_ctl leaves saturation": gates + _ov(i_nc, 1), "mp_ctl leaves saturation": gates + _ov(FL_IB_CTL - i_nc, 2.25),
             "ib_n source loses compliance": 2 * (VT + _ov(FL_IB, 1)) + vcomp,
             "ib_p source loses compliance": 2 * (VT + _ov(FL_IB, 1)) + vcomp}
-    assert _requirements(fl, FL_VDD, vcomp) == pytest.approx(want, rel=1e-7)
+    assert _requirements(fl, FL_VDD, vcomp) == approx(want, rel=1e-7)
     # Follower (test_follower_matches_the_hand_solution): each bias source needs twice its
     # diode's gate-source voltage plus vcomp, each follower 2 ov at Iq.
     fo = make_design("follower", FO_SIZES, dict(ib=FO_IB), tied=set(FO_SIZES))
@@ -440,7 +446,7 @@ def test_each_lowest_supply_requirement_matches_the_hand_solution():
     want = {"ib top source loses compliance": 2 * (VT + _ov(FO_IB, 1) + vcomp),
             "ib bottom source loses compliance": 2 * (VT + _ov(FO_IB, 4) + vcomp),
             "mn_f leaves saturation": 2 * _ov(iq, 10), "mp_f leaves saturation": 2 * _ov(iq, 40)}
-    assert _requirements(fo, FO_VDD, vcomp) == pytest.approx(want, rel=1e-9)
+    assert _requirements(fo, FO_VDD, vcomp) == approx(want, rel=1e-9)
 
 
 def test_follower_matches_the_hand_solution():
@@ -455,18 +461,18 @@ def test_follower_matches_the_hand_solution():
     res = evaluate(design, TECH_SQ, cond, TARGETS)
     assert res.converged.all()
     iq = 10 * FO_IB
-    assert res.summary["iq_a"][0] == pytest.approx(iq, rel=1e-9)
+    assert res.summary["iq_a"][0] == approx(iq, rel=1e-9)
     assert VT + _ov(FO_IB, 1) + VT + _ov(FO_IB, 4) + TARGETS.vcomp - FO_VDD / 2 < VT  # the idle device is off
     drive = FO_VDD / 2 - TARGETS.vcomp - VT
-    assert res.summary["iout_source_a"][0] == pytest.approx(0.5 * KP * 10 * drive**2, rel=1e-9)
-    assert res.summary["iout_sink_a"][0] == pytest.approx(0.5 * KP * 40 * drive**2, rel=1e-9)
+    assert res.summary["iout_source_a"][0] == approx(0.5 * KP * 10 * drive**2, rel=1e-9)
+    assert res.summary["iout_sink_a"][0] == approx(0.5 * KP * 40 * drive**2, rel=1e-9)
     # Output conductance of the followers at rest: gm = beta ov each (no body effect here).
     gm = KP * 10 * _ov(iq, 10) + KP * 40 * _ov(iq, 40)
-    assert res.summary["fp2_hz"][0] == pytest.approx(gm / (2 * math.pi * C_LOAD), rel=1e-9)
+    assert res.summary["fp2_hz"][0] == approx(gm / (2 * math.pi * C_LOAD), rel=1e-9)
     # Lowest supply: the top source, twice MN_B's VGS plus vcomp (1.894 V + 0.4 V = 2.294 V).
-    assert res.summary["vdd_min_v"][0] == pytest.approx(2 * (VT + _ov(FO_IB, 1) + TARGETS.vcomp), rel=1e-9)
+    assert res.summary["vdd_min_v"][0] == approx(2 * (VT + _ov(FO_IB, 1) + TARGETS.vcomp), rel=1e-9)
     # Power: VDD (Iq + ib) = 3.3 V x 110 uA.
-    assert res.summary["power_w"][0] == pytest.approx(3.3 * 110e-6, rel=1e-9)
+    assert res.summary["power_w"][0] == approx(3.3 * 110e-6, rel=1e-9)
 
 
 @pytest.mark.parametrize("direction", [+1, -1])
@@ -495,8 +501,8 @@ def test_bracketed_fallback_finds_the_same_drive_limit_edge(monkeypatch, directi
     gn, gp, limit, ok_b = floating_loop.driven(devs, bias, vdd, nodes, direction, "both", 1e-3)
     assert ok_b.all() and newton_edge[3].all()
     assert limit[0] == newton_edge[2][0] == 1  # the control device's saturation edge
-    assert gn[0] == pytest.approx(newton_edge[0][0], abs=1e-7)
-    assert gp[0] == pytest.approx(newton_edge[1][0], abs=1e-7)
+    assert gn[0] == approx(newton_edge[0][0], abs=1e-7)
+    assert gp[0] == approx(newton_edge[1][0], abs=1e-7)
 
 
 def test_supply_sensitivity_of_a_stage_cut_off_at_the_nominal_supply():
@@ -507,8 +513,8 @@ def test_supply_sensitivity_of_a_stage_cut_off_at_the_nominal_supply():
     design = make_design("fixed-bias", {"mn_out": (2.0, FB_L), "mp_out": (2.0, FB_L)}, dict(ib=IB, r_bias=2.45 / IB))
     res = evaluate(design, TECH_SQ, COND, TARGETS)
     assert list(res.pvt["iq_a"][0] > 0) == [False, False, True]  # nominal, min, max
-    assert res.pvt["iq_a"][0, 2] == pytest.approx(0.5 * BETA_FB * 0.075**2, rel=1e-6)
-    assert res.summary["supply_sens_pct_per_v"][0] == pytest.approx(100.0 / 0.9, rel=1e-12)
+    assert res.pvt["iq_a"][0, 2] == approx(0.5 * BETA_FB * 0.075**2, rel=1e-6)
+    assert res.summary["supply_sens_pct_per_v"][0] == approx(100.0 / 0.9, rel=1e-12)
 
 
 def test_margins_are_relative_to_their_limits_at_the_worst_pvt_point(fixed_bias):
@@ -524,15 +530,15 @@ def test_margins_are_relative_to_their_limits_at_the_worst_pvt_point(fixed_bias)
                                   area_max=20e-12)
     res = evaluate(design, TECH_SQ, COND, targets)
     m = {k: v[0] for k, v in res.margins.items()}
-    assert m["iq_low"] == pytest.approx(min((iq * (1 - 3 * sigma) - 40e-6) / 40e-6), rel=1e-9)
-    assert m["iq_high"] == pytest.approx(min((100e-6 - iq * (1 + 3 * sigma)) / 100e-6), rel=1e-9)
+    assert m["iq_low"] == approx(min((iq * (1 - 3 * sigma) - 40e-6) / 40e-6), rel=1e-9)
+    assert m["iq_high"] == approx(min((100e-6 - iq * (1 + 3 * sigma)) / 100e-6), rel=1e-9)
     worst_head = max(max(h["head_high"], h["head_low"]) for h in hand.values())
-    assert m["headroom"] == pytest.approx((0.4 - worst_head) / 0.4, rel=1e-6)
+    assert m["headroom"] == approx((0.4 - worst_head) / 0.4, rel=1e-6)
     worst_load = min(min(h["peak_src"], h["peak_snk"]) for h in hand.values())
-    assert m["load_current"] == pytest.approx((worst_load - TARGETS.i_load) / TARGETS.i_load, rel=1e-9)
-    assert m["fp2"] == pytest.approx(1 / 1.2 - 1, rel=1e-9)
-    assert m["area"] == pytest.approx((20.0 - LAYOUT * (wn + wp) * FB_L) / 20.0, rel=1e-12)
-    assert m["vdd_min"] == pytest.approx(min((v - hand[v]["vdd_min"]) / v for v in SUPPLIES), rel=1e-9)
+    assert m["load_current"] == approx((worst_load - TARGETS.i_load) / TARGETS.i_load, rel=1e-9)
+    assert m["fp2"] == approx(1 / 1.2 - 1, rel=1e-9)
+    assert m["area"] == approx((20.0 - LAYOUT * (wn + wp) * FB_L) / 20.0, rel=1e-12)
+    assert m["vdd_min"] == approx(min((v - hand[v]["vdd_min"]) / v for v in SUPPLIES), rel=1e-9)
     assert m["ab_ratio"] > 1e300  # ab_min = 0 switches the check off (the largest float stands for inf)
     assert res.feasible[0] == all(value >= 0 for value in m.values())
     # The worded violations of the failing margins, and reading the last design by a negative index.
@@ -540,4 +546,4 @@ def test_margins_are_relative_to_their_limits_at_the_worst_pvt_point(fixed_bias)
     assert any("output pole" in v for v in res.violations[0])
     assert res.violations[-1] == res.violations[0]
     # The evaluate JSON object gives temperatures in degrees Celsius.
-    assert result_to_dict(res, 0)["pvt"][0]["temp_c"] == pytest.approx(T_TEST - 273.15, abs=1e-9)
+    assert result_to_dict(res, 0)["pvt"][0]["temp_c"] == approx(T_TEST - 273.15, abs=1e-9)

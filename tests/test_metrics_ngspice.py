@@ -53,6 +53,12 @@ TARGETS = Targets(i_load=100e-6, c_load=C_LOAD, vcomp=0.2)
 SUPPLIES = (5.0, 4.0, 6.0)  # V: nominal, min, max
 
 
+def approx(expected, rel=1e-12, abs=0.0):
+    """pytest.approx without its default absolute floor of 1e-12, which would swallow the
+    femtofarads, nanoamps and sensitivities compared here."""
+    return pytest.approx(expected, rel=rel, abs=abs)
+
+
 def designs():
     """Hand-sized designs of every architecture in the [AH02] process (sizes in um)."""
     fl = make_design("floating-loop", floating_sizes(dict(out=(60, 0.8), d1=(18, 2.4), d2=(18, 2.4), ctl=(18, 2.4)),
@@ -108,7 +114,7 @@ def test_supply_sensitivity_matches_ngspice(architecture):
     sim = 100.0 * (iq[hi] - iq[lo]) / iq[nom] / (hi - lo)
     # Iq agrees to about 1e-5 at every supply (test_stages_ngspice.py); the difference of two
     # Iqs that are 3 % to 60 % apart keeps that to within 1e-3 of the sensitivity.
-    assert res.summary["supply_sens_pct_per_v"][0] == pytest.approx(sim, rel=1e-3)
+    assert res.summary["supply_sens_pct_per_v"][0] == approx(sim, rel=1e-3)
     assert abs(sim) > 1.0  # %/V: length modulation (and the fixed bias's VGS sum) make it bind
 
 
@@ -153,13 +159,13 @@ def test_headroom_and_peak_currents_match_a_dc_sweep_at_full_drive(architecture,
         cur = direction * pushed
         # The peak: the current at VDD/2, the sweep's first point. Same equations; the
         # simulator's tolerances leave about 1e-6 of it.
-        assert res.summary[peak_key][0] == pytest.approx(cur[0], rel=1e-4)
+        assert res.summary[peak_key][0] == approx(cur[0], rel=1e-4)
         assert cur[0] > TARGETS.i_load  # the load is met, so the headroom is a crossing
         k = np.flatnonzero(cur < TARGETS.i_load)[0]
         v_at = np.interp(TARGETS.i_load, [cur[k], cur[k - 1]], [v[k], v[k - 1]])
         headroom = vdd - v_at if direction > 0 else v_at
         # Linear interpolation over 1 mV steps of a smooth triode curve: well under 10 uV.
-        assert res.summary[head_key][0] == pytest.approx(headroom, abs=1e-5)
+        assert res.summary[head_key][0] == approx(headroom, abs=1e-5)
         assert 0.0 < headroom < 0.5 * vdd
 
 
@@ -196,7 +202,7 @@ def test_vdd_min_of_the_floating_loop_is_where_its_control_device_leaves_saturat
         assert (vds > vdsat) == saturated, (factor, vds, vdsat)
         if saturated:
             # 1 % above the minimum the rest point is the nominal one (same equations, 1e-5).
-            assert iq == pytest.approx(res.pvt["iq_a"][0, 0], rel=1e-5)
+            assert iq == approx(res.pvt["iq_a"][0, 0], rel=1e-5)
 
 
 def test_vdd_min_of_the_fixed_bias_pair_is_where_its_output_devices_leave_saturation():
@@ -256,7 +262,7 @@ def test_output_pole_matches_ngspice_ac(architecture):
     deck = header("output pole", tech, vdd) + lines + bench + [f".ac lin 1 {F_AC!r} {F_AC!r}", ".end"]
     out = ngspice.run("\n".join(deck))
     y = 1.0 / complex(ngspice.vector(out, "v(out)")[0])
-    assert y.imag == pytest.approx(2.0 * math.pi * F_AC * C_LOAD, rel=1e-9)  # the load is all the capacitance
+    assert y.imag == approx(2.0 * math.pi * F_AC * C_LOAD, rel=1e-9)  # the load is all the capacitance
     pole = F_AC * y.real / y.imag
     # GMIN against a gm of 1e-4 S or more: 1e-8; ngspice's op to reltol 1e-7.
-    assert res.pvt["fp2_hz"][0, 0] == pytest.approx(pole, rel=1e-5)
+    assert res.pvt["fp2_hz"][0, 0] == approx(pole, rel=1e-5)
