@@ -547,3 +547,29 @@ def test_margins_are_relative_to_their_limits_at_the_worst_pvt_point(fixed_bias)
     assert res.violations[-1] == res.violations[0]
     # The evaluate JSON object gives temperatures in degrees Celsius.
     assert result_to_dict(res, 0)["pvt"][0]["temp_c"] == approx(T_TEST - 273.15, abs=1e-9)
+
+
+def test_fast_paths_solve_ordinary_designs_without_their_fallbacks(monkeypatch):
+    # Each stage solves its rest point and drive limits with a fast path (closed forms, Newton
+    # from a close start) and keeps slower, safer solves behind it for the elements the fast path
+    # leaves. On ordinary designs (every device in its intended region) the fast path must do the
+    # whole job: a fallback that quietly takes over would hide a broken start or Jacobian.
+    from models.circuit.nodal import NodalSystem
+    from models.stages import floating_loop
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a fallback solve was needed")
+
+    monkeypatch.setattr(NodalSystem, "solve", refuse)
+    monkeypatch.setattr(floating_loop, "_quiescent_bracketed", refuse)
+    monkeypatch.setattr(floating_loop, "_edge_bracketed", refuse)
+    cases = [(d, TECH_MM) for d in MM_DESIGNS.values()]
+    cases += [(make_design("floating-loop", floating_sizes(FL_N, FL_P), dict(ib_n=FL_IB, ib_p=FL_IB, ib_ctl=FL_IB_CTL),
+                           tied=STACKED), TECH_SQ),
+              (make_design("fixed-bias", {"mn_out": (4.0, FB_L), "mp_out": (2.0, FB_L)}, dict(ib=IB, r_bias=R_BIAS)),
+               TECH_SQ),
+              (make_design("follower", FO_SIZES, dict(ib=FO_IB), tied=set(FO_SIZES)), TECH_SQ)]
+    for design, tech in cases:
+        for vcomp in (0.2, 1e-3):  # the driver's compliance first, then the control device's edge
+            res = evaluate(design, tech, COND, dataclasses.replace(TARGETS, vcomp=vcomp))
+            assert res.converged.all(), (design.architecture, vcomp)
