@@ -20,8 +20,15 @@ import os
 import shutil
 
 import pytest
+from _pytest.python_api import ApproxScalar
 
 from optimise.spice import ngspice
+
+# pytest.approx adds an absolute tolerance of 1e-12 to every relative one. In SI units the
+# currents (nA), capacitances (fF) and sensitivities compared here sit at or below it, so a
+# comparison such as approx(1e-9 A, rel=1e-9) would accept anything under a picoampere. No
+# absolute floor, then: a test that needs one says abs= itself, with its reason.
+ApproxScalar.DEFAULT_ABSOLUTE_TOLERANCE = 0.0
 
 REQUIRE_ENV = "STAGEFRONT_REQUIRE_NGSPICE"
 BROWSER_REQUIRE_ENV = "STAGEFRONT_REQUIRE_BROWSER"

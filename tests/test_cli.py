@@ -14,7 +14,7 @@ from optimise.cli import main
 ROOT = Path(__file__).resolve().parent.parent
 STUDY = ROOT / "studies" / "sensor-buffer.toml"
 ARCHS = ("floating-loop", "fixed-bias", "follower")
-# DESIGN.md section 4: the names every evaluation reports.
+# The evaluate contract (README.md, "evaluate"): the names every evaluation reports.
 SECTION4 = ("iq_a", "power_w", "headroom_high_v", "headroom_low_v", "swing_v", "iout_source_a",
             "iout_sink_a", "ab_ratio", "area_um2", "iq_sigma_pct", "supply_sens_pct_per_v", "vdd_min_v", "fp2_hz")
 PVT_NAMES = tuple(n for n in SECTION4 if n not in ("power_w", "area_um2"))
@@ -57,8 +57,10 @@ def test_montecarlo_reported_beside_linear_sigma(capsys):
                       "--montecarlo", "4000")
     mc = out["montecarlo"]
     assert mc["samples"] == 4000 and mc["failed"] == 0
-    # 4000 samples: the sample sigma itself scatters by about 1/sqrt(2N) = 1.1 %; allow 10 %.
-    assert mc["iq_sigma_pct"] == pytest.approx(mc["linear_sigma_pct"], rel=0.10)
+    # 4000 samples: the sample sigma of normal draws scatters by 1/sqrt(2N) = 1.1 % (standard error
+    # of a standard deviation); 4 of those, plus 0.7 % for the curvature of Iq in the deviations
+    # (the largest MC/linear gap at 20 000 draws in test_stages.py). Measured +1.2 %.
+    assert mc["iq_sigma_pct"] == pytest.approx(mc["linear_sigma_pct"], rel=4.0 / (2 * 4000) ** 0.5 + 0.007)
 
 
 def test_table_output_carries_the_caution(capsys):

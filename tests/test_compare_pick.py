@@ -68,17 +68,20 @@ def test_where_keeps_only_rows_within_budget(capsys, run):
     front = front_of(run)
     budget = float(np.median(front["power_w"]))
     text = f"{budget * 1e6:.6g}u"  # engineering suffix at the edge: micro-watts
-    code, out, _ = cli(capsys, "pick", run, "--where", f"power_w<={text}", "--where", "swing_v>=1",
+    # The swing floor at the front's median too, so that each of the two budgets drops rows
+    # (a floor below every row's swing would keep them all and check nothing).
+    swing = float(f"{float(np.median(front['swing_v'])):.6g}")
+    code, out, _ = cli(capsys, "pick", run, "--where", f"power_w<={text}", "--where", f"swing_v>={swing!r}",
                        "--count", "1000", "--format", "csv")
     assert code == 0
     rows = picked(out)
-    assert len(rows) >= 1
     limit = float(f"{budget * 1e6:.6g}") * 1e-6
+    assert (front["power_w"] > limit).any() and (front["swing_v"] < swing).any()  # each budget bites
     for design in rows["id"]:
         assert front.loc[design, "power_w"] <= limit
-        assert front.loc[design, "swing_v"] >= 1.0
+        assert front.loc[design, "swing_v"] >= swing
     # and nothing that meets both budgets was left out
-    expected = front[(front["power_w"] <= limit) & (front["swing_v"] >= 1.0)]
+    expected = front[(front["power_w"] <= limit) & (front["swing_v"] >= swing)]
     assert sorted(rows["id"]) == sorted(expected.index)
 
 
@@ -150,6 +153,10 @@ def test_knee_of_a_hand_made_front():
     assert np.argmin(cheb) == 1
     assert cheb[1] == pytest.approx(0.4, rel=1e-12)
     assert eucl[1] == pytest.approx(0.4 * np.sqrt(2), rel=1e-12)
+    # A front on which the Chebyshev knee and the Euclidean one differ: largest coordinates
+    # 1, 0.45, 0.6 (Chebyshev picks the middle one), distances 1, 0.636, 0.608 (Euclid the last).
+    cheb3, eucl3 = knee_distance(np.array([[0.0, 1.0], [0.45, 0.45], [0.1, 0.6], [1.0, 0.0]]))
+    assert np.argmin(cheb3) == 1 and np.argmin(eucl3) == 2
     # scale-free: the same front in W and V picks the same design
     cheb2, _ = knee_distance(np.array([[0.0, 3.3], [4e-5, 1.32], [1e-4, 0.0]]))
     assert np.argmin(cheb2) == 1

@@ -1,7 +1,7 @@
 """Pelgrom area law of models.devices.mismatch: hand values and Monte Carlo.
 
-Reference keys as in /work/shared/CHECK-VALUES.md, section 8: [Pel89] is Pelgrom,
-Duinmaijer, Welbers, IEEE JSSC 24(5), 1989.
+[Pel89] M. J. M. Pelgrom, A. C. J. Duinmaijer, A. P. G. Welbers, "Matching properties of MOS
+transistors", IEEE J. Solid-State Circuits 24(5):1433-1440, 1989.
 """
 from __future__ import annotations
 
@@ -12,15 +12,17 @@ from models.devices import mismatch
 
 UM = 1e-6
 A_VT = 5e-3 * UM  # V*m, 5 mV*um
-A_BETA = 0.01 * UM  # m, 1 %*um (CHECK-VALUES sec. 3 "typical Abeta 1-2 %*um", M: a plausible value only)
-N_DRAWS = 20_000
+# m, 1 %*um: typical Abeta is 1-2 %*um ([Pel89]; P. R. Kinget, IEEE JSSC 40(6), 2005; from memory),
+# a plausible value only.
+A_BETA = 0.01 * UM
+N_DRAWS = 200_000  # relative standard error of a sample sigma 1/sqrt(2 N) = 0.16 %
 SEED = 20240611
 
 
 @pytest.mark.parametrize(
     "a_vt, w, l, sigma",
     [
-        # CHECK-VALUES sec. 3 area-law examples, sigma = AVT / sqrt(W L) [Pel89] (D)
+        # [Pel89] area law sigma = AVT / sqrt(W L), hand calc: 5 mV um / 1 um, / sqrt(10) um, 3.5 / 10 um
         (5e-3 * UM, 1 * UM, 1 * UM, 5.00e-3),
         (5e-3 * UM, 10 * UM, 1 * UM, 1.58e-3),
         (3.5e-3 * UM, 10 * UM, 10 * UM, 0.35e-3),
@@ -42,6 +44,17 @@ def test_sigma_halves_when_area_quadruples(sigma):
     assert sigma(A_VT, 8 * UM, 2 * UM) == pytest.approx(sigma(A_VT, 2 * UM, 2 * UM) / 2.0, rel=1e-12)
 
 
+@pytest.mark.parametrize("device, pair, a", [(mismatch.sigma_device_vt, mismatch.sigma_pair_vt, A_VT),
+                                             (mismatch.sigma_device_beta, mismatch.sigma_pair_beta, A_BETA)])
+def test_one_device_deviates_by_the_pair_sigma_over_sqrt2(device, pair, a):
+    # [Pel89] quotes the difference of a pair; the two devices deviate independently from the
+    # mean, so var(pair) = 2 var(device): sigma_device = A / sqrt(2 W L), exact to rounding.
+    # Hand calc for the threshold: 5 mV um / sqrt(2 * 10 um * 1 um) = 1.1180 mV.
+    assert device(a, 10 * UM, 1 * UM) == pytest.approx(pair(a, 10 * UM, 1 * UM) / np.sqrt(2.0), rel=1e-14)
+    if a == A_VT:
+        assert device(a, 10 * UM, 1 * UM) == pytest.approx(1.1180e-3, rel=5e-5)
+
+
 def _pair_difference(w, l, seed=SEED):
     """Deviations of two devices of the same size drawn independently, N_DRAWS times."""
     rng = np.random.default_rng(seed)
@@ -52,23 +65,23 @@ def _pair_difference(w, l, seed=SEED):
 @pytest.mark.parametrize("w, l", [(1 * UM, 1 * UM), (10 * UM, 1 * UM), (20 * UM, 5 * UM)])
 def test_sampled_vt_pair_difference_has_pelgrom_sigma(w, l):
     diff_vt, _ = _pair_difference(w, l)
-    # Pelgrom's sigma describes the pair difference. With 20 000 draws the relative standard
-    # error of a standard deviation is 1/sqrt(2 N) = 0.5 %, so 3 % is a 6-sigma margin.
-    assert np.std(diff_vt) == pytest.approx(mismatch.sigma_pair_vt(A_VT, w, l), rel=0.03)
+    # Pelgrom's sigma describes the pair difference. With 200 000 draws the relative standard
+    # error of a standard deviation is 1/sqrt(2 N) = 0.16 %: 4 of those.
+    assert np.std(diff_vt) == pytest.approx(mismatch.sigma_pair_vt(A_VT, w, l), rel=4.0 / np.sqrt(2 * N_DRAWS))
 
 
 @pytest.mark.parametrize("w, l", [(1 * UM, 1 * UM), (10 * UM, 1 * UM), (20 * UM, 5 * UM)])
 def test_sampled_beta_pair_difference_has_pelgrom_sigma(w, l):
     _, diff_beta = _pair_difference(w, l)
-    # Same 6-sigma margin as for the threshold.
-    assert np.std(diff_beta) == pytest.approx(mismatch.sigma_pair_beta(A_BETA, w, l), rel=0.03)
+    # Same 4-standard-error margin as for the threshold.
+    assert np.std(diff_beta) == pytest.approx(mismatch.sigma_pair_beta(A_BETA, w, l), rel=4.0 / np.sqrt(2 * N_DRAWS))
 
 
 def test_sampled_sigma_halves_when_area_quadruples():
     small, _ = _pair_difference(2 * UM, 2 * UM)
     large, _ = _pair_difference(8 * UM, 2 * UM, seed=SEED + 1)  # independent of `small`
-    # Ratio of two independent estimates, each 0.5 % (1 sigma): 0.7 %, so 3 % is 4 sigma.
-    assert np.std(large) / np.std(small) == pytest.approx(0.5, rel=0.03)
+    # Ratio of two independent estimates, each 0.16 % (1 sigma): 0.22 %; 4 of those.
+    assert np.std(large) / np.std(small) == pytest.approx(0.5, rel=4.0 * np.sqrt(2.0 / (2 * N_DRAWS)))
 
 
 def test_sample_is_reproducible_with_the_same_seed():

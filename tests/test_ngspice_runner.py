@@ -26,7 +26,7 @@ posix_only = pytest.mark.skipif(os.name != "posix", reason="stand-in executable 
 
 
 def tech(va_per_l: float = 2.5e7) -> MosTech:
-    # [AH02] Table 3.1-2 NMOS (S): VT0 0.7 V, K' 110 uA/V^2, gamma 0.4, 2|phiF| 0.7 V; 2.5e7 V/m is lambda 0.04 /V at 1 um.
+    # [AH02] Table 3.1-2 NMOS: VT0 0.7 V, K' 110 uA/V^2, gamma 0.4, 2|phiF| 0.7 V; 2.5e7 V/m is lambda 0.04 /V at 1 um.
     return MosTech(
         vt0=0.7, kp=110e-6, n=1.3, gamma=0.4, phi=0.7, va_per_l=va_per_l, tc_vt=2.3e-3, mu_exp=-1.5,
         a_vt=5e-9, a_beta=1e-8, cox=2.3e-3, cov=2e-10, w_min=1e-6, l_min=1e-6,

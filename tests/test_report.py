@@ -102,7 +102,7 @@ def test_every_section_is_in_both_renderings(report):
 
 def test_caution_is_prominent_in_both(report):
     _, page, md = report
-    # DESIGN.md section 1: the caution to repeat in the report, word for word in substance.
+    # optimise.CAUTION: the caution the report repeats, word for word in substance.
     assert "model estimates for early design" in CAUTION.lower() and "never tape out" in CAUTION.lower()
     assert f'<p class="caution">{CAUTION.replace(chr(39), "&#x27;")}</p>' in page
     assert page.index('class="caution"') < page.index("<h2>At a glance</h2>")

@@ -57,7 +57,8 @@ def test_zdt1_front_and_hypervolume_through_the_runner(tmp_path):
     # (Deb et al. 2002 report convergence metrics of order 1e-3 at 250 x 100 evaluations).
     gap = np.abs(F[:, 1] - (1.0 - np.sqrt(np.clip(F[:, 0], 0, 1))))
     assert np.median(gap) < 0.02
-    # 2/3 exact (CHECK-VALUES section 7, derived); a finite front of this quality falls
+    # 2/3 exact (the integral of 1 - sqrt(f1) over [0, 1] under ref (1, 1), by hand; front of
+    # E. Zitzler, K. Deb, L. Thiele, Evolutionary Computation 8(2), 2000); a finite front of this quality falls
     # short by a few percent.
     assert hypervolume(F, np.zeros(2), np.ones(2)) == pytest.approx(2 / 3, rel=0.05)
     # The same export code writes it and reads it back unchanged.
@@ -68,7 +69,7 @@ def test_zdt1_front_and_hypervolume_through_the_runner(tmp_path):
 
 
 def test_hypervolume_hand_values():
-    # CHECK-VALUES section 7 (by hand): {(0.5, 0.5)} -> 0.25; {(0.25, 0.75), (0.75, 0.25)} -> 0.3125, ref (1, 1).
+    # By hand (areas of the dominated boxes): {(0.5, 0.5)} -> 0.25; {(0.25, 0.75), (0.75, 0.25)} -> 0.3125, ref (1, 1).
     z, o = np.zeros(2), np.ones(2)
     assert hypervolume(np.array([[0.5, 0.5]]), z, o) == pytest.approx(0.25)
     assert hypervolume(np.array([[0.25, 0.75], [0.75, 0.25]]), z, o) == pytest.approx(0.3125)
@@ -181,3 +182,25 @@ def test_bad_search_tables_are_refused(tmp_path, capsys, extra_old, extra_new, m
     assert main(["optimise", str(path), "--out", str(tmp_path / "o")]) == 2
     err = capsys.readouterr().err
     assert message in err and "tiny.toml" in err
+
+
+def test_a_run_with_nothing_feasible_keeps_the_full_header_and_names_the_blocking_constraint(tmp_path, capsys):
+    # An area cap of 1 um^2 no design of the demo can meet: front.csv still documents every
+    # column (variables, metrics, margins), and run.json names the cap as what blocks the
+    # least-violating design, with a negative worst margin (the cap is missed by far).
+    study = tiny_study(tmp_path, population=6, generations=1)
+    study.write_text(study.read_text().replace("area_max_um2 = 3000", "area_max_um2 = 1"))
+    out = tmp_path / "out"
+    assert main(["optimise", str(study), "--out", str(out)]) == 0
+    front = pd.read_csv(out / "front.csv")
+    assert len(front) == 0
+    for col in ("id", "architecture", "overall_front", "mn_out_w_um", "ib_ctl_a", "power_w", "fp2_hz",
+                "margin_area_pct"):
+        assert col in front.columns, col
+    record = json.loads((out / "run.json").read_text())
+    for arch, info in record["architectures"].items():
+        assert info["front_size"] == 0, arch
+        assert info["blocked"]["blocking_constraint"] == "area", arch
+        assert info["blocked"]["closest_margin"] < -0.9, arch  # area far above 1 um^2: margin near -(A - 1)/1
+        assert any("area" in v for v in info["blocked"]["closest_violations"]), arch
+    capsys.readouterr()

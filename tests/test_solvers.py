@@ -40,6 +40,21 @@ def test_structured_solve_matches_lapack():
     np.testing.assert_allclose(x, lapack(entries, rhs, 7, 2000), rtol=1e-12, atol=1e-12)
 
 
+def test_structured_solve_carries_a_single_right_hand_side_row_into_the_others():
+    # A full 5x5 pattern with the right-hand side in one row only: elimination must carry
+    # that row's value into rows that had none (the fill of b, as in the adjoint solves,
+    # whose right-hand side is the gradient of Iq alone).
+    m, k = 300, 5
+    rng = np.random.default_rng(7)
+    entries = {(i, j): rng.uniform(0.5, 2.0, m) + (4.0 if i == j else 0.0) for i in range(k) for j in range(k)}
+    for row in range(k):
+        rhs = {row: rng.normal(size=m)}
+        x, ok = solve_structured(entries, rhs, k, m)
+        assert ok.all()
+        # Backward-stable solves of diagonally dominant systems: 1e-12.
+        np.testing.assert_allclose(x, lapack(entries, rhs, k, m), rtol=1e-12, atol=1e-12)
+
+
 def test_structured_solve_pivots_off_a_zero_diagonal():
     # [[0, a], [b, c]] x = [1, 0]: natural order would divide by zero; x = [-c/(a b), 1/a].
     m = 50

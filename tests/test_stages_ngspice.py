@@ -2,11 +2,12 @@
 
 Both sides run the same equations: models.devices.mos's square law is SPICE level 1 with LD = 0,
 and optimise.spice.netlist writes one level-1 card per device from the same technology, with no
-temperature scaling left to ngspice (DESIGN.md sec. 6 and 7). The netlists come from each
+temperature scaling left to ngspice. The netlists come from each
 architecture's TOPOLOGY, so the check covers the netlist writer as well as the solver.
 
 Technology: studies/tech/ah02-level1.toml, the constants of [AH02] Table 3.1-2
-(CHECK-VALUES.md sec. 4, S), at VDD = 5 V as for that 0.8 um process. The designs are
+(P. E. Allen, D. R. Holberg, CMOS Analog Circuit Design, 2nd ed., Oxford University
+Press, 2002), at VDD = 5 V as for that 0.8 um process. The designs are
 hand-sized to keep every device in its intended region at rest (checked below through the
 model's own lowest-supply requirement); they vary the current densities around each loop
 (unequal W/L of the diodes and the control device, unbalanced N and P loops), the lengths,
@@ -36,7 +37,7 @@ UM = 1e-6  # sizes below are in micrometres for readability only
 # Loads and limits only feed metrics other than Iq; any legal values do.
 TARGETS = Targets(i_load=100e-6, c_load=10e-12)
 
-# DESIGN.md sec. 6: Iq within 1 % of ngspice. The equations are the same on both sides, so
+# Iq within 1 % of ngspice (the project's hand-off bound). The equations are the same on both sides, so
 # the residual is the simulator's own (reltol 1e-7) and the junction leakage below; the
 # largest difference seen over these designs is about 1e-5 (the follower's output sits
 # tens of microvolts from VDD/2, see optimise.spice.netlist), a thousand times under the bound.
@@ -175,7 +176,7 @@ def test_rest_iq_matches_ngspice_at_corner(name, corner, temp_c):
 @pytest.mark.parametrize(("untied", "tied"), [("fl-high-vsb-wide-d2", "fl-high-vsb-wide-d2-tied"),
                                               ("fl-densities-unbalanced", "fl-densities-unbalanced-tied")])
 def test_body_effect_is_reproduced(untied, tied):
-    # DESIGN.md sec. 2.2 and 7: with unequal densities on a shared substrate the body effect
+    # With unequal densities on a shared substrate the body effect
     # moves Iq by several to tens of percent; both sides must see the same move.
     iq_u, sim_u, _ = both(untied)
     iq_t, sim_t, _ = both(tied)

@@ -96,7 +96,7 @@ def test_ah02_reproduces_example_3_1_1(polarity, vgs, vds, expected):
     # Allen and Holberg, CMOS Analog Circuit Design, 2nd ed., Example 3.1-1 with Table 3.1-2:
     # W/L = 5 um / 1 um, |VGS| = 2 V, |VDS| = 3 V, VBS = 0; the book quotes 520 uA and 243 uA,
     # recomputed as 55u*5*1.3^2*1.12 = 520.5 uA (NMOS) and 25u*5*1.3^2*1.15 = 242.9 uA (PMOS)
-    # (CHECK-VALUES section 4). 0.1 % covers the 4-digit rounding of the recomputed values.
+    # (by hand). 0.1 % covers the 4-digit rounding of the recomputed values.
     tech = load_tech(TECH_DIR / "ah02-level1.toml")
     m = at_conditions(tech.mos(polarity), polarity, tech.model, tech.tnom, tech.tnom)
     i = current(m, 5e-6, 1e-6, vg=vgs, vd=vds, vs=0.0, vb=0.0)

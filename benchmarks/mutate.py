@@ -1,0 +1,396 @@
+"""Mutation run: plant one small wrong change at a time and see whether the tests notice.
+
+Run by hand (not a test, not in CI), from the repository root::
+
+    python3 benchmarks/mutate.py                        # every target module, the default sample
+    python3 benchmarks/mutate.py --modules models/summary.py models/devices/ekv.py
+    python3 benchmarks/mutate.py --max-mutants 10 --jobs 2 --seed 3
+    python3 benchmarks/mutate.py --list                 # the planted changes only, nothing run
+    python3 benchmarks/mutate.py --named                # only the hand-written changes of NAMED
+
+The package, its tests and studies are copied to a temporary folder; each mutant is one
+module of that copy rewritten through `ast` with a single change, and the mapped subset of
+tests (`TESTS`) runs against the copy with ``pytest -x -q``. The working tree is never
+touched. A mutant is killed when the tests fail (or time out: four times the clean run
+plus 20 s); it survives when they pass. Printed: per module the mutants, killed, kill
+rate and time, then every survivor as ``file:line  change``.
+
+Changes planted (one per mutant):
+- arithmetic operator swaps: + <-> -, * <-> /, ** -> *;
+- numeric constants scaled by 0.95 or 1.05 (alternating by site), 0 and 1 left alone;
+- sign flips: a unary minus removed, += <-> -=;
+- min <-> max (``min``/``max``, ``np.minimum``/``np.maximum``, ``.min()``/``.max()``,
+  ``np.argmin``/``np.argmax``, ``np.fmin``/``np.fmax``);
+- comparison flips: < <-> >=, > <-> <=, == <-> !=; masks & <-> |.
+
+Left out, as changes no test can or should see: docstrings and text (f-strings, raise
+statements and their messages), input-range checks (`check_range` arguments and the
+records' ``__post_init__``), and numerical guards: constants below 1e-12 in magnitude
+(floors such as 1e-300 or 1e-30 that only keep a division finite) and the values of
+keyword arguments that are solver tolerances or iteration limits (``xtol``, ``tol``,
+``max_iter``, ``iterations``, ``step_max``).
+
+Sampling: when a module has more sites than --max-mutants, a seeded random sample of that
+many is taken (the same seed gives the same mutants).
+"""
+from __future__ import annotations
+
+import argparse
+import ast
+import concurrent.futures
+import os
+import random
+import shutil
+import signal
+import subprocess
+import sys
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+
+# Metric code of optimise/ beside all of models/.
+OPTIMISE_TARGETS = ["optimise/review/evaluation.py", "optimise/search/export.py"]
+
+# A fast subset per module: the direct checks of the metrics first, then the device, solver
+# and stage tests; the slower suites (CLI, every Iq case in ngspice) are left out for models/.
+MODEL_TESTS = ["tests/test_metrics.py", "tests/test_mos.py", "tests/test_mismatch.py", "tests/test_solvers.py",
+               "tests/test_stages.py", "tests/test_metrics_ngspice.py", "tests/test_mos_ngspice.py"]
+# Module (path prefix) -> tests run against its mutants.
+TESTS = {
+    "models/": MODEL_TESTS,
+    "optimise/review/evaluation.py": ["tests/test_metrics.py", "tests/test_cli.py", "tests/test_json_safe.py"],
+    "optimise/search/export.py": ["tests/test_metrics.py", "tests/test_search.py", "tests/test_compare_pick.py"],
+}
+COPY = ("models", "optimise", "tests", "studies", "pyproject.toml")
+SWAP_NAMES = {"min": "max", "max": "min", "minimum": "maximum", "maximum": "minimum", "argmin": "argmax",
+              "argmax": "argmin", "fmin": "fmax", "fmax": "fmin", "nanmin": "nanmax", "nanmax": "nanmin"}
+BINOPS = {ast.Add: ast.Sub, ast.Sub: ast.Add, ast.Mult: ast.Div, ast.Div: ast.Mult, ast.Pow: ast.Mult,
+          ast.BitAnd: ast.BitOr, ast.BitOr: ast.BitAnd}
+CMPOPS = {ast.Lt: ast.GtE, ast.GtE: ast.Lt, ast.Gt: ast.LtE, ast.LtE: ast.Gt, ast.Eq: ast.NotEq, ast.NotEq: ast.Eq}
+SYMBOL = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**", ast.BitAnd: "&", ast.BitOr: "|",
+          ast.Lt: "<", ast.GtE: ">=", ast.Gt: ">", ast.LtE: "<=", ast.Eq: "==", ast.NotEq: "!="}
+# Hand-written wrong changes (path, text, replacement): each once in its file. Small errors a
+# reviewer could miss, in the numbers the tool reports.
+NAMED = [
+    ("models/devices/conditions.py", "return 2.0 * m.n * m.kp", "return 0.95 * 2.0 * m.n * m.kp"),
+    ("models/devices/mismatch.py", "return sigma_pair_vt(a_vt, w, l) / np.sqrt(2.0)",
+     "return sigma_pair_vt(a_vt, w, l) / np.sqrt(1.9)"),
+    ("models/devices/mismatch.py", "return sigma_pair_beta(a_beta, w, l) / np.sqrt(2.0)",
+     "return sigma_pair_beta(a_beta, w, l) / np.sqrt(1.9)"),
+    ("models/circuit/nodal.py", "s_beta = -(d.p * i_d / (1.0 + d.dbeta)) * w", "s_beta = (d.p * i_d / (1.0 + d.dbeta)) * w"),
+    ("models/summary.py", "100.0 * (i_hi - i_lo) / ref", "100.0 * (i_lo - i_hi) / ref"),
+    ("models/summary.py", "/ ref / max(span, 1e-300)", "/ ref"),
+    ("models/evaluate.py", "fp2 = gm / (2.0 * np.pi * targets.c_load)", "fp2 = gm / (np.pi * targets.c_load)"),
+    ("models/evaluate.py", '"ab_ratio": np.minimum(ab_src, ab_snk)', '"ab_ratio": np.maximum(ab_src, ab_snk)'),
+    ("models/stages/fixed_bias.py", '("mn_out leaves saturation", 2.0 *', '("mn_out leaves saturation", 1.0 *'),
+    ("models/stages/fixed_bias.py", '("mp_out leaves saturation", 2.0 *', '("mp_out leaves saturation", 1.0 *'),
+    ("models/summary.py", '(pvt["iq_a"][:, j] + stage.bias_total(bias))', '(pvt["iq_a"][:, j])'),
+]
+GUARD_KEYWORDS = {"xtol", "tol", "rtol", "atol", "max_iter", "iterations", "step_max"}
+
+
+@dataclass(frozen=True)
+class Site:
+    """One planted change: the module, the site's position in the walk, line and wording."""
+
+    path: str
+    index: int
+    line: int
+    text: str
+
+
+def _skipped(tree: ast.AST) -> set[int]:
+    """ids of the nodes whose subtrees are never mutated (see the module notes)."""
+    skip: set[int] = set()
+
+    def mark(node):
+        for sub in ast.walk(node):
+            skip.add(id(sub))
+
+    for node in ast.walk(tree):
+        if isinstance(node, (ast.Raise, ast.JoinedStr, ast.Assert)):
+            mark(node)
+        elif isinstance(node, ast.Call):
+            name = node.func.attr if isinstance(node.func, ast.Attribute) else getattr(node.func, "id", "")
+            if name in ("check_range", "ValueError", "TypeError", "KeyError", "IndexError", "warn"):
+                mark(node)
+            for kw in node.keywords:
+                if kw.arg in GUARD_KEYWORDS:
+                    mark(kw.value)
+        elif isinstance(node, (ast.FunctionDef, ast.ClassDef, ast.Module)):
+            body = node.body
+            if body and isinstance(body[0], ast.Expr) and isinstance(getattr(body[0], "value", None), ast.Constant):
+                mark(body[0])
+            if isinstance(node, ast.FunctionDef):
+                if node.name == "__post_init__":
+                    mark(node)
+                for arg, default in zip(reversed(node.args.args + node.args.kwonlyargs),
+                                        reversed(node.args.defaults + node.args.kw_defaults)):
+                    if default is not None and arg.arg in GUARD_KEYWORDS:
+                        mark(default)
+                for a in node.args.args + node.args.kwonlyargs:
+                    if a.annotation is not None:
+                        mark(a.annotation)
+                if node.returns is not None:
+                    mark(node.returns)
+        elif isinstance(node, ast.AnnAssign):
+            mark(node.annotation)
+    return skip
+
+
+class Planter(ast.NodeTransformer):
+    """Walks a module in a fixed order; numbers its mutation sites and, when `target` is
+    set, applies the change at that site only."""
+
+    def __init__(self, skip: set[int], target: int | None = None):
+        self.skip, self.target, self.count, self.sites = skip, target, 0, []
+
+    def _site(self, node, text) -> bool:
+        k = self.count
+        self.count += 1
+        if self.target is None:
+            self.sites.append((k, getattr(node, "lineno", 0), text))
+        return k == self.target
+
+    def visit_BinOp(self, node):
+        self.generic_visit(node)
+        new = BINOPS.get(type(node.op))
+        if new and id(node) not in self.skip and self._site(node, f"{SYMBOL[type(node.op)]} -> {SYMBOL[new]}"):
+            node.op = new()
+        return node
+
+    def visit_AugAssign(self, node):
+        self.generic_visit(node)
+        if isinstance(node.op, (ast.Add, ast.Sub)) and id(node) not in self.skip:
+            new = ast.Sub if isinstance(node.op, ast.Add) else ast.Add
+            if self._site(node, f"{SYMBOL[type(node.op)]}= -> {SYMBOL[new]}="):
+                node.op = new()
+        return node
+
+    def visit_UnaryOp(self, node):
+        self.generic_visit(node)
+        if isinstance(node.op, ast.USub) and id(node) not in self.skip:
+            if isinstance(node.operand, ast.Constant) and node.operand.value in (0, 0.0):
+                return node
+            if self._site(node, "unary - removed"):
+                return node.operand
+        return node
+
+    def visit_Compare(self, node):
+        self.generic_visit(node)
+        if id(node) in self.skip:
+            return node
+        for j, op in enumerate(node.ops):
+            new = CMPOPS.get(type(op))
+            if new and self._site(node, f"{SYMBOL[type(op)]} -> {SYMBOL[new]}"):
+                node.ops[j] = new()
+        return node
+
+    def visit_Constant(self, node):
+        v = node.value
+        if id(node) in self.skip or isinstance(v, bool) or not isinstance(v, (int, float)):
+            return node
+        if v in (0, 1) or abs(v) < 1e-12:
+            return node
+        factor = 0.95 if self.count % 2 == 0 else 1.05
+        if self._site(node, f"{v!r} -> {v!r} x {factor}"):
+            return ast.copy_location(ast.Constant(v * factor), node)
+        return node
+
+    def _swap(self, node, attr_holder, attr):
+        name = getattr(attr_holder, attr)
+        if name in SWAP_NAMES and self._site(node, f"{name} -> {SWAP_NAMES[name]}"):
+            setattr(attr_holder, attr, SWAP_NAMES[name])
+
+    def visit_Call(self, node):
+        self.generic_visit(node)
+        if id(node) in self.skip:
+            return node
+        if isinstance(node.func, ast.Name):
+            self._swap(node, node.func, "id")
+        elif isinstance(node.func, ast.Attribute):
+            self._swap(node, node.func, "attr")
+        return node
+
+
+def sites(path: Path) -> list[Site]:
+    tree = ast.parse(path.read_text())
+    planter = Planter(_skipped(tree))
+    planter.visit(tree)
+    rel = str(path.relative_to(REPO))
+    return [Site(rel, k, line, text) for k, line, text in planter.sites]
+
+
+def mutated_source(path: Path, index: int) -> str:
+    tree = ast.parse(path.read_text())
+    planter = Planter(_skipped(tree), index)
+    planter.visit(tree)
+    ast.fix_missing_locations(tree)
+    return ast.unparse(tree)
+
+
+def tests_for(rel: str) -> list[str]:
+    best = max((k for k in TESTS if rel.startswith(k)), key=len)
+    return [t for t in TESTS[best] if (REPO / t).exists()]
+
+
+def make_copy() -> Path:
+    root = Path(tempfile.mkdtemp(prefix="stagefront-mutate-"))
+    for name in COPY:
+        src = REPO / name
+        if src.is_dir():
+            shutil.copytree(src, root / name, ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
+        elif src.exists():
+            shutil.copy2(src, root / name)
+    return root
+
+
+def run_tests(root: Path, tests: list[str], timeout: float) -> tuple[str, float]:
+    """'pass', 'fail' or 'timeout', and the wall time."""
+    env = dict(os.environ, PYTHONPATH=str(root), PYTHONDONTWRITEBYTECODE="1")
+    t0 = time.perf_counter()
+    try:
+        proc = subprocess.run([sys.executable, "-m", "pytest", "-x", "-q", "-p", "no:cacheprovider", *tests],
+                              cwd=root, env=env, capture_output=True, timeout=timeout)
+    except subprocess.TimeoutExpired:
+        return "timeout", time.perf_counter() - t0
+    return ("pass" if proc.returncode == 0 else "fail"), time.perf_counter() - t0
+
+
+def named_sites() -> list[Site]:
+    out = []
+    for k, (path, old, new) in enumerate(NAMED):
+        text = (REPO / path).read_text()
+        if text.count(old) != 1:
+            raise SystemExit(f"NAMED change {k}: {old!r} occurs {text.count(old)} times in {path}, not once")
+        out.append(Site(path, -1 - k, text[:text.index(old)].count("\n") + 1, f"{old} -> {new}"))
+    return out
+
+
+def rerun_sites(log: Path) -> list[Site]:
+    """The sites of the survivors listed in an earlier run's output (lines
+    ``  path:line  change: survived``); every site with that path, line and change."""
+    wanted = set()
+    for line in log.read_text().splitlines():
+        if line.startswith("  ") and line.rstrip().endswith(")") and ": survived (" in line:
+            where, text = line.strip().split("  ", 1)
+            path, lineno = where.rsplit(":", 1)
+            wanted.add((path, int(lineno), text.rsplit(": survived (", 1)[0]))
+    out = []
+    for path in sorted({w[0] for w in wanted}):
+        out += [s for s in sites(REPO / path) if (s.path, s.line, s.text) in wanted]
+    return out
+
+
+def source_of(site: Site) -> str:
+    if site.index < 0:
+        path, old, new = NAMED[-1 - site.index]
+        return (REPO / path).read_text().replace(old, new)
+    return mutated_source(REPO / site.path, site.index)
+
+
+def run_mutant(root: Path, site: Site, timeout: float) -> tuple[Site, str, float]:
+    target = root / site.path
+    original = target.read_text()
+    try:
+        target.write_text(source_of(site))
+        outcome, wall = run_tests(root, tests_for(site.path), timeout)
+    finally:
+        target.write_text(original)
+    return site, outcome, wall
+
+
+def targets(modules: list[str] | None) -> list[Path]:
+    if modules:
+        return [REPO / m for m in modules]
+    found = sorted(p for p in (REPO / "models").rglob("*.py") if p.name != "__init__.py")
+    return found + [REPO / t for t in OPTIMISE_TARGETS]
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--modules", nargs="*", help="module files relative to the repository (default: all targets)")
+    ap.add_argument("--max-mutants", type=int, default=16, help="mutants per module (seeded sample); 0: all")
+    ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--jobs", type=int, default=1, help="mutants run at once (each in its own copy)")
+    ap.add_argument("--list", action="store_true", help="print the chosen mutants and stop")
+    ap.add_argument("--named", action="store_true", help="run the hand-written changes of NAMED instead")
+    ap.add_argument("--rerun", metavar="LOG", help="run again only the survivors printed in an earlier run's output")
+    args = ap.parse_args()
+    signal.signal(signal.SIGTERM, lambda *_: sys.exit(1))  # so a killed run still removes its copies
+
+    rng = random.Random(args.seed)
+    chosen: list[Site] = named_sites() if args.named else []
+    if args.rerun:
+        chosen = rerun_sites(Path(args.rerun))
+    for path in [] if args.named or args.rerun else targets(args.modules):
+        all_sites = sites(path)
+        pick = all_sites if not args.max_mutants or len(all_sites) <= args.max_mutants else \
+            sorted(rng.sample(all_sites, args.max_mutants), key=lambda s: s.index)
+        chosen += pick
+        print(f"{path.relative_to(REPO)}: {len(all_sites)} sites, {len(pick)} chosen", flush=True)
+    if args.list:
+        for s in chosen:
+            print(f"  {s.path}:{s.line}  {s.text}")
+        return 0
+
+    roots = [make_copy() for _ in range(max(args.jobs, 1))]
+    try:
+        clean: dict[tuple, float] = {}
+        for group in sorted({tuple(tests_for(s.path)) for s in chosen}):
+            outcome, wall = run_tests(roots[0], list(group), timeout=1800)
+            if outcome != "pass":
+                print(f"the unmutated copy fails {' '.join(group)}: fix the suite first", file=sys.stderr)
+                return 2
+            clean[group] = wall
+            print(f"clean run {wall:6.1f} s: {' '.join(group)}", flush=True)
+        t_start = time.perf_counter()
+        results: list[tuple[Site, str, float]] = []
+        free = list(roots)
+        with concurrent.futures.ThreadPoolExecutor(max_workers=len(roots)) as pool:
+            pending = {}
+            queue = list(chosen)
+            while queue or pending:
+                while queue and free:
+                    site = queue.pop(0)
+                    root = free.pop()
+                    timeout = 4.0 * clean[tuple(tests_for(site.path))] + 20.0
+                    pending[pool.submit(run_mutant, root, site, timeout)] = root
+                done, _ = concurrent.futures.wait(pending, return_when=concurrent.futures.FIRST_COMPLETED)
+                for fut in done:
+                    free.append(pending.pop(fut))
+                    site, outcome, wall = fut.result()
+                    results.append((site, outcome, wall))
+                    mark = "survived" if outcome == "pass" else "killed" + (" (timeout)" if outcome == "timeout" else "")
+                    print(f"  {site.path}:{site.line}  {site.text}: {mark} ({wall:.1f} s)", flush=True)
+        total = time.perf_counter() - t_start
+    finally:
+        for root in roots:
+            shutil.rmtree(root, ignore_errors=True)
+
+    print("\nmodule                                   mutants  killed  kill rate   time [s]")
+    by_module: dict[str, list] = {}
+    for r in results:
+        by_module.setdefault(r[0].path, []).append(r)
+    for scope in ("models/", "optimise/"):
+        n_all = k_all = 0
+        for mod in sorted(m for m in by_module if m.startswith(scope)):
+            rs = by_module[mod]
+            killed = sum(o != "pass" for _, o, _ in rs)
+            n_all, k_all = n_all + len(rs), k_all + killed
+            print(f"{mod:40s} {len(rs):7d} {killed:7d} {100.0 * killed / len(rs):8.1f} % {sum(w for *_, w in rs):9.0f}")
+        if n_all:
+            print(f"{'all of ' + scope:40s} {n_all:7d} {k_all:7d} {100.0 * k_all / n_all:8.1f} %")
+    print(f"wall time {total:.0f} s with {len(roots)} job(s)")
+    survivors = [s for s, o, _ in results if o == "pass"]
+    print(f"\nsurvivors ({len(survivors)}):")
+    for s in sorted(survivors, key=lambda s: (s.path, s.line)):
+        print(f"  {s.path}:{s.line}  {s.text}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
