@@ -14,7 +14,7 @@ around the demo designs (log-uniform factors), so the solver sees varied operati
 
 --table runs the 1.8 V demo study instead: its table technology (the BSIM3v3 card
 tabulated) beside the card's single-length EKV calibration, on the same designs in the same
-run (lengths kept inside the tables, 0.18-1.8 um; widths from 1 um).
+run (lengths 0.36-1.8 um, inside the tables and from the EKV fit's length; widths from 1 um).
 --mirrors makes every bias source a mirror (sized: W = 4 um, L = 2 um; sigma: 1 % and
 10 Mohm), to measure what the voltage-dependent sources cost the rest point.
 
@@ -71,7 +71,8 @@ def main() -> None:
         study = load_study(ROOT / "studies" / "sensor-buffer-180.toml")
         techs = [("ekv", load_tech(ROOT / "studies" / "tech" / "demo180-bsim3-calibrated.toml")), ("table", study.tech)]
         cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 1.8, 1.62, 1.98)
-        limits = {"lmin": 0.18e-6, "lmax": 1.8e-6, "wmin": 1e-6}
+        # From 0.36 um, the shortest length of the single-length EKV calibration.
+        limits = {"lmin": 0.36e-6, "lmax": 1.8e-6, "wmin": 1e-6}
     else:
         study = load_study(ROOT / "studies" / "sensor-buffer.toml")
         techs = [("", study.tech)]
@@ -91,7 +92,7 @@ def main() -> None:
         off = dataclasses.replace(on, amplifier=None, phase_margin_min=0.0, slew_min=0.0, gate_time_max=np.inf)
         cases = [("amplifier off", off), ("amplifier on", on)]
     for arch, (label, tech) in ((a, t) for a in archs for t in techs):
-        base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", tech)
+        base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", techs[-1][1])
         pop = population(base, args.designs, np.random.default_rng(0), **limits)
         for case, targets in cases:
             evaluate(population(base, 64, np.random.default_rng(1), **limits), tech, cond, targets)  # warm-up
