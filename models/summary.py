@@ -163,8 +163,8 @@ def check(pvt, summary, converged, cond, corner, temp, vdd, targets, req_names, 
         "phase_margin": lambda i, j: f"phase margin = {pvt['phase_margin_deg'][i, j]:.3g} deg < "
                                      f"{targets.phase_margin_min:.3g} deg {at(j)} "
                                      f"(unity gain at {eng(pvt['ugf_hz'][i, j], 'Hz')})",
-        "slew": lambda i, j: f"slew rate = {pvt['slew_v_per_s'][i, j] * 1e-6:.3g} V/us < "
-                             f"{targets.slew_min * 1e-6:.3g} V/us {at(j)}",
+        "slew": lambda i, j: f"slew rate = {pvt['slew_v_per_s'][i, j] * 1e-6:.4g} V/us < "
+                             f"{targets.slew_min * 1e-6:.4g} V/us {at(j)}",
         "gate_time": lambda i, j: f"time to move the gates to the drive limit = {eng(pvt['gate_time_s'][i, j], 's')}"
                                   f" > {eng(targets.gate_time_max, 's')} {at(j)}",
     }

@@ -177,3 +177,31 @@ def test_every_violation_states_its_value_at_a_pvt_point(demo):
     for text in res.violations[0]:
         assert " at " in text and re.search(r" C, [0-9.]+ V", text), text
         assert not re.search(r"[0-9]e-[0-9]+ [AVW]", text), text  # engineering notation, not raw SI
+
+
+def _number_before(text: str, unit: str) -> float:
+    m = re.search(r"= (-?[0-9.]+(?:e[+-]?[0-9]+)?) " + re.escape(unit), text)
+    assert m, (unit, text)
+    return float(m.group(1))
+
+
+def test_amplifier_messages_state_the_compared_value(demo):
+    # The demo describes its amplifier: limits set beyond the design so each check fails.
+    res = run(demo, phase_margin_min=89.0, slew_min=1e9, gate_time_max=1e-12)
+    pm = res.pvt["phase_margin_deg"][0]
+    j = int(np.argmin(pm))
+    text = one(res, "phase margin = ")
+    assert _number_before(text, "deg") == pytest.approx(pm[j], rel=SHOWN)
+    assert f"< 89 deg {where(res, j)}" in text and "unity gain at " in text
+    slew = res.pvt["slew_v_per_s"][0]
+    j = int(np.argmin(slew))
+    text = one(res, "slew rate = ")
+    assert _number_before(text, "V/us") * 1e6 == pytest.approx(slew[j], rel=SHOWN)
+    assert f"< 1000 V/us {where(res, j)}" in text
+    gate = res.pvt["gate_time_s"][0]
+    j = int(np.argmax(gate))
+    text = one(res, "time to move the gates to the drive limit = ")
+    m = re.search(r"= ([0-9.]+) ([afpnum]?)s > 1 ps", text)
+    assert m, text
+    assert float(m.group(1)) * PREFIX[m.group(2)] == pytest.approx(gate[j], rel=SHOWN)
+    assert where(res, j) in text
