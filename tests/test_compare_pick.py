@@ -341,3 +341,22 @@ def test_compare_out_folder_not_overwritten_without_consent(capsys, run, compare
     assert (out_dir / "compare.csv").read_text() != before  # one run now: no pairs left
     code, _, err = cli(capsys, "compare", run, "--out", run)
     assert code == 2 and "one of the run folders" in err
+
+
+def test_compact_pick_shows_the_amplifier_columns_of_front_csv(capsys, run):
+    # The demo describes its amplifier: the compact table carries the worst-case unity gain,
+    # phase margin, slew rate and gate time, each the front.csv value in the header's unit.
+    front = front_of(run)
+    assert {"ugf_hz", "phase_margin_deg", "slew_v_per_s", "gate_time_s"} <= set(front.columns)
+    code, out, _ = cli(capsys, "pick", run, "--count", "3")
+    assert code == 0
+    lines = out.splitlines()
+    for header, factor, name in (("UGF [MHz]", 1e-6, "ugf_hz"), ("PM [deg]", 1.0, "phase_margin_deg"),
+                                 ("slew [V/us]", 1e-6, "slew_v_per_s"), ("gate time [us]", 1e6, "gate_time_s")):
+        at = next(n for n, ln in enumerate(lines) if header in ln)
+        k = [c.strip() for c in lines[at].strip("|").split("|")].index(header)
+        for row in lines[at + 2:at + 5]:  # below the header and its rule: the 3 designs picked
+            cells = [c.strip() for c in row.strip("|").split("|")]
+            rid = next(c for c in cells if c.startswith("fl-")).rstrip("°")
+            want = float(front.loc[rid, name]) * factor
+            assert float(cells[k]) == pytest.approx(want, rel=5e-4), (header, rid)  # 4 digits shown

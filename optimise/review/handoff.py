@@ -24,6 +24,9 @@ WIDTH = 100
 SHOW = {"power_w": ("power typ", "uW", 1e6), "swing_v": ("swing", "V", 1.0), "area_um2": ("area", "um²", 1.0),
         "iq_sigma_pct": ("Iq sigma", "%", 1.0), "supply_sens_pct_per_v": ("supply sens", "%/V", 1.0)}
 PREFIXES = {"fl": "floating-loop", "fb": "fixed-bias", "fo": "follower"}
+# Amplifier column -> (header with unit, factor from SI), worst case over PVT as in front.csv.
+AMPLIFIER_SHOWN = (("ugf_hz", "UGF [MHz]", 1e-6), ("phase_margin_deg", "PM [deg]", 1.0),
+                   ("slew_v_per_s", "slew [V/us]", 1e-6), ("gate_time_s", "gate time [us]", 1e6))
 
 
 def _g(v, digits=4) -> str:
@@ -74,6 +77,10 @@ def columns(rows: pd.DataFrame, objectives: dict) -> tuple[list[tuple[str, str, 
         add("perf", "power max [uW]", [_g(float(r["power_max_w"]) * 1e6) for r in recs])
     if "iout_peak_a" in rows:
         add("perf", "peak out [mA]", [_g(float(r["iout_peak_a"]) * 1e3, 3) for r in recs])
+    # The stage inside its amplifier (front.csv has these columns when the study describes one).
+    for name, header, k in AMPLIFIER_SHOWN:
+        if name in rows:
+            add("perf", header, [_g(float(r[name]) * k, 4) for r in recs])
     add("perf", "knee dist", [f"{float(r['knee_distance']):.3f}" for r in recs])
     margins = [c for c in rows.columns if c.startswith("margin_")]
     for c in margins:
@@ -90,6 +97,8 @@ def columns(rows: pd.DataFrame, objectives: dict) -> tuple[list[tuple[str, str, 
             own = " own well" if r.get(f"{first}_bulk") == "source" else ""
             cells.append(f"{_g(w, 6)}/{_g(l, 6)}{own}" if _g(w) else "")
         add("size", f"{head} W/L [um]", cells)
+    if "cc_f" in rows and rows["cc_f"].notna().any():  # a searched compensation capacitor
+        add("size", "Cc [pF]", [_g(float(r["cc_f"]) * 1e12, 4) for r in recs])
     for c in _bias_columns(rows):
         if c.endswith("_ohm"):
             add("size", f"{c[:-4]} [kohm]", [_g(float(r[c]) * 1e-3, 5) for r in recs])
