@@ -64,8 +64,11 @@ def _roots_single(g, c):
 
 # Cancellation the closed form for two nodes accepts: a difference of products at least
 # this fraction of the products' sizes loses at most six of the sixteen digits, so the
-# roots stay within about 1e-10 of LAPACK's; worse elements go to LAPACK.
+# roots stay within about 1e-10 of LAPACK's; worse elements go to LAPACK. So do real
+# roots further apart than this ratio: LAPACK's smaller root carries an error of about
+# 1e-16 of the larger one, and the answers stay LAPACK's where its own error would show.
 CANCEL = 1e-6
+SPREAD = 1e-6
 
 
 def _roots_pair(g, c):
@@ -76,8 +79,8 @@ def _roots_pair(g, c):
     d = (b00 - b11)^2 / 4 + b01 b10: the larger real root from the sum that does not
     cancel, the other from det B over it, so both keep their relative accuracy when they
     lie decades apart. An element is left to LAPACK where det G, d or det B cancel (below
-    `CANCEL` of their terms), where a complex pair's real part h cancels, or where G is
-    singular or anything is not finite."""
+    `CANCEL` of their terms), where a complex pair's real part h cancels, where the real
+    roots lie more than `SPREAD` apart, or where G is singular or anything is not finite."""
     with np.errstate(all="ignore"):
         g00, g01, g10, g11 = g[:, 0, 0], g[:, 0, 1], g[:, 1, 0], g[:, 1, 1]
         det = g00 * g11 - g01 * g10
@@ -99,6 +102,7 @@ def _roots_pair(g, c):
         trust &= np.abs(disc) >= CANCEL * (quarter + np.abs(b01 * b10))
         trust &= np.abs(detb) >= CANCEL * (np.abs(b00 * b11) + np.abs(b01 * b10))
         trust &= real | (np.abs(half) >= CANCEL * (np.abs(b00) + np.abs(b11)))
+        trust &= ~real | (np.abs(other) >= SPREAD * np.abs(big))
         trust &= np.isfinite(big) & np.isfinite(other) & np.isfinite(root) & (big != 0)
         mu = np.empty((g.shape[0], 2), dtype=complex)
         mu[:, 0] = np.where(real, big, half + 1j * root)
@@ -182,17 +186,22 @@ def loop_gain(t0, mu_p, mu_z, f):
     return logt, np.degrees(az - ap), sz - sp
 
 
-def _magnitude(t0, mu_p, mu_z, lf):
+def _magnitude(t0, parts_p, parts_z, lf):
     """log10 |T| and its slope d log10|T| / d log10 f at log10 f = lf (m,): the parts of
-    `loop_gain` the crossing search needs, without the phase."""
-    w = TWO_PI * 10.0 ** lf
+    `loop_gain` the crossing search needs, without the phase, in real arithmetic.
 
-    def parts(mu):
-        x = 1.0 - 1j * w[:, None] * mu
-        return np.log10(np.abs(x)).sum(axis=-1), np.real(-1j * w[:, None] * mu / x).sum(axis=-1)
+    parts_p, parts_z: (real, imaginary) parts of the poles' and zeros' mu, each (m, k).
+    Each factor x = 1 - j w mu = a - j b with a = 1 + w Im mu, b = w Re mu contributes
+    log10 |x| = log10(a^2 + b^2) / 2 and the slope Re(-j w mu / x) = 1 - a / |x|^2."""
+    w = (TWO_PI * 10.0 ** lf)[:, None]
 
-    mz, sz = parts(mu_z)
-    mp, sp = parts(mu_p)
+    def parts(re, im):
+        a = 1.0 + w * im
+        q = a * a + (w * re) ** 2
+        return 0.5 * np.log10(q).sum(axis=-1), (1.0 - a / q).sum(axis=-1)
+
+    mz, sz = parts(*parts_z)
+    mp, sp = parts(*parts_p)
     with np.errstate(divide="ignore"):
         return np.log10(t0) + mz - mp, sz - sp
 
@@ -213,10 +222,12 @@ def unity_gain(t0, mu_p, mu_z):
     x = np.zeros(m)
     if has.any():
         ix = np.flatnonzero(has)
-        tp, pp, zz = t0[ix], mu_p[ix], mu_z[ix]
+        tp = t0[ix]
+        pp = (np.real(mu_p[ix]), np.imag(mu_p[ix]))
+        zz = (np.real(mu_z[ix]), np.imag(mu_z[ix]))
 
         def fun(lf, idx):
-            return _magnitude(tp[idx], pp[idx], zz[idx], lf)
+            return _magnitude(tp[idx], tuple(v[idx] for v in pp), tuple(v[idx] for v in zz), lf)
 
         lo = np.full(ix.size, np.log10(F_LOW))
         hi = np.full(ix.size, np.log10(F_HIGH))
