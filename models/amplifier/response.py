@@ -197,8 +197,12 @@ def _magnitude(t0, parts_p, parts_z, lf):
 
     def parts(re, im):
         a = 1.0 + w * im
-        q = a * a + (w * re) ** 2
-        return 0.5 * np.log10(q).sum(axis=-1), (1.0 - a / q).sum(axis=-1)
+        with np.errstate(over="ignore"):
+            q = a * a + (w * re) ** 2
+        lg = 0.5 * np.log10(q)
+        if not np.isfinite(q).all():  # |x| beyond 1e154 (a near-zero root): the overflow-free form there
+            lg = np.where(np.isfinite(q), lg, np.log10(np.hypot(a, w * re)))
+        return lg.sum(axis=-1), (1.0 - a / q).sum(axis=-1)
 
     mz, sz = parts(*parts_z)
     mp, sp = parts(*parts_p)
