@@ -14,8 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-import models.amplifier.inside as inside
-from models.amplifier import response
+from models.amplifier import inside, response
 from models.devices.constants import ZERO_CELSIUS
 from models.devices.tech import Corner
 from models.evaluate import Conditions, Design, evaluate
