@@ -44,11 +44,91 @@ def _solve(g, c):
     return out, regular
 
 
-def _roots(g, c):
+def _roots_lapack(g, c):
     """mu = eigenvalues of -G^-1 C (m, k), complex, and the regular flags (m,); a singular
-    element gives mu = 0 (no finite root)."""
+    element gives mu = 0 (no finite root). Batched LAPACK, any k."""
     a, regular = _solve(g, c)
     return np.linalg.eigvals(-a), regular
+
+
+def _roots_single(g, c):
+    """`_roots_lapack` for k = 1 without LAPACK's cost per matrix: mu = -c / g (the same
+    division LAPACK's solve makes, so the same bits); a zero or non-finite g gives mu = 0,
+    not regular."""
+    finite = np.isfinite(g[:, 0, 0]) & np.isfinite(c[:, 0, 0])
+    regular = finite & (g[:, 0, 0] != 0)
+    with np.errstate(all="ignore"):
+        mu = np.where(regular, -(c[:, 0, 0] / np.where(regular, g[:, 0, 0], 1.0)), 0.0)
+    return mu[:, None], regular
+
+
+# Cancellation the closed form for two nodes accepts: a difference of products at least
+# this fraction of the products' sizes loses at most six of the sixteen digits, so the
+# roots stay within about 1e-10 of LAPACK's; worse elements go to LAPACK. So do real
+# roots further apart than this ratio: LAPACK's smaller root carries an error of about
+# 1e-16 of the larger one, and the answers stay LAPACK's where its own error would show.
+CANCEL = 1e-6
+SPREAD = 1e-6
+
+
+def _roots_pair(g, c):
+    """`_roots_lapack` for k = 2 in closed form, without LAPACK's cost per matrix, and the
+    flags of the elements it could not trust (left to LAPACK, mu = 0 there).
+
+    B = -G^-1 C by Cramer's rule, mu = h +- sqrt(d), h half the trace of B and
+    d = (b00 - b11)^2 / 4 + b01 b10: the larger real root from the sum that does not
+    cancel, the other from det B over it, so both keep their relative accuracy when they
+    lie decades apart. An element is left to LAPACK where det G, d or det B cancel (below
+    `CANCEL` of their terms), where a complex pair's real part h cancels, where the real
+    roots lie more than `SPREAD` apart, or where G is singular or anything is not finite."""
+    with np.errstate(all="ignore"):
+        g00, g01, g10, g11 = g[:, 0, 0], g[:, 0, 1], g[:, 1, 0], g[:, 1, 1]
+        det = g00 * g11 - g01 * g10
+        inv = 1.0 / det
+        c00, c01, c10, c11 = c[:, 0, 0], c[:, 0, 1], c[:, 1, 0], c[:, 1, 1]
+        b00 = -(g11 * c00 - g01 * c10) * inv
+        b01 = -(g11 * c01 - g01 * c11) * inv
+        b10 = -(g00 * c10 - g10 * c00) * inv
+        b11 = -(g00 * c11 - g10 * c01) * inv
+        half = 0.5 * (b00 + b11)
+        quarter = 0.25 * (b00 - b11) ** 2
+        disc = quarter + b01 * b10
+        detb = b00 * b11 - b01 * b10
+        real = disc >= 0
+        root = np.sqrt(np.abs(disc))
+        big = half + np.where(half >= 0, root, -root)
+        other = detb / big
+        trust = (np.abs(det) >= CANCEL * (np.abs(g00 * g11) + np.abs(g01 * g10)))
+        trust &= np.abs(disc) >= CANCEL * (quarter + np.abs(b01 * b10))
+        trust &= np.abs(detb) >= CANCEL * (np.abs(b00 * b11) + np.abs(b01 * b10))
+        trust &= real | (np.abs(half) >= CANCEL * (np.abs(b00) + np.abs(b11)))
+        trust &= ~real | (np.abs(other) >= SPREAD * np.abs(big))
+        trust &= np.isfinite(big) & np.isfinite(other) & np.isfinite(root) & (big != 0)
+        mu = np.empty((g.shape[0], 2), dtype=complex)
+        mu[:, 0] = np.where(real, big, half + 1j * root)
+        mu[:, 1] = np.where(real, other, half - 1j * root)
+    mu[~trust] = 0.0
+    return mu, trust
+
+
+def _roots(g, c):
+    """mu = eigenvalues of -G^-1 C (m, k), complex, and the regular flags (m,); a singular
+    element gives mu = 0 (no finite root). One and two nodes in closed form (two: LAPACK
+    for the elements the closed form cannot trust), more by LAPACK."""
+    k = g.shape[1]
+    if k == 1:
+        return _roots_single(g, c)
+    if k == 2:
+        mu, trust = _roots_pair(g, c)
+        if not trust.all():
+            rest = ~trust
+            mu_r, reg_r = _roots_lapack(g[rest], c[rest])
+            mu[rest] = mu_r
+            regular = trust.copy()
+            regular[rest] = reg_r
+            return mu, regular
+        return mu, trust
+    return _roots_lapack(g, c)
 
 
 def poles_zeros(g, c, drive: int, out: int):
@@ -58,7 +138,12 @@ def poles_zeros(g, c, drive: int, out: int):
     pair, and the bias nodes), and the flags (m,) of the elements whose G is regular (the
     others' figures are not to be used)."""
     k = g.shape[1]
-    mu_p, ok = _roots(g, c)
+    # One LU of G for the poles and H(0): G^-1 [C | e_drive].
+    e = np.zeros((g.shape[0], k, 1))
+    e[:, drive] = 1.0
+    a, ok = _solve(g, np.concatenate([c, e], axis=2))
+    mu_p = np.linalg.eigvals(-a[:, :, :k])
+    h0 = np.where(ok, a[:, out, k], 0.0)
     inner = [r for r in range(k) if r not in (drive, out)]
     mu_i = _roots(g[:, inner][:, :, inner], c[:, inner][:, :, inner])[0] if inner else np.zeros((g.shape[0], 0))
     rows = [r for r in range(k) if r != drive]
@@ -68,9 +153,6 @@ def poles_zeros(g, c, drive: int, out: int):
     # A singular cofactor is a zero at s = 0, H(0) = 0 (a stage cut off): no loop gain, so
     # its other zeros do not matter; they are dropped (mu = 0).
     mu_z, _ = _roots(gr, cr)
-    e = np.zeros((g.shape[0], k, 1))
-    e[:, drive] = 1.0
-    h0 = np.where(ok, _solve(g, e)[0][:, out, 0], 0.0)
     return mu_p, mu_z, h0, mu_i, ok
 
 
@@ -104,6 +186,30 @@ def loop_gain(t0, mu_p, mu_z, f):
     return logt, np.degrees(az - ap), sz - sp
 
 
+def _magnitude(t0, parts_p, parts_z, lf):
+    """log10 |T| and its slope d log10|T| / d log10 f at log10 f = lf (m,): the parts of
+    `loop_gain` the crossing search needs, without the phase, in real arithmetic.
+
+    parts_p, parts_z: (real, imaginary) parts of the poles' and zeros' mu, each (m, k).
+    Each factor x = 1 - j w mu = a - j b with a = 1 + w Im mu, b = w Re mu contributes
+    log10 |x| = log10(a^2 + b^2) / 2 and the slope Re(-j w mu / x) = 1 - a / |x|^2."""
+    w = (TWO_PI * 10.0 ** lf)[:, None]
+
+    def parts(re, im):
+        a = 1.0 + w * im
+        with np.errstate(over="ignore"):
+            q = a * a + (w * re) ** 2
+        lg = 0.5 * np.log10(q)
+        if not np.isfinite(q).all():  # |x| beyond 1e154 (a near-zero root): the overflow-free form there
+            lg = np.where(np.isfinite(q), lg, np.log10(np.hypot(a, w * re)))
+        return lg.sum(axis=-1), (1.0 - a / q).sum(axis=-1)
+
+    mz, sz = parts(*parts_z)
+    mp, sp = parts(*parts_p)
+    with np.errstate(divide="ignore"):
+        return np.log10(t0) + mz - mp, sz - sp
+
+
 def unity_gain(t0, mu_p, mu_z):
     """Unity-gain frequency [Hz] and phase margin [deg] of each element.
 
@@ -120,11 +226,12 @@ def unity_gain(t0, mu_p, mu_z):
     x = np.zeros(m)
     if has.any():
         ix = np.flatnonzero(has)
-        tp, pp, zz = t0[ix], mu_p[ix], mu_z[ix]
+        tp = t0[ix]
+        pp = (np.real(mu_p[ix]), np.imag(mu_p[ix]))
+        zz = (np.real(mu_z[ix]), np.imag(mu_z[ix]))
 
         def fun(lf, idx):
-            lt, _, sl = loop_gain(tp[idx], pp[idx], zz[idx], 10.0 ** lf)
-            return lt, sl
+            return _magnitude(tp[idx], tuple(v[idx] for v in pp), tuple(v[idx] for v in zz), lf)
 
         lo = np.full(ix.size, np.log10(F_LOW))
         hi = np.full(ix.size, np.log10(F_HIGH))
@@ -135,7 +242,13 @@ def unity_gain(t0, mu_p, mu_z):
                                 fhi=np.where(ok, fhi, -1.0))
         x[ix] = np.where(ok, xs, np.where(fhi >= 0, np.log10(F_HIGH), np.log10(F_LOW)))
     f_u = np.where(has, 10.0 ** x, 0.0)
-    _, phase, _ = loop_gain(t0, mu_p, mu_z, np.where(has, f_u, 1.0))
+    w = TWO_PI * np.where(has, f_u, 1.0)
+
+    def angle(mu):  # the phase part of `loop_gain` alone
+        x = 1.0 - 1j * w[:, None] * mu
+        return np.arctan2(x.imag, x.real).sum(axis=-1)
+
+    phase = np.degrees(angle(mu_z) - angle(mu_p))
     pm = np.where(has, 180.0 + phase, 180.0)
     return f_u, pm
 
