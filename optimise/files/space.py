@@ -32,7 +32,8 @@ from models.stages import get_stage
 from .errors import InputError
 from .techfile import check_table_size
 from .study import Study
-from .tables import check_keys, closest, micrometres, number, show, sub_table
+from .tables import (MAX_GENERATIONS, MAX_POPULATION, check_evaluations, check_keys, closest, count, micrometres,
+                     number, show, sub_table)
 
 # Objective name -> (unit, default sense). swing_v is maximised; supply sensitivity is
 # minimised in magnitude.
@@ -185,11 +186,10 @@ def load_search(study: Study) -> SearchSettings:
     search_t = sub_table(where, "", "search", data.get("search", {}))
     check_keys(where, "search", search_t, SEARCH_KEYS)
     ints = {}
-    for key, default, lo in (("population", 40, 4), ("generations", 30, 1), ("checkpoint_every", 5, 1)):
-        val = search_t.get(key, default)
-        if not isinstance(val, int) or isinstance(val, bool) or val < lo:
-            raise InputError(where, f"[search] {key} = {show(val)} is not allowed", f"an integer >= {lo}")
-        ints[key] = val
+    for key, default, lo, hi in (("population", 40, 4, MAX_POPULATION), ("generations", 30, 1, MAX_GENERATIONS),
+                                 ("checkpoint_every", 5, 1, MAX_GENERATIONS)):
+        ints[key] = count(where, f"[search] {key}", search_t.get(key, default), lo, hi)
+    check_evaluations(where, "[search]", ints["population"], ints["generations"])
     ref_t = sub_table(where, "search", "reference", search_t.get("reference", {}))
     check_keys(where, "search.reference", ref_t, tuple(objectives))
     reference = {k: number(where, "search.reference", k, v, "") for k, v in ref_t.items()}
