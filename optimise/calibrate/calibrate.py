@@ -116,9 +116,19 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
     vsbs = (0.0, 0.25 * vdd, 0.5 * vdd)
     log(f"sweeping {models.describe()} at {typical.value}, {tnom_c:g} degC: lengths "
         f"{', '.join(format_eng(x, 'm') for x in lengths)}, VSB {', '.join(f'{v:g}' for v in vsbs)} V, up to {vdd:g} V")
-    transfer = sweep(models, typical, tnom_c, lengths, vdd, "transfer", vsbs)
-    output = sweep(models, typical, tnom_c, lengths, vdd, "output")
-    temps = {t: sweep(models, typical, t, lengths, vdd, "transfer", (0.0,)) for t in TEMPS_C}
+    others = [c for c in models.corners(None) if c != typical] if models.sections else []
+    total, done = 3 + len(TEMPS_C) + len(others), []
+
+    def step(line):  # the progress line of the k-th of the command's ngspice runs
+        if line.startswith("    ..."):  # still running: as it is
+            log(line)
+            return
+        done.append(line)
+        log(f"  [{len(done)}/{total}] {line.strip()}")
+
+    transfer = sweep(models, typical, tnom_c, lengths, vdd, "transfer", vsbs, step)
+    output = sweep(models, typical, tnom_c, lengths, vdd, "output", log=step)
+    temps = {t: sweep(models, typical, t, lengths, vdd, "transfer", (0.0,), step) for t in TEMPS_C}
     fits = {}
     for pol in (1, -1):
         va = early_voltages(output[pol], vdd)
@@ -143,11 +153,10 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
         fit.mu_exp = float(np.polyfit(np.log(ts / T_NOMINAL), np.log(kps), 1)[0])
         fits[pol] = fit
     corners = {}
-    others = [c for c in models.corners(None) if c != typical] if models.sections else []
     if others:
         log(f"corner sections: {', '.join(c.value for c in others)}")
     for corner in others:
-        curves = sweep(models, corner, tnom_c, lengths, vdd, "transfer", (0.0,))
+        curves = sweep(models, corner, tnom_c, lengths, vdd, "transfer", (0.0,), step)
         shift = {}
         for pol, tag in ((1, "n"), (-1, "p")):
             f = fits[pol]
@@ -156,8 +165,8 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
             shift[f"dvt_{tag}"] = float(p["vt0"] - f.vt0)
             shift[f"kp_{tag}"] = float(p["kp"] / f.kp)
         corners[corner] = CornerShift(**shift)
-    log(f"gate capacitances: ngspice AC at {typical.value}, {tnom_c:g} degC, L = {format_eng(lengths[-1], 'm')}")
-    caps = gate_capacitances(models, typical, tnom_c, lengths[-1], vdd)
+    step(f"  gate capacitances: ngspice AC at {typical.value}, {tnom_c:g} degC, L = {format_eng(lengths[-1], 'm')}")
+    caps = gate_capacitances(models, typical, tnom_c, lengths[-1], vdd, log=step)
     for pol in (1, -1):
         if pol not in caps:
             log(f"{'NMOS' if pol == 1 else 'PMOS'}: the card models no gate capacitance; cox and cov are not measured")
@@ -265,7 +274,13 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
 
 
 def calibrate_command(args, stream=None, err_stream=None) -> int:
-    """`stagefront calibrate` from parsed arguments."""
+    """`stagefront calibrate` from parsed arguments. SIGTERM stops it as Ctrl-C does: the
+    ngspice processes are killed and their temporary folders removed."""
+    with process.terminate_as_interrupt():
+        return _calibrate_command(args, stream, err_stream)
+
+
+def _calibrate_command(args, stream=None, err_stream=None) -> int:
     import tomllib
 
     stream = stream or sys.stdout
@@ -316,8 +331,7 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
         options = table_options(args, lmin, vdd)
     tb.require_ngspice()
     kind = ModelKind(args.kind)
-    with process.terminate_as_interrupt():
-        cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
+    cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
     report(cal, stream)
     command = ("stagefront calibrate --models " + str(args.models) + f" --nmos {args.nmos} --pmos {args.pmos}"
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"
