@@ -406,6 +406,9 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     keep_freed_memory()
     try:
+        for key in ("out", "models", "base", "design", "scheduler"):  # "" would mean the current folder
+            if isinstance(getattr(args, key, None), str) and not getattr(args, key).strip():
+                raise InputError(f"--{key}", "is empty", "a path" if key != "scheduler" else "an address")
         return args.func(args)
     except InputError as err:
         print(f"stagefront: error: {err}", file=sys.stderr)
