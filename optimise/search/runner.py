@@ -24,7 +24,7 @@ from ..files.errors import InputError
 from ..files.folders import clear, component, is_empty, locked, mark
 from ..files.inputs import load_json
 from ..files.tables import MAX_GENERATIONS, MAX_POPULATION, check_evaluations, count, show
-from ..files.space import load_search
+from ..files.space import check_generation, load_search
 from ..files.study import load_study
 from .export import (
     closest_design_report,
@@ -126,6 +126,7 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
             count(f"--{key}", "", value, low, high)
     if not resume:
         check_evaluations("--population/--generations", "the run", meta["population"], meta["generations"])
+        check_generation("--population", "population", meta["population"], study)
     meta = _prepare(out, resume, overwrite, meta, (study_path, study.tech_path))
     settings = replace(settings, population=meta["population"], generations=meta["generations"])
     progress = Progress()
