@@ -59,7 +59,8 @@ TARGET_FLOOR = {"iq_min": (0.0, False), "iq_max": (0.0, True), "iq_sigmas": (0.0
 SUPPLY_CEILING_V = 60.0
 # The highest value of targets bounded above by their meaning: a mismatch window wider than
 # 10 sigma is no window (6 sigma is the trade's widest, "common practice, no source"), and
-# ab_ratio (idle-device current / Iq) cannot exceed 1, so ab_min > 1 could never be met.
+# ab_ratio (idle-device current / Iq) is 1 when the idle device keeps all of Iq (class A):
+# ab_min above 1 asks for more than a class-AB stage gives.
 TARGET_CEILING = {"iq_sigmas": 10.0, "ab_min": 1.0}
 # The largest bias value a design or a bound may hold, per unit: an integrated bias current
 # above 1 A or a bias resistor above 1 Tohm is a typing or unit error ("common practice, no
