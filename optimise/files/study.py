@@ -346,7 +346,8 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech, ties: dict |
             value = _micrometres(where, table, key, dev[key])
             if not value >= minimum * (1 - 1e-9):
                 raise InputError(where, f"[{table}] {key} = {value * 1e6:g} um is below the technology minimum",
-                                 f">= {minimum * 1e6:g} um ({tech.name})")
+                                 f">= {minimum * 1e6:g} um ({tech.name})",
+                                 'plain numbers are micrometres: 60 or "60u" for 60 um' if value > 0 else "")
             check_table_size(where, table, key, value, tech, polarity)
             store[role] = np.array([value])
         bulk = dev.get("bulk", "rail")
@@ -381,6 +382,8 @@ def load_design(path, tech: Tech, ties_of=None) -> Design:
     data = read_toml(path)
     check_keys(where, "", data, ("architecture", "devices", "bias", "name", "compensation"),
                ("architecture", "devices", "bias"))
+    if not isinstance(data.get("name", ""), str):
+        raise InputError(where, f"name = {show(data['name'])} is not allowed", "a string")
     ties = None
     if ties_of is not None and isinstance(data["architecture"], str) and data["architecture"] in STAGES:
         ties = ties_of(data["architecture"])
