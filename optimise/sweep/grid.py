@@ -43,6 +43,7 @@ reported as that cell's failure when the sweep runs it.
 from __future__ import annotations
 
 import copy
+import hashlib
 import itertools
 import json
 import math
@@ -70,6 +71,9 @@ from ..files.tables import (MAX_GENERATIONS, MAX_POPULATION, check_evaluations, 
 
 GRID_KEYS = ("base", "name", "description", "axes", "search")
 SEARCH_OVERRIDES = {"population": 4, "generations": 1, "checkpoint_every": 1}  # key -> smallest allowed
+# The most cells of one grid: each is a whole search, so a thousand is already days of work on
+# a workstation and a folder of a thousand run folders ("common practice, no source").
+MAX_CELLS = 1000
 SEARCH_CEILINGS = {"population": MAX_POPULATION, "generations": MAX_GENERATIONS, "checkpoint_every": MAX_GENERATIONS}
 STUDY_AXES = (("architecture", "technology", "seed")
               + tuple(f"supply.{k}" for k in SUPPLY_KEYS) + tuple(f"conditions.{k}" for k in CONDITION_KEYS)
@@ -205,6 +209,11 @@ def load_grid(path) -> Grid:
     axes = _flatten(sub_table(where, "", "axes", data["axes"]))
     if not axes:
         raise InputError(where, "[axes] is empty", "one or more axes, e.g. architecture = [\"floating-loop\"]")
+    cells = math.prod(len(v) if isinstance(v, list) else 1 for v in axes.values())
+    if cells > MAX_CELLS:
+        raise InputError(where, f"[axes] make {' x '.join(str(len(v)) for v in axes.values() if isinstance(v, list))}"
+                                f" = {cells} cells, too many", f"at most {MAX_CELLS} cells",
+                         "each cell is a whole search: fewer values per axis")
     for key, values in axes.items():
         _check_axis(where, key, values, study, path.parent)
     largest = {k: max(axes.get(f"search.{k}", [search.get(k, getattr(settings, k))]))
@@ -263,6 +272,8 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
             text = label(Path(v).stem) if k == "technology" else label(v)
             parts.append(words[k] + text)
         cname = "_".join(parts)
+        if len(cname) > 200:  # a folder name (and a study name) of sane length: cut, with a digest of the whole
+            cname = f"{cname[:183]}-{hashlib.sha256(cname.encode()).hexdigest()[:16]}"
         if cname in used:  # two values that only differ in characters a folder name cannot hold
             cname = f"{cname}_{len(cells) + 1}"
         used.add(cname)
