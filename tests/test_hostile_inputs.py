@@ -208,6 +208,14 @@ CASES += [
     ("checkpoint linked to /dev/zero", lambda r, t: ["optimise", str(tiny_study(t, population=12, generations=4)),
                                                      "--out", str(checkpoint_as(r, t, None)), "--resume"],
      ["floating-loop.npz", "device"]),
+    ("calibrate with thousands of lengths", lambda r, t: [
+        "calibrate", "--models", str(CARD), "--out", str(t / "c.toml"), "--lmin", "0.18u", "--lengths",
+        ",".join(f"{0.18 + i * 1e-3:.3f}u" for i in range(5000))], ["--lengths", "1 to 16"]),
+    ("calibrate at a nan temperature", lambda r, t: ["calibrate", "--models", str(CARD), "--out", str(t / "c.toml"),
+                                                     "--lmin", "0.18u", "--tables", "--temps", "nan"],
+     ["--temps", "finite"]),
+    ("calibrate with a negative --lmin", lambda r, t: ["calibrate", "--models", str(CARD), "--out", str(t / "c.toml"),
+                                                       "--lmin=-0.18u"], ["--lmin", "10 nm to 100 um"]),
     ("checkpoint record with a huge population", lambda r, t: [
         "optimise", str(tiny_study(t, population=12, generations=4)), "--out",
         str(meta_with(r, t, population=10 ** 12)), "--resume"], ["meta.json", "'population'", "<= 10000"]),

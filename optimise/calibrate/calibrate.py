@@ -19,6 +19,7 @@ corner sections, the corners come from --base or are defaults marked as such in 
 """
 from __future__ import annotations
 
+import math
 import re
 import sys
 from dataclasses import dataclass, field
@@ -50,6 +51,7 @@ from .devicefit import (
 )
 
 LENGTH_FACTORS = (1, 2, 4, 8)  # default lengths, multiples of lmin
+MAX_LENGTHS = 16  # --lengths: each is a device per curve in every sweep deck ("common practice, no source")
 TEMPS_C = (-40.0, 125.0)  # degC, the two more temperatures
 # Defaults for what DC sweeps cannot measure; written into the file as "default, not calibrated".
 # A technology name as calibrate writes it (between double quotes in the TOML file).
@@ -319,7 +321,14 @@ def _calibrate_command(args, stream=None, err_stream=None) -> int:
                                                      "TECH.toml to take its l_min")
     if not 0.2 <= vdd <= 20:
         raise InputError("--vdd", f"{vdd:g} V is outside [0.2, 20] V")
+    if not 1e-8 <= lmin <= 1e-4:  # also refuses nan
+        raise InputError("--lmin", f"{format_eng(lmin, 'm')} is not allowed", "10 nm to 100 um")
     lengths = tuple(sorted(lengths)) if lengths else tuple(lmin * f for f in LENGTH_FACTORS)
+    if len(lengths) > MAX_LENGTHS or len(set(lengths)) != len(lengths) \
+            or not all(math.isfinite(x) and x <= 1e-4 for x in lengths):
+        raise InputError("--lengths", f"{len(lengths)} lengths, {len(set(lengths))} distinct, longest "
+                                      f"{format_eng(lengths[-1], 'm')}",
+                         f"1 to {MAX_LENGTHS} distinct lengths from --lmin to 100 um")
     if lengths[0] < lmin * (1 - 1e-9):
         raise InputError("--lengths", f"{format_eng(lengths[0], 'm')} is below --lmin {format_eng(lmin, 'm')}")
     with_tables = getattr(args, "tables", False)
