@@ -16,14 +16,12 @@ from . import CAUTION, __version__
 from .files.errors import InputError
 from .files.space import study_ties
 from .files.study import load_design, load_study
+from .files.tables import MAX_MONTECARLO, count
 from .files.units import format_eng
 from .review.evaluation import amplifier_dict, json_safe, result_to_dict
 from .review.montecarlo import confirm_sigma
 from .search.runtime import keep_freed_memory
 
-# The most Monte Carlo samples one command draws: far beyond what a sigma needs, and below
-# what exhausts memory on a laptop ("common practice, no source").
-MAX_MONTECARLO = 1_000_000
 
 SUMMARY_UNITS = {
     "iq_a": "A", "iq_min_a": "A", "iq_max_a": "A", "power_w": "W", "power_max_w": "W", "headroom_high_v": "V",
@@ -130,6 +128,8 @@ def _no_sigma(mc: dict) -> str:
 
 
 def cmd_evaluate(args) -> int:
+    if args.seed < 0:  # numpy's generator takes any non-negative integer
+        raise InputError("--seed", f"{args.seed} is not allowed", "a non-negative integer")
     study = load_study(args.study)
     design = load_design(args.design, study.tech, lambda arch: study_ties(study, arch))
     res = evaluate(design, study.tech, study.conditions, study.targets)
@@ -139,9 +139,7 @@ def cmd_evaluate(args) -> int:
     out["amplifier"] = amplifier_dict(study.targets, design)
     mc = None
     if args.montecarlo:
-        if not 2 <= args.montecarlo <= MAX_MONTECARLO:
-            raise InputError("--montecarlo", f"{args.montecarlo} samples is not allowed", f"2 to {MAX_MONTECARLO}",
-                             "10000 samples give the sigma to about 1 %")
+        count("--montecarlo", "", args.montecarlo, 2, MAX_MONTECARLO, "10000 samples give the sigma to about 1 %")
         mc = confirm_sigma(design, study, args.montecarlo, args.seed, result=res)
         out["montecarlo"] = mc
     if args.json:
@@ -408,6 +406,9 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     keep_freed_memory()
     try:
+        for key in ("out", "models", "base", "design", "scheduler"):  # "" would mean the current folder
+            if isinstance(getattr(args, key, None), str) and not getattr(args, key).strip():
+                raise InputError(f"--{key}", "is empty", "a path" if key != "scheduler" else "an address")
         return args.func(args)
     except InputError as err:
         print(f"stagefront: error: {err}", file=sys.stderr)

@@ -82,9 +82,9 @@ def study_with(tmp: Path, old: str, new: str) -> Path:
     return path
 
 
-def design(tmp: Path) -> Path:
+def design(tmp: Path, text: str = DESIGN) -> Path:
     path = tmp / "design.toml"
-    path.write_text(DESIGN)
+    path.write_text(text)
     return path
 
 
@@ -152,6 +152,104 @@ CASES = [
     ("verify.csv with a nan error", lambda r, t: ["report", str(with_verify(r, t, "nan"))],
      ["verify.csv", "line 2", "error"]),
 ]
+
+
+# Counts and ceilings: refused before any work, naming the option or key and the ceiling.
+CASES += [
+    ("negative seed in evaluate", lambda r, t: ["evaluate", str(tiny_study(t)), "--design", str(design(t)),
+                                                "--montecarlo", "10", "--seed", "-3"],
+     ["--seed", "-3", "non-negative"]),
+    ("huge --population", lambda r, t: ["optimise", str(tiny_study(t)), "--population", str(10 ** 14), "--out",
+                                        str(t / "o")], ["--population", "4 to 10000"]),
+    ("huge --generations", lambda r, t: ["optimise", str(tiny_study(t)), "--generations", str(10 ** 13), "--out",
+                                         str(t / "o")], ["--generations", "1 to 100000"]),
+    ("population x generations", lambda r, t: ["optimise", str(tiny_study(t)), "--population", "10000",
+                                               "--generations", "100000", "--out", str(t / "o")],
+     ["evaluations", "1e+08"]),
+    ("huge [search] population", lambda r, t: ["optimise", str(study_with(t, r"population = \d+",
+                                                                          "population = 100000000000000"))],
+     ["[search] population", "4 to 10000"]),
+    ("population x PVT points", lambda r, t: ["optimise", str(study_with(
+        t, r"temperatures_c = \[27\]", "temperatures_c = [" + ", ".join(str(x) for x in range(60)) + "]")),
+        "--population", "10000", "--generations", "1", "--out", str(t / "o")], ["design-points per generation"]),
+    ("huge --montecarlo in sweep", lambda r, t: ["sweep", str(t / "any.toml"), "--montecarlo", str(10 ** 12)],
+     ["--montecarlo", "2 to 1000000"]),
+    ("huge --workers", lambda r, t: ["sweep", str(t / "any.toml"), "--workers", "100000"], ["--workers", "1 to 64"]),
+    ("huge grid [search] population", lambda r, t: ["sweep", str(grid_with(t, "[search]\npopulation = 99999999\n")),
+                                                    "--out", str(t / "sw")], ["[search] population", "10000"]),
+    ("grid of a million cells", lambda r, t: ["sweep", str(grid_with(t, "", ", ".join(
+        f'"{300 + i}u"' for i in range(1000)), ", ".join(f"{i}" for i in range(1000)))), "--out", str(t / "sw")],
+     ["1000000 cells", "at most 1000"]),
+    ("empty --rows", lambda r, t: ["verify", str(r), "--rows", ",,"], ["--rows", "names no row"]),
+    ("--nmos without --models", lambda r, t: ["netlist", str(r), "--row", "fl-001", "--nmos", "nfet"],
+     ["--nmos/--pmos", "without --models"]),
+    ("empty --out", lambda r, t: ["optimise", str(tiny_study(t)), "--out", ""], ["--out", "is empty"]),
+    ("study name of the wrong type", lambda r, t: ["evaluate", str(study_with(t, r'name = "[^"]*"', "name = 5")),
+                                                   "--design", str(design(t))], ["name = 5", "string"]),
+    ("repeated temperature", lambda r, t: ["evaluate", str(study_with(t, r"temperatures_c = \[27\]",
+                                                                      "temperatures_c = [27, 27]")),
+                                           "--design", str(design(t))], ["temperatures_c repeats 27"]),
+    ("too many PVT points", lambda r, t: ["evaluate", str(study_with(
+        t, r"temperatures_c = \[27\]", "temperatures_c = [" + ", ".join(str(x / 10) for x in range(2000)) + "]")),
+        "--design", str(design(t))], ["PVT points", "at most 1000"]),
+    ("huge iq_sigmas", lambda r, t: ["evaluate", str(study_with(t, r"iq_sigmas = \d+", "iq_sigmas = 1e300")),
+                                     "--design", str(design(t))], ["iq_sigmas", "0 to 10"]),
+    ("ab_min above 1", lambda r, t: ["evaluate", str(study_with(t, r"ab_min = [0-9.]+", "ab_min = 5")),
+                                     "--design", str(design(t))], ["ab_min", "0 to 1"]),
+    ("huge bias bound", lambda r, t: ["optimise", str(study_with(t, r'ib = \["0.3u", "10u"\]',
+                                                                 'ib = ["0.3u", 1e300]')), "--out", str(t / "o")],
+     ["upper bound", "<= 1 A"]),
+    ("huge bias in a design", lambda r, t: ["evaluate", str(tiny_study(t)), "--design",
+                                            str(design(t, DESIGN.replace('ib = "4u"', "ib = 1e300")))],
+     ["[bias] ib", "too large", "<= 1 A"]),
+    ("empty checkpoint", lambda r, t: ["optimise", str(tiny_study(t, population=12, generations=4)), "--out",
+                                       str(checkpoint_as(r, t, b"")), "--resume"],
+     ["floating-loop.npz", "not a readable stagefront checkpoint"]),
+    ("checkpoint linked to /dev/zero", lambda r, t: ["optimise", str(tiny_study(t, population=12, generations=4)),
+                                                     "--out", str(checkpoint_as(r, t, None)), "--resume"],
+     ["floating-loop.npz", "device"]),
+    ("calibrate with thousands of lengths", lambda r, t: [
+        "calibrate", "--models", str(CARD), "--out", str(t / "c.toml"), "--lmin", "0.18u", "--lengths",
+        ",".join(f"{0.18 + i * 1e-3:.3f}u" for i in range(5000))], ["--lengths", "1 to 16"]),
+    ("calibrate at a nan temperature", lambda r, t: ["calibrate", "--models", str(CARD), "--out", str(t / "c.toml"),
+                                                     "--lmin", "0.18u", "--tables", "--temps", "nan"],
+     ["--temps", "finite"]),
+    ("calibrate with a negative --lmin", lambda r, t: ["calibrate", "--models", str(CARD), "--out", str(t / "c.toml"),
+                                                       "--lmin=-0.18u"], ["--lmin", "10 nm to 100 um"]),
+    ("checkpoint record with a huge population", lambda r, t: [
+        "optimise", str(tiny_study(t, population=12, generations=4)), "--out",
+        str(meta_with(r, t, population=10 ** 12)), "--resume"], ["meta.json", "'population'", "<= 10000"]),
+]
+
+
+def grid_with(tmp: Path, search: str, currents: str = '"300u"', seeds: str = "1") -> Path:
+    path = tmp / "grid.toml"
+    path.write_text(f'base = "{tiny_study(tmp)}"\n[axes]\narchitecture = ["floating-loop"]\n'
+                    f'"load.current" = [{currents}]\nseed = [{seeds}]\n{search}')
+    return path
+
+
+def checkpoint_as(run: Path, tmp: Path, data: bytes | None) -> Path:
+    """A copy of the run folder whose first checkpoint holds `data` (None: a link to /dev/zero)."""
+    copy = tmp / "ckpt"
+    shutil.copytree(run, copy)
+    path = copy / "checkpoint" / "floating-loop.npz"
+    path.unlink()
+    if data is None:
+        path.symlink_to("/dev/zero")
+    else:
+        path.write_bytes(data)
+    return copy
+
+
+def meta_with(run: Path, tmp: Path, **entries) -> Path:
+    import json
+
+    copy = tmp / "meta"
+    shutil.copytree(run, copy)
+    meta = copy / "checkpoint" / "meta.json"
+    meta.write_text(json.dumps({**json.loads(meta.read_text()), **entries}))
+    return copy
 
 
 def swapped(tmp: Path) -> Path:
@@ -276,3 +374,24 @@ def test_a_checkpoint_record_with_wrong_types_is_refused_on_resume(run, tmp_path
     assert main(["optimise", str(study), "--out", str(copy), "--resume"]) == 2
     err = capsys.readouterr().err
     assert "meta.json" in err and "'population'" in err and "Traceback" not in err
+
+
+def test_a_byte_order_mark_at_the_start_of_a_study_is_dropped(tmp_path, capsys):
+    # Some editors start UTF-8 files with U+FEFF; TOML does not allow it, so it would be
+    # refused as "Invalid statement" at line 1. The text after it is the same study.
+    plain = tiny_study(tmp_path)
+    marked = tmp_path / "marked.toml"
+    marked.write_text("\ufeff" + plain.read_text(), encoding="utf-8")
+    assert main(["evaluate", str(plain), "--design", str(design(tmp_path)), "--json"]) == 0
+    first = capsys.readouterr().out
+    assert main(["evaluate", str(marked), "--design", str(design(tmp_path)), "--json"]) == 0
+    assert capsys.readouterr().out == first
+
+
+def test_ceilings_allow_what_real_studies_use():
+    # The ceilings refuse only absurd counts: the demo budgets and the fixture's pass.
+    from optimise.files.tables import MAX_EVALUATIONS, MAX_GENERATIONS, MAX_MONTECARLO, MAX_POPULATION
+
+    assert 200 * 500 <= MAX_EVALUATIONS and 500 <= MAX_GENERATIONS and 200 <= MAX_POPULATION
+    assert MAX_POPULATION * MAX_GENERATIONS > MAX_EVALUATIONS  # the product check is not redundant
+    assert 10_000 <= MAX_MONTECARLO  # "10000 samples give the sigma to about 1 %"

@@ -94,3 +94,59 @@ def test_interrupted_verify_removes_its_ngspice_folders(run_folder, tmp_path, si
     assert "interrupted" in err and "Traceback" not in err, err
     assert _ours(tmp_path) == []
     assert not (run_folder / ".stagefront-lock").exists()  # the lock went with it
+
+
+def test_calibrate_time_limits_are_scaled_to_the_deck():
+    from optimise.calibrate import devicefit, tables
+
+    # A sweep deck's limit is the start-up allowance plus its devices x points.
+    one, two = (process.time_limit(n * 181, devicefit.SWEEP_S_PER_POINT) for n in (16, 48))
+    assert one == pytest.approx(process.START_S + 16 * 181 * devicefit.SWEEP_S_PER_POINT)
+    assert one < two < 60  # seconds, not the fixed 300 s of old
+    axes = tables.grid_axes(1.8)
+    few, many = (tables.deck_limit(tables.default_lengths(0.18e-6, 1.8e-6, n), axes) for n in (3, 12))
+    assert process.START_S < few < many < 300
+
+
+def _reader(stream, lines):
+    import threading
+
+    def read():
+        for line in stream:
+            lines.append(line)
+    thread = threading.Thread(target=read, daemon=True)
+    thread.start()
+    return thread
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["ctrl-c", "sigterm"])
+@pytest.mark.parametrize("phase, seen", [("sweeps", "[1/"), ("tables", "degC started")])
+def test_interrupted_calibrate_removes_its_ngspice_folders(tmp_path, sig, phase, seen):
+    # The sweeps run one at a time in the main thread; the tables two at once in threads,
+    # whose ngspice processes the interrupt must reach too.
+    env = dict(os.environ, TMPDIR=str(tmp_path), PYTHONPATH=str(ROOT))
+    out = tmp_path / "t.toml"
+    child = subprocess.Popen([sys.executable, "-c", CHILD, "calibrate", "--models",
+                              str(ROOT / "studies" / "models" / "demo180-bsim3-invented.lib"), "--lmin", "0.18u",
+                              "--out", str(out), "--tables", "--table-lengths", "0.18u,0.36u", "--temps", "27"],
+                             env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    lines = []
+    reader = _reader(child.stderr, lines)
+    deadline = time.monotonic() + 120
+    while not (any(seen in ln for ln in lines) and _ours(tmp_path)) and child.poll() is None \
+            and time.monotonic() < deadline:
+        time.sleep(0.01)
+    assert child.poll() is None, f"calibrate ended before its {phase} were seen: {''.join(lines)}"
+    child.send_signal(sig)
+    before = len(lines)
+    child.wait(timeout=60)
+    reader.join(timeout=10)
+    err = "".join(lines)
+    assert child.returncode == 130, err
+    assert "interrupted" in err and "Traceback" not in err, err
+    assert _ours(tmp_path) == []
+    assert not out.exists() and not out.with_suffix(".npz").exists()
+    # Stopped, not run to the end: no ngspice run started after the signal (the line a
+    # run prints as it starts; at most one may have been on its way).
+    assert sum("started" in ln or "sweep," in ln for ln in lines[before:]) <= 1, err

@@ -19,6 +19,7 @@ corner sections, the corners come from --base or are defaults marked as such in 
 """
 from __future__ import annotations
 
+import math
 import re
 import sys
 from dataclasses import dataclass, field
@@ -50,6 +51,7 @@ from .devicefit import (
 )
 
 LENGTH_FACTORS = (1, 2, 4, 8)  # default lengths, multiples of lmin
+MAX_LENGTHS = 16  # --lengths: each is a device per curve in every sweep deck ("common practice, no source")
 TEMPS_C = (-40.0, 125.0)  # degC, the two more temperatures
 # Defaults for what DC sweeps cannot measure; written into the file as "default, not calibrated".
 # A technology name as calibrate writes it (between double quotes in the TOML file).
@@ -116,9 +118,19 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
     vsbs = (0.0, 0.25 * vdd, 0.5 * vdd)
     log(f"sweeping {models.describe()} at {typical.value}, {tnom_c:g} degC: lengths "
         f"{', '.join(format_eng(x, 'm') for x in lengths)}, VSB {', '.join(f'{v:g}' for v in vsbs)} V, up to {vdd:g} V")
-    transfer = sweep(models, typical, tnom_c, lengths, vdd, "transfer", vsbs)
-    output = sweep(models, typical, tnom_c, lengths, vdd, "output")
-    temps = {t: sweep(models, typical, t, lengths, vdd, "transfer", (0.0,)) for t in TEMPS_C}
+    others = [c for c in models.corners(None) if c != typical] if models.sections else []
+    total, done = 3 + len(TEMPS_C) + len(others), []
+
+    def step(line):  # the progress line of the k-th of the command's ngspice runs
+        if line.startswith("    ..."):  # still running: as it is
+            log(line)
+            return
+        done.append(line)
+        log(f"  [{len(done)}/{total}] {line.strip()}")
+
+    transfer = sweep(models, typical, tnom_c, lengths, vdd, "transfer", vsbs, step)
+    output = sweep(models, typical, tnom_c, lengths, vdd, "output", log=step)
+    temps = {t: sweep(models, typical, t, lengths, vdd, "transfer", (0.0,), step) for t in TEMPS_C}
     fits = {}
     for pol in (1, -1):
         va = early_voltages(output[pol], vdd)
@@ -143,11 +155,10 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
         fit.mu_exp = float(np.polyfit(np.log(ts / T_NOMINAL), np.log(kps), 1)[0])
         fits[pol] = fit
     corners = {}
-    others = [c for c in models.corners(None) if c != typical] if models.sections else []
     if others:
         log(f"corner sections: {', '.join(c.value for c in others)}")
     for corner in others:
-        curves = sweep(models, corner, tnom_c, lengths, vdd, "transfer", (0.0,))
+        curves = sweep(models, corner, tnom_c, lengths, vdd, "transfer", (0.0,), step)
         shift = {}
         for pol, tag in ((1, "n"), (-1, "p")):
             f = fits[pol]
@@ -156,8 +167,8 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
             shift[f"dvt_{tag}"] = float(p["vt0"] - f.vt0)
             shift[f"kp_{tag}"] = float(p["kp"] / f.kp)
         corners[corner] = CornerShift(**shift)
-    log(f"gate capacitances: ngspice AC at {typical.value}, {tnom_c:g} degC, L = {format_eng(lengths[-1], 'm')}")
-    caps = gate_capacitances(models, typical, tnom_c, lengths[-1], vdd)
+    step(f"  gate capacitances: ngspice AC at {typical.value}, {tnom_c:g} degC, L = {format_eng(lengths[-1], 'm')}")
+    caps = gate_capacitances(models, typical, tnom_c, lengths[-1], vdd, log=step)
     for pol in (1, -1):
         if pol not in caps:
             log(f"{'NMOS' if pol == 1 else 'PMOS'}: the card models no gate capacitance; cox and cov are not measured")
@@ -265,7 +276,13 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
 
 
 def calibrate_command(args, stream=None, err_stream=None) -> int:
-    """`stagefront calibrate` from parsed arguments."""
+    """`stagefront calibrate` from parsed arguments. SIGTERM stops it as Ctrl-C does: the
+    ngspice processes are killed and their temporary folders removed."""
+    with process.terminate_as_interrupt():
+        return _calibrate_command(args, stream, err_stream)
+
+
+def _calibrate_command(args, stream=None, err_stream=None) -> int:
     import tomllib
 
     stream = stream or sys.stdout
@@ -304,7 +321,14 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
                                                      "TECH.toml to take its l_min")
     if not 0.2 <= vdd <= 20:
         raise InputError("--vdd", f"{vdd:g} V is outside [0.2, 20] V")
+    if not 1e-8 <= lmin <= 1e-4:  # also refuses nan
+        raise InputError("--lmin", f"{format_eng(lmin, 'm')} is not allowed", "10 nm to 100 um")
     lengths = tuple(sorted(lengths)) if lengths else tuple(lmin * f for f in LENGTH_FACTORS)
+    if len(lengths) > MAX_LENGTHS or len(set(lengths)) != len(lengths) \
+            or not all(math.isfinite(x) and x <= 1e-4 for x in lengths):
+        raise InputError("--lengths", f"{len(lengths)} lengths, {len(set(lengths))} distinct, longest "
+                                      f"{format_eng(lengths[-1], 'm')}",
+                         f"1 to {MAX_LENGTHS} distinct lengths from --lmin to 100 um")
     if lengths[0] < lmin * (1 - 1e-9):
         raise InputError("--lengths", f"{format_eng(lengths[0], 'm')} is below --lmin {format_eng(lmin, 'm')}")
     with_tables = getattr(args, "tables", False)
@@ -316,8 +340,7 @@ def calibrate_command(args, stream=None, err_stream=None) -> int:
         options = table_options(args, lmin, vdd)
     tb.require_ngspice()
     kind = ModelKind(args.kind)
-    with process.terminate_as_interrupt():
-        cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
+    cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
     report(cal, stream)
     command = ("stagefront calibrate --models " + str(args.models) + f" --nmos {args.nmos} --pmos {args.pmos}"
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"

@@ -37,12 +37,18 @@ from models.devices.mos import Mos, current, specific_current
 from models.devices.tech import Corner, ModelKind
 
 from ..files.errors import InputError
-from ..spice import ngspice
+from ..spice import ngspice, process
 from ..spice import testbench as tb
 
 WIDTH = 10e-6  # m, width of the swept devices (wide: narrow-width effects stay small)
 STEP = 0.01  # V, sweep step
 OUTPUT_VGS = (0.35, 0.5, 0.7, 0.9)  # VGS of the output curves, fractions of VDD
+# Time limit of one sweep deck per device x swept point [s]: the transfer sweeps of the
+# invented BSIM3 card (48 devices x 181 points, three VSB) measured here take 0.26 ms per
+# device-point on a loaded 2-core machine, the output sweeps 0.05 ms; ten times the slower
+# one, so that only a card that does not converge reaches the limit (plus process.START_S:
+# 32 s for that deck, not the 300 s of a fixed limit).
+SWEEP_S_PER_POINT = 2.5e-3
 IC_FLOOR = 0.01  # lowest inversion coefficient fitted (EKV)
 SQUARE_MARGIN = 0.1  # V above the extrapolated threshold for the square-law fit
 # Bounds of the fitted parameters: vt0 [V], kp [A/V^2], n [1], gamma [V^0.5], phi [V].
@@ -109,7 +115,7 @@ def _sweep_deck(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, 
 
 
 def sweep(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, vdd: float, kind: str,
-          vsbs=None) -> dict[int, Curves]:
+          vsbs=None, log=None) -> dict[int, Curves]:
     """Sweep single devices of both polarities in one ngspice run.
 
     Parameters
@@ -128,6 +134,8 @@ def sweep(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, vdd: f
         "transfer" (Id-VGS, saturated and diode-connected, at every VSB) or "output" (Id-VDS).
     vsbs : sequence of float, optional
         Source-bulk voltages [V] of the transfer curves (default 0 only).
+    log : callable, optional
+        Receives a line when the sweep starts and one every 10 s while ngspice runs.
 
     Returns
     -------
@@ -140,7 +148,12 @@ def sweep(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, vdd: f
         When ngspice fails (missing model, unparsable card, no convergence).
     """
     deck, meta = _sweep_deck(models, corner, temp_c, lengths, vdd, kind, vsbs)
-    res = ngspice.run(deck, timeout=300)
+    points = int(round(vdd / STEP)) + 1
+    limit = process.time_limit(len(meta) * points, SWEEP_S_PER_POINT)
+    what = f"{kind} sweep, {corner.value}, {temp_c:g} degC"
+    if log:
+        log(f"  {what}: {len(meta)} devices x {points} points (time limit {limit:.0f} s)")
+    res = ngspice.run(deck, timeout=limit, progress=_still_running(log, what, limit))
     x = tb.vector(res, "v(ctl)")
     parts = {1: [], -1: []}
     for c, (pol, l, vsb, sub, vgs, vec) in enumerate(meta):
@@ -156,8 +169,15 @@ def sweep(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, vdd: f
     return {pol: Curves(*(np.concatenate([p[f] for p in ps]) for f in range(7))) for pol, ps in parts.items()}
 
 
+def _still_running(log, what: str, limit: float):
+    """The `progress` callback of one ngspice run: a line naming it, its time and its limit."""
+    if log is None:
+        return None
+    return lambda t: log(f"    ... {what}: ngspice still running after {t:.0f} s (limit {limit:.0f} s)")
+
+
 def gate_capacitances(models: tb.ModelSource, corner: Corner, temp_c: float, length: float, vdd: float,
-                      timeout: float = 120.0) -> dict[int, tuple[float, float]]:
+                      timeout: float | None = None, log=None) -> dict[int, tuple[float, float]]:
     """Gate-oxide and overlap capacitance of the card per polarity: +1/-1 -> (cox [F/m^2],
     cov [F/m]), from an ngspice AC analysis at 1 kHz of two W = WIDTH, L = `length` devices.
 
@@ -182,7 +202,8 @@ def gate_capacitances(models: tb.ModelSource, corner: Corner, temp_c: float, len
                   f"V_GX{tag} gx{tag} 0 dc {pol * vdd!r} ac 1",
                   f"M_X{tag} 0 gx{tag} 0 0 {name} w={WIDTH!r} l={float(length)!r}"]
     lines += [f".ac lin 1 {f!r} {f!r}", ".end"]
-    res = ngspice.run("\n".join(lines), timeout=timeout)
+    timeout = process.time_limit(4, SWEEP_S_PER_POINT) if timeout is None else timeout  # 4 devices, 1 point
+    res = ngspice.run("\n".join(lines), timeout=timeout, progress=_still_running(log, "gate capacitances", timeout))
     out = {}
     for pol in (1, -1):
         tag = "n" if pol == 1 else "p"

@@ -16,7 +16,8 @@ float16 (three significant digits, ample for an early-design estimate).
 from __future__ import annotations
 
 import math
-from concurrent.futures import ThreadPoolExecutor
+import threading
+from concurrent.futures import ThreadPoolExecutor, wait
 
 import numpy as np
 
@@ -24,7 +25,7 @@ from models.devices.constants import ZERO_CELSIUS
 from models.devices.table_data import QUANTITIES, PolarityTable
 from models.devices.tech import Corner, Polarity
 
-from ..spice import ngspice
+from ..spice import ngspice, process
 from ..spice import testbench as tb
 
 TEMPS_C = (-40.0, 27.0, 125.0)  # default temperatures [degC]
@@ -35,6 +36,11 @@ VGS_BELOW = 0.2  # V tabulated below VGS = 0 (cut-off)
 N_VDS = 13
 N_VSB = 7
 FORMAT = 1  # version of the array file layout
+# Time limit of one table deck per device x grid point [s]: the invented BSIM3 card's deck
+# (84 to 336 devices x 273 points) measured here takes 0.02 to 0.05 ms per device-point on
+# its own and up to 0.5 ms with two decks at once on a shared, loaded 2-core machine; twice
+# that worst figure, plus process.START_S (12 lengths: about 100 s, 3 lengths: about 30 s).
+TABLE_S_PER_POINT = 1e-3
 
 
 def default_lengths(lmin: float, lmax: float, count: int = N_LENGTHS, grid: float = 5e-9) -> tuple[float, ...]:
@@ -86,12 +92,22 @@ def _deck(models: tb.ModelSource, corner: Corner, temp_c: float, lengths, w_ref:
     return "\n".join(lines), names
 
 
-def _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow):
+def deck_limit(lengths, axes) -> float:
+    """Wall-clock limit [s] of one table deck: both polarities, every VSB and length at two
+    widths, over the VGS x VDS grid."""
+    vgs, vds, vsb = axes
+    return process.time_limit(2 * len(vsb) * len(lengths) * 2 * len(vds) * len(vgs), TABLE_S_PER_POINT)
+
+
+def _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow, log=None):
     """One (section, temperature): polarity -> dict of arrays (n_lengths, n_vsb, n_vds, n_vgs),
     and "id_narrow", the current at the narrow width, of the same shape."""
     vgs, vds, vsb = axes
     deck, names = _deck(models, corner, temp_c, lengths, w_ref, axes, w_narrow)
-    res = ngspice.run(deck, timeout=timeout)
+    what = f"device tables, {corner.value}, {temp_c:g} degC"
+    progress = (lambda t: log(f"    ... {what}: ngspice still running after {t:.0f} s (limit {timeout:.0f} s)")) \
+        if log else None
+    res = ngspice.run(deck, timeout=timeout, progress=progress)
     shape = (len(vds), len(vgs))
     x_g = ngspice.vector(res, "v(vgs)")
     x_d = ngspice.vector(res, "v(vds)")
@@ -120,7 +136,7 @@ def _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow):
 
 def tabulate(models: tb.ModelSource, lengths, span: float, temps_c=TEMPS_C, w_ref: float = W_REF,
              w_narrow: float = 1e-6, jobs: int = 2, log=lambda s: None,
-             timeout: float = 300.0) -> dict[Polarity, PolarityTable]:
+             timeout: float | None = None) -> dict[Polarity, PolarityTable]:
     """Tabulate the card: polarity -> PolarityTable (see the module notes).
 
     Parameters
@@ -141,22 +157,46 @@ def tabulate(models: tb.ModelSource, lengths, span: float, temps_c=TEMPS_C, w_re
     jobs : int
         ngspice processes run at once.
     log : callable
-        Receives a progress line per finished sweep.
+        Receives a progress line per sweep started and finished, and one every 10 s while
+        a sweep runs.
+    timeout : float, optional
+        Wall-clock limit of each ngspice run [s] (default: `deck_limit`).
+
+    An interrupt (Ctrl-C, or SIGTERM under `process.terminate_as_interrupt`) stops the
+    runs not started, kills those running and lets each remove its temporary folder
+    before it propagates.
     """
     axes = grid_axes(span)
+    timeout = deck_limit(lengths, axes) if timeout is None else timeout
     corners = models.corners(None) if models.sections else (Corner.TT,)
     runs = [(c, t) for c in corners for t in temps_c]
     log(f"device tables: {len(runs)} ngspice runs ({len(corners)} corner sections x {len(temps_c)} temperatures), "
         f"{len(lengths)} lengths x {len(axes[2])} VSB x {len(axes[1])} VDS x {len(axes[0])} VGS per polarity")
-    results = {}
+    results, stop = {}, threading.Event()
 
     def one(run):
+        if stop.is_set():
+            return
         corner, temp_c = run
-        results[run] = _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow)
+        log(f"  {corner.value}, {temp_c:g} degC started (time limit {timeout:.0f} s)")
+        results[run] = _sweep(models, corner, temp_c, lengths, w_ref, axes, timeout, w_narrow, log)
         log(f"  {corner.value}, {temp_c:g} degC done ({len(results)}/{len(runs)})")
 
-    with ThreadPoolExecutor(max_workers=max(1, jobs)) as pool:
-        list(pool.map(one, runs))
+    pool = ThreadPoolExecutor(max_workers=max(1, jobs))
+    futures = [pool.submit(one, run) for run in runs]
+    try:
+        for f in futures:
+            f.result()
+    except BaseException:  # an interrupt or a failed run: stop the others before it propagates
+        stop.set()
+        for f in futures:
+            f.cancel()
+        while not all(f.done() for f in futures):
+            process.stop_all()
+            wait(futures, timeout=0.05)
+        raise
+    finally:
+        pool.shutdown(wait=True)
     tables = {}
     for pol in (Polarity.N, Polarity.P):
         slots, stacks = {}, []

@@ -9,6 +9,7 @@ quote); every current, conductance and capacitance comes from the tables.
 from __future__ import annotations
 
 import json
+import math
 import os
 from pathlib import Path
 
@@ -16,6 +17,12 @@ from ..files.atomic import write_bytes, write_text
 from ..files.errors import InputError
 from ..files.units import format_eng, parse_quantity
 from . import tables as tab
+
+
+# The most lengths and temperatures tabulated: each length is 28 devices of every deck and
+# each temperature one more deck per corner section ("common practice, no source").
+MAX_TABLE_LENGTHS = 40
+MAX_TEMPS = 10
 
 
 def table_options(args, lmin: float, vdd: float):
@@ -34,8 +41,12 @@ def table_options(args, lmin: float, vdd: float):
         w_narrow = parse_quantity(args.wnarrow, "m")
     except (TypeError, ValueError) as err:
         raise InputError("calibrate --tables", str(err)) from None
-    if len(lengths) < 2 or len(set(lengths)) != len(lengths):
-        raise InputError("--table-lengths", f"{len(set(lengths))} distinct lengths", "at least 2")
+    if not 2 <= len(lengths) <= MAX_TABLE_LENGTHS or len(set(lengths)) != len(lengths):
+        raise InputError("--table-lengths", f"{len(lengths)} lengths, {len(set(lengths))} distinct",
+                         f"2 to {MAX_TABLE_LENGTHS} distinct lengths")
+    if len(temps) > MAX_TEMPS or not all(math.isfinite(t) for t in temps):
+        raise InputError("--temps", f"{len(temps)} temperatures ({', '.join(f'{t:g}' for t in temps[:6])}"
+                                    f"{', ...' if len(temps) > 6 else ''})", f"1 to {MAX_TEMPS} finite values")
     if lengths[0] < lmin * (1 - 1e-9):
         raise InputError("--table-lengths", f"{format_eng(lengths[0], 'm')} is below --lmin {format_eng(lmin, 'm')}")
     if lengths[-1] > 1e-4:

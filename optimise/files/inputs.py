@@ -94,7 +94,7 @@ def read_input_text(path, where: str | None = None, limit: int = MAX_TEXT_BYTES,
     where = where or str(path)
     raw = read_input(path, where, limit, hint)
     try:
-        return raw.decode("utf-8")
+        return raw.decode("utf-8-sig")  # a byte-order mark (some editors write one) is dropped
     except UnicodeDecodeError as err:
         raise InputError(where, f"not UTF-8 text ({err.reason} at byte {err.start})", "a UTF-8 text file") from None
 

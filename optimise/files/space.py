@@ -31,8 +31,9 @@ from models.stages import get_stage
 
 from .errors import InputError
 from .techfile import check_table_size
-from .study import Study
-from .tables import check_keys, closest, micrometres, number, show, sub_table
+from .study import BIAS_CEILING, MAX_DESIGN_POINTS, Study
+from .tables import (MAX_GENERATIONS, MAX_POPULATION, check_evaluations, check_keys, closest, count, micrometres,
+                     number, show, sub_table)
 
 # Objective name -> (unit, default sense). swing_v is maximised; supply sensitivity is
 # minimised in magnitude.
@@ -142,6 +143,10 @@ def _pair(where, table, key, value, unit, sizes=False):
     lo, hi = (_size(where, table, key, x) if sizes else number(where, table, key, x, unit) for x in value)
     if not (lo > 0 and hi > 0):
         raise InputError(where, f"[{table}] {key} = {show(value)} must be positive", f"0 < lower <= upper ({unit})")
+    if not sizes and hi > BIAS_CEILING.get(unit, float("inf")):
+        raise InputError(where, f"[{table}] {key} = {show(value)}: upper bound {hi:g} {unit} is too large",
+                         f"<= {BIAS_CEILING[unit]:g} {unit}", "currents in amperes ('10u' is 10 uA), resistances "
+                                                              "in ohms ('2meg')")
     if lo > hi:
         raise InputError(where, f"[{table}] {key} = {show(value)}: lower bound above upper bound",
                          "lower <= upper", "the two ends look swapped")
@@ -150,6 +155,19 @@ def _pair(where, table, key, value, unit, sizes=False):
 
 def _size(where, table, key, value) -> float:
     return micrometres(where, table, key, value)
+
+
+def check_generation(where: str, name: str, population: int, study: Study) -> None:
+    """Population x the study's PVT points at most MAX_DESIGN_POINTS (the memory of one
+    generation), else InputError naming `name`."""
+    cond = study.conditions
+    points = len(cond.corners) * len(cond.temps) * len(cond.supplies)
+    if population * points > MAX_DESIGN_POINTS:
+        raise InputError(where, f"{name} = {population} at the study's {points} PVT points is "
+                                f"{population * points:.3g} design-points per generation, too many",
+                         f"population x PVT points <= {MAX_DESIGN_POINTS:.0e} "
+                         f"(here: population <= {MAX_DESIGN_POINTS // points})",
+                         "a smaller population, or fewer corners, temperatures or supplies")
 
 
 def load_search(study: Study) -> SearchSettings:
@@ -185,11 +203,11 @@ def load_search(study: Study) -> SearchSettings:
     search_t = sub_table(where, "", "search", data.get("search", {}))
     check_keys(where, "search", search_t, SEARCH_KEYS)
     ints = {}
-    for key, default, lo in (("population", 40, 4), ("generations", 30, 1), ("checkpoint_every", 5, 1)):
-        val = search_t.get(key, default)
-        if not isinstance(val, int) or isinstance(val, bool) or val < lo:
-            raise InputError(where, f"[search] {key} = {show(val)} is not allowed", f"an integer >= {lo}")
-        ints[key] = val
+    for key, default, lo, hi in (("population", 40, 4, MAX_POPULATION), ("generations", 30, 1, MAX_GENERATIONS),
+                                 ("checkpoint_every", 5, 1, MAX_GENERATIONS)):
+        ints[key] = count(where, f"[search] {key}", search_t.get(key, default), lo, hi)
+    check_evaluations(where, "[search]", ints["population"], ints["generations"])
+    check_generation(where, "[search] population", ints["population"], study)
     ref_t = sub_table(where, "search", "reference", search_t.get("reference", {}))
     check_keys(where, "search.reference", ref_t, tuple(objectives))
     reference = {k: number(where, "search.reference", k, v, "") for k, v in ref_t.items()}

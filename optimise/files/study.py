@@ -57,6 +57,22 @@ TARGET_FLOOR = {"iq_min": (0.0, False), "iq_max": (0.0, True), "iq_sigmas": (0.0
 # The highest supply a study may name [V]: integrated class-AB output stages run from a few
 # volts; anything far above is a typing or unit error ("common practice, no source").
 SUPPLY_CEILING_V = 60.0
+# The highest value of targets bounded above by their meaning: a mismatch window wider than
+# 10 sigma is no window (6 sigma is the trade's widest, "common practice, no source"), and
+# ab_ratio (idle-device current / Iq) is 1 when the idle device keeps all of Iq (class A):
+# ab_min above 1 asks for more than a class-AB stage gives.
+TARGET_CEILING = {"iq_sigmas": 10.0, "ab_min": 1.0}
+# The largest bias value a design or a bound may hold, per unit: an integrated bias current
+# above 1 A or a bias resistor above 1 Tohm is a typing or unit error ("common practice, no
+# source").
+BIAS_CEILING = {"A": 1.0, "ohm": 1e12}
+# The most PVT points (corners x temperatures x supplies) of a study: every design is solved
+# at each, so the memory of a search generation grows with them (about 1 kB per design and
+# point, measured here: 2000 designs x 45 points took 88 MB); 5 corners x 3 supplies leave
+# room for 66 temperatures ("common practice, no source").
+MAX_PVT_POINTS = 1000
+MAX_DESIGN_POINTS = 1_000_000  # population x PVT points of one search generation (about 1 GB)
+MAX_NAME_CHARS = 200  # a study's name is shown in titles, figures and netlist comments
 
 
 @dataclass(frozen=True)
@@ -75,11 +91,27 @@ class Study:
 
 
 def _list(where, table, key, value, kind=str):
+    prefix = f"[{table}] " if table else ""
     if not isinstance(value, list) or not value or not all(isinstance(v, kind) and not isinstance(v, bool)
                                                           for v in value):
-        raise InputError(where, f"[{table}] {key} = {show(value)} is not a non-empty array of "
+        raise InputError(where, f"{prefix}{key} = {show(value)} is not a non-empty array of "
                                 f"{'strings' if kind is str else 'numbers'}")
+    for k, v in enumerate(value):
+        if v in value[:k]:
+            raise InputError(where, f"{prefix}{key} repeats {show(v)}", "each value once")
     return value
+
+
+def bias_value(where: str, table: str, key: str, value, unit: str) -> float:
+    """A bias current or resistance (SI): positive and at most BIAS_CEILING of its unit."""
+    v = number(where, table, key, value, unit)
+    ceiling = BIAS_CEILING.get(unit, float("inf"))
+    if not v > 0:
+        raise InputError(where, f"[{table}] {key} = {v:g} {unit} must be positive", f"> 0 {unit}")
+    if v > ceiling:
+        raise InputError(where, f"[{table}] {key} = {show(value)} is too large", f"> 0 and <= {ceiling:g} {unit}",
+                         "currents in amperes ('4u' is 4 uA), resistances in ohms ('100k')")
+    return v
 
 
 def load_study(path) -> Study:
@@ -147,6 +179,11 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
             raise InputError(where, f"[conditions] temperatures_c: {t!r} is not allowed",
                              "finite temperatures in degC above absolute zero, up to 400")
     corner_names = _list(where, "conditions", "corners", cond_table.get("corners", ["tt"]))
+    n_points = len(corner_names) * len(temps_c) * len({vmin, vnom, vmax})
+    if n_points > MAX_PVT_POINTS:
+        raise InputError(where, f"[conditions] {len(corner_names)} corners x {len(temps_c)} temperatures x "
+                                f"{len({vmin, vnom, vmax})} supplies = {n_points} PVT points is too many",
+                         f"at most {MAX_PVT_POINTS}", "a few temperatures span the range: e.g. [27, -40, 125]")
     corners = []
     for name in corner_names:
         allowed = [c.value for c in Corner]
@@ -180,11 +217,15 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
     kw = {k: number(where, "targets", k, v, TARGET_UNITS[k]) for k, v in targets_t.items()}
     for k, v in kw.items():
         low, strict = TARGET_FLOOR[k]
+        unit = TARGET_UNITS[k] or "(no unit)"
         if v < low or (strict and v == low):
-            unit = TARGET_UNITS[k] or "(no unit)"
             raise InputError(where, f"[targets] {k} = {show(targets_t[k])} is not allowed",
                              f"{'>' if strict else '>='} {low:g} {unit}",
                              "a limit below zero reverses its check" if low == 0 else "")
+        if v > TARGET_CEILING.get(k, float("inf")):
+            raise InputError(where, f"[targets] {k} = {show(targets_t[k])} is not allowed",
+                             f"{low:g} to {TARGET_CEILING[k]:g} {unit}",
+                             "ab_min = 1 already keeps the idle device at Iq (class A)" if k == "ab_min" else "")
     if "area_max_um2" in kw:
         kw["area_max"] = kw.pop("area_max_um2") * 1e-12
     drive = driver.get("drive", "both")
@@ -206,10 +247,16 @@ def study_from_dict(data: dict, path, tech: Tech | None = None) -> Study:
             raise InputError(where, f"architectures: {a!r} is not known", ", ".join(STAGES), closest(a, STAGES))
     if "mirrors" in data:
         targets = replace(targets, mirrors=load_mirrors(where, data, archs, tech))
+    name = data.get("name", path.stem)
+    if not isinstance(name, str) or not name.strip() or len(name) > MAX_NAME_CHARS:
+        raise InputError(where, f"name = {show(name)} is not allowed",
+                         f"a non-empty string of at most {MAX_NAME_CHARS} characters")
+    if not isinstance(data.get("description", ""), str):
+        raise InputError(where, f"description = {show(data['description'])} is not allowed", "a string")
     seed = data.get("seed", 1)
     if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
         raise InputError(where, f"seed = {show(seed)} is not allowed", "a non-negative integer")
-    return Study(path, str(data.get("name", path.stem)), tech, tech_path, conditions, targets, tuple(archs), seed, data)
+    return Study(path, name, tech, tech_path, conditions, targets, tuple(archs), seed, data)
 
 
 def _amplifier(where, data, amp_targets) -> dict:
@@ -299,7 +346,8 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech, ties: dict |
             value = _micrometres(where, table, key, dev[key])
             if not value >= minimum * (1 - 1e-9):
                 raise InputError(where, f"[{table}] {key} = {value * 1e6:g} um is below the technology minimum",
-                                 f">= {minimum * 1e6:g} um ({tech.name})")
+                                 f">= {minimum * 1e6:g} um ({tech.name})",
+                                 'plain numbers are micrometres: 60 or "60u" for 60 um' if value > 0 else "")
             check_table_size(where, table, key, value, tech, polarity)
             store[role] = np.array([value])
         bulk = dev.get("bulk", "rail")
@@ -316,10 +364,7 @@ def design_from_tables(where: str, arch, devices, bias, tech: Tech, ties: dict |
     for name, unit in stage.BIAS.items():
         if name not in bias:
             raise InputError(where, f"[bias] missing {name}", f"{arch} needs {', '.join(stage.BIAS)}")
-        v = number(where, "bias", name, bias[name], unit)
-        if not v > 0:
-            raise InputError(where, f"[bias] {name} = {v:g} {unit} must be positive", f"> 0 {unit}")
-        values[name] = np.array([v])
+        values[name] = np.array([bias_value(where, "bias", name, bias[name], unit)])
     return Design(arch, w, l, values, frozenset(tied))
 
 
@@ -337,6 +382,8 @@ def load_design(path, tech: Tech, ties_of=None) -> Design:
     data = read_toml(path)
     check_keys(where, "", data, ("architecture", "devices", "bias", "name", "compensation"),
                ("architecture", "devices", "bias"))
+    if not isinstance(data.get("name", ""), str):
+        raise InputError(where, f"name = {show(data['name'])} is not allowed", "a string")
     ties = None
     if ties_of is not None and isinstance(data["architecture"], str) and data["architecture"] in STAGES:
         ties = ties_of(data["architecture"])

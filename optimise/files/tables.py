@@ -15,6 +15,35 @@ from .inputs import read_input_text
 from .units import parse_quantity
 
 
+# Ceilings of the counts a file or an option sets ("common practice, no source"). A front
+# needs tens to a few hundred designs per generation; a population of ten thousand already
+# holds every metric at every PVT point (designs x points x about forty float64 arrays,
+# ~150 MB at 45 points) each generation, and a hundred times that exhausts a laptop's
+# memory. Evaluations (population x generations, per architecture) are capped so that a run
+# ends in hours, not years; Monte Carlo draws are held in memory at once.
+MAX_POPULATION = 10_000
+MAX_GENERATIONS = 100_000
+MAX_EVALUATIONS = 10**8
+MAX_MONTECARLO = 1_000_000
+
+
+def count(where: str, name: str, value, low: int, high: int, hint: str = "") -> int:
+    """An integer `value` in [low, high] (not a boolean), else InputError naming `name`
+    (a table path such as "[search] population" or an option such as "--population")."""
+    if not isinstance(value, int) or isinstance(value, bool) or not low <= value <= high:
+        raise InputError(where, f"{name + ' = ' if name else ''}{show(value)} is not allowed",
+                         f"an integer from {low} to {high}", hint)
+    return value
+
+
+def check_evaluations(where: str, name: str, population: int, generations: int) -> None:
+    """Population x generations at most MAX_EVALUATIONS, else InputError naming `name`."""
+    if population * generations > MAX_EVALUATIONS:
+        raise InputError(where, f"{name}: population {population} x generations {generations} = "
+                                f"{population * generations:.3g} evaluations per architecture is too many",
+                         f"at most {MAX_EVALUATIONS:.0e}", "fewer generations, or a smaller population")
+
+
 def table_prefix(name: str) -> str:
     return f"[{name}] " if name else ""
 

@@ -20,6 +20,7 @@ from pymoo.algorithms.moo.nsga2 import NSGA2
 from pymoo.core.population import Population
 
 from ..files.errors import InputError
+from ..files.inputs import MAX_TABLE_BYTES, read_input
 
 FORMAT = "stagefront-checkpoint-1"
 _POP = ("X", "F", "G", "CV")
@@ -75,7 +76,8 @@ def decode(data: bytes, problem, population: int, generations: int, seed: int, i
         record = json.loads(arrays.pop("record").tobytes().decode("utf-8"))
         if not isinstance(record, dict) or record.get("format") != FORMAT:
             raise ValueError("not a stagefront checkpoint")
-    except (OSError, ValueError, KeyError, TypeError, AttributeError, zipfile.BadZipFile, UnicodeDecodeError) as exc:
+    except (OSError, EOFError, ValueError, KeyError, TypeError, AttributeError, RecursionError, zipfile.BadZipFile,
+            zipfile.LargeZipFile) as exc:  # EOFError: an empty or cut-off file
         raise InputError(where, f"is not a readable stagefront checkpoint ({exc})",
                          hint="start a new run folder; checkpoints are never executed, only read as arrays")
     if record.get("inputs_sha256") != inputs_hash:
@@ -104,10 +106,12 @@ def decode(data: bytes, problem, population: int, generations: int, seed: int, i
         return {"algorithm": algorithm, "archive": archive, "hv": [float(v) for v in record["hv"]],
                 "feasible": [int(v) for v in record["feasible"]], "wall": float(record["wall"]),
                 "finished": bool(record["finished"])}
-    except (KeyError, ValueError, TypeError, AttributeError, IndexError) as exc:
+    except (KeyError, ValueError, TypeError, AttributeError, IndexError, OverflowError) as exc:
         raise InputError(where, f"is not a consistent stagefront checkpoint ({exc})",
                          hint="start a new run folder")
 
 
 def load(path: Path, problem, population: int, generations: int, seed: int, inputs_hash: str) -> dict:
-    return decode(Path(path).read_bytes(), problem, population, generations, seed, inputs_hash, str(path))
+    # Read as any file handed in: a regular file below the size limit (never a FIFO or device).
+    data = read_input(path, str(path), MAX_TABLE_BYTES, "start a new run folder")
+    return decode(data, problem, population, generations, seed, inputs_hash, str(path))

@@ -23,7 +23,8 @@ from ..files.atomic import write_bytes
 from ..files.errors import InputError
 from ..files.folders import clear, component, is_empty, locked, mark
 from ..files.inputs import load_json
-from ..files.space import load_search
+from ..files.tables import MAX_GENERATIONS, MAX_POPULATION, check_evaluations, count, show
+from ..files.space import check_generation, load_search
 from ..files.study import load_study
 from .export import (
     closest_design_report,
@@ -54,11 +55,14 @@ def _prepare(out: Path, resume: bool, overwrite: bool, meta: dict, inputs=()) ->
         except InputError as exc:
             raise InputError(str(meta_path), f"is not a readable checkpoint record ({exc.what})",
                              hint="start a new run folder") from None
-        for key, low in (("seed", 0), ("population", 4), ("generations", 1)):
+        for key, low, high in (("seed", 0, None), ("population", 4, MAX_POPULATION),
+                               ("generations", 1, MAX_GENERATIONS)):
             value = saved.get(key)
-            if not isinstance(value, int) or isinstance(value, bool) or value < low:
-                raise InputError(str(meta_path), f"{key!r} = {value!r} is not usable", f"an integer >= {low}",
+            if not isinstance(value, int) or isinstance(value, bool) or value < low or high and value > high:
+                raise InputError(str(meta_path), f"{key!r} = {show(value)} is not usable",
+                                 f"an integer >= {low}" + (f" and <= {high}" if high else ""),
                                  "start a new run folder")
+        check_evaluations(str(meta_path), "the checkpoint record", saved["population"], saved["generations"])
         for key in ("seed", "population", "generations", "study_toml", "inputs_sha256"):
             if key in meta and meta[key] is not None and saved.get(key) != meta[key]:
                 shown = {"study_toml": "the study file changed",
@@ -116,9 +120,13 @@ def _optimise(study_path, out: Path, seed, population, generations, resume, over
                 "study_toml": meta["study_toml"], "inputs_sha256": digest}
     if seed is not None and (not isinstance(seed, int) or seed < 0):
         raise InputError("--seed", f"{seed} is not allowed", "a non-negative integer")
-    for key in ("population", "generations"):
-        if meta.get(key) is not None and meta[key] < (4 if key == "population" else 1):
-            raise InputError(f"--{key}", f"{meta[key]} is too small", ">= 4" if key == "population" else ">= 1")
+    for key, value, low, high in (("population", population, 4, MAX_POPULATION),
+                                  ("generations", generations, 1, MAX_GENERATIONS)):
+        if value is not None:
+            count(f"--{key}", "", value, low, high)
+    if not resume:
+        check_evaluations("--population/--generations", "the run", meta["population"], meta["generations"])
+        check_generation("--population", "population", meta["population"], study)
     meta = _prepare(out, resume, overwrite, meta, (study_path, study.tech_path))
     settings = replace(settings, population=meta["population"], generations=meta["generations"])
     progress = Progress()

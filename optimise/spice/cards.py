@@ -31,6 +31,15 @@ def check_model_name(option: str, name: str) -> str:
     return name
 
 
+def check_names_apply(models_path, nmos: str, pmos: str) -> None:
+    """--nmos/--pmos name the models of a --models card: given without one, where they would
+    be ignored, they are an InputError (the defaults, nch and pch, pass)."""
+    if not models_path and (nmos, pmos) != ("nch", "pch"):
+        raise InputError("--nmos/--pmos", f"{nmos!r}/{pmos!r} given without --models", "with --models FILE only",
+                         "without --models the level-1 cards made from the technology (models nch and pch), or "
+                         "the card a table technology names, are used")
+
+
 def comment_safe(text) -> str:
     """`text` on one line: every control character and line break becomes a space, so that
     it stays inside the comment (or title) it is written into."""

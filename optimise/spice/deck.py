@@ -26,7 +26,7 @@ from ..files.study import Study, load_study
 from ..search import runfolder
 from ..search.export import design_from_row
 from . import testbench as tb
-from .cards import comment_safe
+from .cards import check_names_apply, comment_safe
 
 
 def load_run(run) -> tuple[Study, "object", Path]:
@@ -170,6 +170,7 @@ def netlist_text(study: Study, row_id: str, design: Design, models: tb.ModelSour
 def write_netlist(run, row_id: str, models_path=None, nmos: str = "nch", pmos: str = "pch", out=None,
                   corner: str = "tt", stream=None, trust: bool = False) -> int:
     """`stagefront netlist`: write the netlist of one row to `out` (atomically) or `stream`."""
+    check_names_apply(models_path, nmos, pmos)
     study, front, _ = load_run(run)
     _, design = row_design(front, row_id)
     if not models_path and study.tech.card is not None:  # a table technology names its card

@@ -178,7 +178,7 @@ def run_plots(netlist: str, timeout: float = 60, progress=None) -> list[Plot]:
     return plots
 
 
-def run(netlist: str, timeout: float = 60) -> dict[str, np.ndarray]:
+def run(netlist: str, timeout: float = 60, progress=None) -> dict[str, np.ndarray]:
     """Run a deck in ngspice batch mode and return its vectors by name.
 
     Parameters
@@ -187,6 +187,8 @@ def run(netlist: str, timeout: float = 60) -> dict[str, np.ndarray]:
         The complete deck; the first line is the title. See the module notes.
     timeout : float
         Wall-clock limit [s] for the ngspice process.
+    progress : callable, optional
+        As for `run_plots`.
 
     Returns
     -------
@@ -202,7 +204,7 @@ def run(netlist: str, timeout: float = 60) -> dict[str, np.ndarray]:
         As `run_plots`; also when the deck wrote plots of different kinds (say ``.op``
         and ``.dc``), whose vectors share names: use `run_plots` for such decks.
     """
-    return join_plots(run_plots(netlist, timeout))
+    return join_plots(run_plots(netlist, timeout, progress))
 
 
 def join_plots(plots: list[Plot]) -> dict[str, np.ndarray]:

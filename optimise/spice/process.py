@@ -25,6 +25,28 @@ from ..files.folders import process_alive
 PREFIX = "stagefront-ngspice-"
 _OWNED = re.compile(re.escape(PREFIX) + r"(\d+)-")
 _swept = False
+_running: set = set()  # processes started by `run` that still run (several threads may run one each)
+_lock = threading.Lock()
+# Start-up allowance of one ngspice process [s]: starting and reading the card, which a large
+# foundry library makes take seconds ("common practice, no source").
+START_S = 10.0
+
+
+def time_limit(device_points: int, per_point_s: float) -> float:
+    """Wall-clock limit [s] of one deck: the start-up allowance plus `per_point_s` for each
+    device at each swept point (devices x points), the measure of a DC sweep's work."""
+    return START_S + per_point_s * device_points
+
+
+def stop_all() -> int:
+    """Kill every ngspice process `run` started that still runs (an interrupt reaching the main
+    thread while other threads wait on theirs); each `run` then returns and its folder is
+    removed. Returns how many were killed."""
+    with _lock:
+        procs = [proc for proc in _running if proc.poll() is None]
+    for proc in procs:
+        proc.kill()
+    return len(procs)
 
 
 def remove_stale(folder=None) -> list[Path]:
@@ -81,6 +103,8 @@ def run(args: list, cwd, timeout: float, progress=None, every: float = 10.0) -> 
     """
     proc = subprocess.Popen(args, cwd=cwd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, errors="replace")
+    with _lock:
+        _running.add(proc)
     t0 = time.monotonic()
     try:
         while True:
@@ -100,6 +124,8 @@ def run(args: list, cwd, timeout: float, progress=None, every: float = 10.0) -> 
         if proc.poll() is None:
             proc.kill()
             proc.wait()
+        with _lock:
+            _running.discard(proc)
 
 
 @contextlib.contextmanager

@@ -41,6 +41,7 @@ from ..files.errors import InputError
 from ..search import runfolder
 from . import ngspice, process
 from . import testbench as tb
+from .cards import check_names_apply
 from .deck import load_run
 from .ngspice import NgspiceError
 
@@ -91,8 +92,10 @@ def choose_rows(front, rows: str | None, all_rows: bool) -> list[str]:
         raise InputError("--rows/--all", "both given", hint="give one of them")
     if all_rows:
         return ids
-    if rows:
+    if rows is not None:
         wanted = [r for r in rows.replace(",", " ").split() if r]
+        if not wanted:
+            raise InputError("--rows", f"{rows!r} names no row", "row ids, comma separated, e.g. fl-001,fl-003")
         unknown = [r for r in wanted if r not in ids]
         if unknown:
             shown = ", ".join(ids[:8]) + (f", ... ({len(ids)} rows)" if len(ids) > 8 else "")
@@ -234,6 +237,7 @@ def verify_run(run, rows=None, all_rows=False, models_path=None, nmos="nch", pmo
     stream = stream or sys.stdout
     err_stream = err_stream or sys.stderr
     log = lambda s: print(s, file=err_stream, flush=True)  # noqa: E731
+    check_names_apply(models_path, nmos, pmos)
     study, front, folder = load_run(run)
     with locked(folder, "verify"), process.terminate_as_interrupt():
         return _verify(study, front, folder, rows, all_rows, models_path, nmos, pmos, stream, log, trust)

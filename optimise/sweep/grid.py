@@ -43,6 +43,7 @@ reported as that cell's failure when the sweep runs it.
 from __future__ import annotations
 
 import copy
+import hashlib
 import itertools
 import json
 import math
@@ -65,10 +66,15 @@ from ..files.study import (
     TARGET_UNITS,
     load_study,
 )
-from ..files.tables import check_keys, closest, number, read_toml, show, sub_table
+from ..files.tables import (MAX_GENERATIONS, MAX_POPULATION, check_evaluations, check_keys, closest, count, number,
+                            read_toml, show, sub_table)
 
 GRID_KEYS = ("base", "name", "description", "axes", "search")
 SEARCH_OVERRIDES = {"population": 4, "generations": 1, "checkpoint_every": 1}  # key -> smallest allowed
+# The most cells of one grid: each is a whole search, so a thousand is already days of work on
+# a workstation and a folder of a thousand run folders ("common practice, no source").
+MAX_CELLS = 1000
+SEARCH_CEILINGS = {"population": MAX_POPULATION, "generations": MAX_GENERATIONS, "checkpoint_every": MAX_GENERATIONS}
 STUDY_AXES = (("architecture", "technology", "seed")
               + tuple(f"supply.{k}" for k in SUPPLY_KEYS) + tuple(f"conditions.{k}" for k in CONDITION_KEYS)
               + tuple(f"load.{k}" for k in LOAD_KEYS) + tuple(f"driver.{k}" for k in DRIVER_KEYS)
@@ -189,7 +195,8 @@ def load_grid(path) -> Grid:
     study = load_study(base)  # the base must be valid on its own
     from ..files.space import load_search
 
-    objectives = load_search(study).objectives
+    settings = load_search(study)
+    objectives = settings.objectives
     name = data.get("name", path.stem)
     if not isinstance(name, str) or not name:
         raise InputError(where, f"name = {show(name)} is not a non-empty string")
@@ -197,15 +204,21 @@ def load_grid(path) -> Grid:
     search = sub_table(where, "", "search", data.get("search", {}))
     check_keys(where, "search", search, tuple(SEARCH_OVERRIDES))
     for key, value in search.items():
-        if not isinstance(value, int) or isinstance(value, bool) or value < SEARCH_OVERRIDES[key]:
-            raise InputError(where, f"[search] {key} = {show(value)} is not allowed",
-                             f"an integer >= {SEARCH_OVERRIDES[key]}")
+        count(where, f"[search] {key}", value, SEARCH_OVERRIDES[key], SEARCH_CEILINGS[key])
 
     axes = _flatten(sub_table(where, "", "axes", data["axes"]))
     if not axes:
         raise InputError(where, "[axes] is empty", "one or more axes, e.g. architecture = [\"floating-loop\"]")
+    cells = math.prod(len(v) if isinstance(v, list) else 1 for v in axes.values())
+    if cells > MAX_CELLS:
+        raise InputError(where, f"[axes] make {' x '.join(str(len(v)) for v in axes.values() if isinstance(v, list))}"
+                                f" = {cells} cells, too many", f"at most {MAX_CELLS} cells",
+                         "each cell is a whole search: fewer values per axis")
     for key, values in axes.items():
         _check_axis(where, key, values, study, path.parent)
+    largest = {k: max(axes.get(f"search.{k}", [search.get(k, getattr(settings, k))]))
+               for k in ("population", "generations")}
+    check_evaluations(where, "the largest cell", largest["population"], largest["generations"])
     cells = _expand(where, name, base, axes, search, study, path.parent)
     return Grid(path, name, base, axes, search, cells, objectives)
 
@@ -237,6 +250,9 @@ def _check_axis(where, key, values, study, folder: Path) -> None:
                 raise InputError(where, f"[axes] technology: {show(v)} is not a technology file "
                                         f"(looked for {folder / str(v)})",
                                  "paths relative to the grid file", "check the path")
+        elif key.startswith("search."):
+            sub = key.split(".", 1)[1]
+            count(where, f"[axes] {key}", v, SEARCH_OVERRIDES[sub], SEARCH_CEILINGS[sub])
         elif key == "seed":
             if not isinstance(v, int) or isinstance(v, bool) or v < 0:
                 raise InputError(where, f"[axes] seed: {show(v)} is not allowed", "non-negative integers")
@@ -256,6 +272,8 @@ def _expand(where, name, base: Path, axes: dict, search: dict, study, folder: Pa
             text = label(Path(v).stem) if k == "technology" else label(v)
             parts.append(words[k] + text)
         cname = "_".join(parts)
+        if len(cname) > 200:  # a folder name (and a study name) of sane length: cut, with a digest of the whole
+            cname = f"{cname[:183]}-{hashlib.sha256(cname.encode()).hexdigest()[:16]}"
         if cname in used:  # two values that only differ in characters a folder name cannot hold
             cname = f"{cname}_{len(cells) + 1}"
         used.add(cname)

@@ -44,10 +44,15 @@ from ..files.atomic import write_text
 from ..files.errors import InputError
 from ..files.folders import clear, component, is_empty, locked, mark
 from ..files.inputs import read_input_text
+from ..files.tables import MAX_MONTECARLO, count
 from ..search.frontfile import read_run_record
 from ..search.runtime import keep_freed_memory
 from .grid import Grid, load_grid
 from .summary import CAUTION, cell_row, joint_front, knee_rows, write_summary
+
+# The most worker processes of a local cluster: each holds a Python interpreter with numpy and
+# pymoo (some 150 MB), so more than this exhausts a workstation ("common practice, no source").
+MAX_WORKERS = 64
 
 
 # ------------------------------------------------------------------------------ tasks
@@ -245,10 +250,9 @@ def run_sweep(grid_path, out=None, scheduler: str | None = None, workers: int | 
         raise InputError("--workers", "applies to the local cluster only", hint="leave it out with --scheduler; "
                                                                                 "the cluster has its own workers")
     workers = 2 if workers is None else workers
-    if workers < 1:
-        raise InputError("--workers", f"{workers} is too few", ">= 1")
-    if montecarlo and montecarlo < 2:
-        raise InputError("--montecarlo", f"{montecarlo} samples is too few", ">= 2")
+    count("--workers", "", workers, 1, MAX_WORKERS, "one or two per core")
+    if montecarlo:
+        count("--montecarlo", "", montecarlo, 2, MAX_MONTECARLO, "10000 draws give the sigma to about 1 %")
     grid = load_grid(grid_path)
     out = Path(out) if out else Path("runs") / component(grid.name)
     with locked(out, "sweep"):
