@@ -58,9 +58,17 @@ OPTIMISE_TARGETS = ["optimise/review/evaluation.py", "optimise/search/export.py"
 # and stage tests; the slower suites (CLI, every Iq case in ngspice) are left out for models/.
 MODEL_TESTS = ["tests/test_metrics.py", "tests/test_mos.py", "tests/test_mismatch.py", "tests/test_solvers.py",
                "tests/test_stages.py", "tests/test_metrics_ngspice.py", "tests/test_mos_ngspice.py"]
-# Module (path prefix) -> tests run against its mutants.
+# Module (path prefix; the longest match wins) -> tests run against its mutants, the module's
+# own tests first so that -x stops early on a kill.
 TESTS = {
     "models/": MODEL_TESTS,
+    "models/amplifier/": ["tests/test_metrics_amplifier.py", "tests/test_amplifier.py", "tests/test_amplifier_ngspice.py", "tests/test_metrics.py"],
+    "models/circuit/mirrors.py": ["tests/test_mirrors.py", "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
+    "models/sources.py": ["tests/test_mirrors.py", "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
+    "models/devices/table": ["tests/test_table_kind.py", "tests/test_mos.py"],
+    "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
+    "models/wording.py": ["tests/test_messages.py", "tests/test_metrics.py"],
+    "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py"],
     "optimise/review/evaluation.py": ["tests/test_metrics.py", "tests/test_cli.py", "tests/test_json_safe.py"],
     "optimise/search/export.py": ["tests/test_metrics.py", "tests/test_search.py", "tests/test_compare_pick.py"],
 }
@@ -83,11 +91,12 @@ NAMED = [
     ("models/circuit/nodal.py", "s_beta = -(d.p * i_d / (1.0 + d.dbeta)) * w", "s_beta = (d.p * i_d / (1.0 + d.dbeta)) * w"),
     ("models/summary.py", "100.0 * (i_hi - i_lo) / ref", "100.0 * (i_lo - i_hi) / ref"),
     ("models/summary.py", "/ ref / max(span, 1e-300)", "/ ref"),
-    ("models/evaluate.py", "fp2 = gm / (2.0 * np.pi * targets.c_load)", "fp2 = gm / (np.pi * targets.c_load)"),
-    ("models/evaluate.py", '"ab_ratio": np.minimum(ab_src, ab_snk)', '"ab_ratio": np.maximum(ab_src, ab_snk)'),
+    ("models/evaluate.py", "fp2 = gm / (2.0 * np.pi * c_out)", "fp2 = gm / (np.pi * c_out)"),
+    ("models/operating.py", "worst = np.minimum(worst, np.abs(i))", "worst = np.maximum(worst, np.abs(i))"),
     ("models/stages/fixed_bias.py", '("mn_out leaves saturation", 2.0 *', '("mn_out leaves saturation", 1.0 *'),
     ("models/stages/fixed_bias.py", '("mp_out leaves saturation", 2.0 *', '("mp_out leaves saturation", 1.0 *'),
-    ("models/summary.py", '(pvt["iq_a"][:, j] + stage.bias_total(bias))', '(pvt["iq_a"][:, j])'),
+    ("models/summary.py", '(pvt["iq_a"] + np.asarray(stage.bias_total(bias), dtype=float)[:, None])',
+     '(pvt["iq_a"])'),
 ]
 GUARD_KEYWORDS = {"xtol", "tol", "rtol", "atol", "max_iter", "iterations", "step_max"}
 
