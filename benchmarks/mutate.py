@@ -56,15 +56,17 @@ OPTIMISE_TARGETS = ["optimise/review/evaluation.py", "optimise/search/export.py"
 
 # A fast subset per module: the direct checks of the metrics first, then the device, solver
 # and stage tests; the slower suites (CLI, every Iq case in ngspice) are left out for models/.
-MODEL_TESTS = ["tests/test_metrics.py", "tests/test_mos.py", "tests/test_mismatch.py", "tests/test_solvers.py",
-               "tests/test_stages.py", "tests/test_metrics_ngspice.py", "tests/test_mos_ngspice.py"]
+MODEL_TESTS = ["tests/test_metrics.py", "tests/test_metrics_budgets.py", "tests/test_capacitances.py", "tests/test_mos.py",
+               "tests/test_mismatch.py", "tests/test_solvers.py", "tests/test_stages.py", "tests/test_metrics_ngspice.py", "tests/test_mos_ngspice.py"]
 # Module (path prefix; the longest match wins) -> tests run against its mutants, the module's
 # own tests first so that -x stops early on a kill.
 TESTS = {
     "models/": MODEL_TESTS,
-    "models/amplifier/": ["tests/test_metrics_amplifier.py", "tests/test_amplifier.py", "tests/test_amplifier_ngspice.py", "tests/test_metrics.py"],
+    "models/amplifier/": ["tests/test_metrics_budgets.py", "tests/test_amplifier.py", "tests/test_amplifier_ngspice.py",
+                          "tests/test_metrics.py"],
     "models/circuit/mirrors.py": ["tests/test_mirrors.py", "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
     "models/sources.py": ["tests/test_mirrors.py", "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
+    "models/devices/": [*MODEL_TESTS, "tests/test_amplifier.py"],
     "models/devices/table": ["tests/test_table_kind.py", "tests/test_mos.py"],
     "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
     "models/wording.py": ["tests/test_messages.py", "tests/test_metrics.py"],

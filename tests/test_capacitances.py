@@ -1,0 +1,42 @@
+"""Device capacitances in the triode region and the EKV interpolation's derivative, against
+textbook closed forms and a finite difference.
+
+Meyer's level-1 gate capacitances in triode (J. E. Meyer, "MOS models and circuit
+simulation", RCA Review 32, 1971; the same expressions in P. Antognetti, G. Massobrio,
+Semiconductor Device Modeling with SPICE, 2nd ed., McGraw-Hill 1993, ch. 4; from memory):
+cgs = 2/3 C0 (1 - (VGST - VDS)^2 / (2 VGST - VDS)^2), cgd = 2/3 C0 (1 - VGST^2 / (2 VGST - VDS)^2),
+C0 = Cox W L. At VDS = VGST / 2 these are 16/27 C0 and 10/27 C0, a point where a sign error
+in either square shows (at VDS = 0 it would not).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from stage_helpers import T_TEST, mos_tech
+
+from models.devices import ekv, square_law
+from models.devices.conditions import at_conditions
+from models.devices.tech import ModelKind, Polarity
+
+
+def test_square_law_triode_capacitances_at_half_the_overdrive():
+    mt = mos_tech(vt0=0.5, gamma=0.5, phi=0.8)
+    m = at_conditions(mt, Polarity.N, ModelKind.SQUARE_LAW, T_TEST, T_TEST)
+    w, l = 10e-6, 1e-6
+    c0, cov = mt.cox * w * l, mt.cov * w
+    vgst = 1.0  # V: gate at VT + 1 V, source and bulk at 0 (no body effect)
+    cgs, cgd, cgb, _, _ = square_law.capacitances(m, mt, w, l, mt.vt0 + vgst, 0.5 * vgst, 0.0)
+    # Closed forms on both sides: rounding only.
+    assert cgs - cov == pytest.approx(16.0 / 27.0 * c0, rel=1e-12)
+    assert cgd - cov == pytest.approx(10.0 / 27.0 * c0, rel=1e-12)
+    assert cgb == 0.0
+
+
+def test_ekv_interpolation_derivative_matches_a_finite_difference():
+    # F(x) = ln^2(1 + exp(x/2)) (Enz, Krummenacher, Vittoz, Analog Integrated Circuits and
+    # Signal Processing 8, 1995, eq. for the interpolation function); F'(x) by central
+    # difference with step 1e-5: truncation ~1e-11 relative, rounding ~1e-11: 1e-8 is ample.
+    x = np.array([-30.0, -5.0, -1.0, 0.0, 0.7, 4.0, 25.0, 200.0])
+    h = 1e-5
+    fd = (ekv.ekv_f(x + h) - ekv.ekv_f(x - h)) / (2.0 * h)
+    assert ekv.ekv_f_prime(x) == pytest.approx(fd, rel=1e-8, abs=0.0)
