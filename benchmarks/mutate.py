@@ -67,7 +67,7 @@ TESTS = {
     "models/circuit/mirrors.py": ["tests/test_mirrors.py", "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
     "models/sources.py": ["tests/test_mirrors.py", "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
     "models/devices/": [*MODEL_TESTS, "tests/test_amplifier.py"],
-    "models/devices/table": ["tests/test_table_kind.py", "tests/test_mos.py"],
+    "models/devices/table": ["tests/test_capacitances.py", "tests/test_table_kind.py", "tests/test_mos.py"],
     "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
     "models/wording.py": ["tests/test_messages.py", "tests/test_metrics.py"],
     "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py"],
@@ -396,6 +396,25 @@ def main() -> int:
         if n_all:
             print(f"{'all of ' + scope:40s} {n_all:7d} {k_all:7d} {100.0 * k_all / n_all:8.1f} %")
     print(f"wall time {total:.0f} s with {len(roots)} job(s)")
+    if args.rerun:
+        # The earlier run's whole sample with these survivors' new outcomes.
+        earlier = [line for line in Path(args.rerun).read_text().splitlines()
+                   if line.startswith("  ") and (": survived (" in line or ": killed" in line)]
+        # A survivor's line may match several sites (two "* -> /" on one line): it counts as
+        # killed now only when every one of them is.
+        alive: dict[tuple, bool] = {}
+        for s, o, _ in results:
+            key = (s.path, s.line, s.text)
+            alive[key] = alive.get(key, False) or o == "pass"
+        now_killed = sum(not a for a in alive.values())
+        for scope in ("models/", "optimise/"):
+            mine = [line for line in earlier if line.strip().startswith(scope)]
+            before = sum(": killed" in line for line in mine)
+            after = before + sum(not a for key, a in alive.items() if key[0].startswith(scope))
+            if mine:
+                print(f"earlier sample, {scope}: {before} of {len(mine)} killed ({100.0 * before / len(mine):.1f} %); "
+                      f"with this rerun {after} ({100.0 * after / len(mine):.1f} %)")
+        print(f"rerun: {now_killed} of {len(alive)} earlier survivors killed now")
     survivors = [s for s, o, _ in results if o == "pass"]
     print(f"\nsurvivors ({len(survivors)}):")
     for s in sorted(survivors, key=lambda s: (s.path, s.line)):

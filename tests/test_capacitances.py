@@ -40,3 +40,25 @@ def test_ekv_interpolation_derivative_matches_a_finite_difference():
     h = 1e-5
     fd = (ekv.ekv_f(x + h) - ekv.ekv_f(x - h)) / (2.0 * h)
     assert ekv.ekv_f_prime(x) == pytest.approx(fd, rel=1e-8, abs=0.0)
+
+
+def test_a_point_beyond_any_one_edge_of_the_tables_is_flagged():
+    # The table kind must not extrapolate: a rest point beyond any single edge of the grid
+    # (VGS above the top, |VDS| beyond the span, the source below the bulk or above the top
+    # VSB) counts as outside, each edge on its own; a point inside counts as inside.
+    from pathlib import Path
+
+    from models.devices.table import outside_table
+    from optimise.files.techfile import load_tech
+
+    root = Path(__file__).resolve().parents[1]
+    t = load_tech(root / "studies" / "tech" / "demo180-bsim3-tables.toml").tables[Polarity.N]
+    vgs_top, span, vsb_top = float(t.vgs[-1]), float(t.span), float(t.vsb[-1])
+    inside = (0.5 * vgs_top, 0.5 * span, 0.0)  # (vgb, vdb, vsb) in the frame
+    cases = [inside,
+             (vgs_top + 0.05, 0.5 * span, 0.0),  # gate above the grid
+             (0.5 * vgs_top, span + 0.05, 0.0),  # drain beyond the span
+             (0.5 * vgs_top, 0.5 * span, -0.05),  # source below the bulk
+             (vsb_top + 0.5 * vgs_top, vsb_top + 0.06, vsb_top + 0.05)]  # source above the top VSB
+    got = outside_table(t, *(np.array([c[k] for c in cases]) for k in range(3)))
+    assert got.tolist() == [False, True, True, True, True]

@@ -199,3 +199,25 @@ def test_unsized_mirror_sigma_adds_its_share_from_a_finite_difference_of_the_bia
     expect = np.hypot(ideal.summary["iq_sigma_pct"][0], share)
     assert share > 0.3 * ideal.summary["iq_sigma_pct"][0]  # a visible share, so the check can fail
     assert with_mirror.summary["iq_sigma_pct"][0] == approx(expect, rel=1e-6)
+
+
+def test_unequal_mirror_currents_into_the_driven_gate_are_taken_by_the_driver(monkeypatch):
+    # A finite output resistance on the top source only (unsized mirror, r_out = 1 Mohm,
+    # v_ref = 0: I = ib + V_across / r_out) makes the two bias currents differ. The surplus
+    # enters the driven gate gp, where the first stage takes it at rest; the resistor still
+    # carries the bottom source's ib, so the gate-to-gate voltage and Iq are the ideal
+    # hand values (KCL at gn). The stage's fast solve, with the drive current set from its
+    # residual, must balance this without the nodal Newton fallback.
+    from models.circuit.nodal import NodalSystem
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a fallback solve was needed")
+
+    monkeypatch.setattr(NodalSystem, "solve", refuse)
+    design = make_design("fixed-bias", {"mn_out": (WN, FB_L), "mp_out": (WP, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    mirrors = {"fixed-bias": {"ib_top": Mirror(r_out=1e6)}}
+    res = evaluate(design, TECH_SQ, COND, dataclasses.replace(TARGETS, mirrors=mirrors))
+    assert res.converged.all()
+    for j, vdd in enumerate(res.vdd):
+        # The gates to 1e-10 V: 1e-9 relative (about 1.5 uA of surplus here, so it is seen).
+        assert res.pvt["iq_a"][0, j] == approx(fixed_bias_hand(vdd, WN, WP)["iq"], rel=1e-9)
