@@ -1,5 +1,6 @@
-"""Device capacitances in the triode region and the EKV interpolation's derivative, against
-textbook closed forms and a finite difference.
+"""Device-level figures against textbook closed forms, a finite difference and facts of the
+trade: capacitances in the triode region, the EKV interpolation's derivative, the table
+grid's edges and the default diffusion extension.
 
 Meyer's level-1 gate capacitances in triode (J. E. Meyer, "MOS models and circuit
 simulation", RCA Review 32, 1971; the same expressions in P. Antognetti, G. Massobrio,
@@ -62,3 +63,17 @@ def test_a_point_beyond_any_one_edge_of_the_tables_is_flagged():
              (vsb_top + 0.5 * vgs_top, vsb_top + 0.06, vsb_top + 0.05)]  # source above the top VSB
     got = outside_table(t, *(np.array([c[k] for c in cases]) for k in range(3)))
     assert got.tolist() == [False, True, True, True, True]
+
+
+def test_default_diffusion_extension_is_five_lambda():
+    # Lambda design rules of the MOSIS SCMOS kind (from memory): a contacted source/drain
+    # reaches 5 lambda beyond the gate (poly-to-contact 2, contact 2, active overlap 1) and
+    # L_min = 2 lambda, so the extension is 2.5 L_min when the file gives none.
+    from stage_helpers import make_tech
+
+    from models.devices.tech import ModelKind
+
+    tech = make_tech(ModelKind.SQUARE_LAW, mos_tech(l_min=0.35e-6), mos_tech(l_min=0.5e-6))
+    for pol, l_min in ((Polarity.N, 0.35e-6), (Polarity.P, 0.5e-6)):
+        lam = l_min / 2.0
+        assert tech.extension(pol) == pytest.approx(5.0 * lam, rel=1e-15)
