@@ -221,3 +221,34 @@ def test_unequal_mirror_currents_into_the_driven_gate_are_taken_by_the_driver(mo
     for j, vdd in enumerate(res.vdd):
         # The gates to 1e-10 V: 1e-9 relative (about 1.5 uA of surplus here, so it is seen).
         assert res.pvt["iq_a"][0, j] == approx(fixed_bias_hand(vdd, WN, WP)["iq"], rel=1e-9)
+
+
+def test_sized_mirrors_add_their_two_devices_to_the_area_with_the_layout_factor():
+    # A sized 1:1 mirror is its output device plus its own input diode: 2 W L each, and the
+    # layout factor (1.5 here, so leaving it out is seen) over the whole drawn area.
+    design = make_design("fixed-bias", {"mn_out": (WN, FB_L), "mp_out": (WP, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    mirrors = {"fixed-bias": {"ib_top": Mirror(w=3e-6, l=2e-6), "ib_bot": Mirror(w=5e-6, l=1e-6)}}
+    res = evaluate(design, TECH_SQ, COND, dataclasses.replace(TARGETS, mirrors=mirrors))
+    hand = TARGETS.layout_factor * ((WN + WP) * FB_L + 2 * 3 * 2 + 2 * 5 * 1)  # um^2
+    assert res.summary["area_um2"][0] == approx(hand, rel=1e-12)
+
+
+def test_loop_gain_falls_twenty_decibels_a_decade_down_to_the_unity_gain_frequency(fixed_bias_amp):
+    # The Bode data of one design (models.evaluate.loop_gain_at): 0 dB and the phase margin at
+    # the unity-gain frequency evaluate reports, and a Miller-compensated amplifier's loop
+    # gain falls at 20 dB per decade between its dominant pole and f_u (Gray, Hurst, Lewis,
+    # Meyer, 5th ed., sec. 9.4), so a decade below f_u it is 20 dB, to within what the
+    # non-dominant poles near f_u take off at f_u (measured 1.2 dB here: 2 dB allowed).
+    from models.evaluate import loop_gain_at
+
+    design = make_design("fixed-bias", {"mn_out": (WN, FB_L), "mp_out": (WP, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    targets = dataclasses.replace(TARGETS, amplifier=AMP)
+    j = 0
+    f_u = float(fixed_bias_amp.pvt["ugf_hz"][0, j])
+    pm = float(fixed_bias_amp.pvt["phase_margin_deg"][0, j])
+    assert 10 * fixed_bias_amp.pvt["p1_hz"][0, j] < 0.1 * f_u  # the decade below f_u is above p1
+    mag, phase = loop_gain_at(design, TECH_SQ, Corner.TT, T_TEST, float(fixed_bias_amp.vdd[j]), targets,
+                              np.array([0.1 * f_u, f_u]))
+    assert mag[1] == pytest.approx(0.0, abs=1e-6)  # the crossing solved to 1e-9 decades
+    assert 180.0 + phase[1] == approx(pm, rel=1e-9)
+    assert mag[0] == pytest.approx(20.0, abs=2.0)
