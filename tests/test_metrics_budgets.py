@@ -292,3 +292,31 @@ def test_a_design_meeting_every_target_is_feasible():
     assert all(v[0] >= 0 for v in ok.margins.values()) and ok.feasible[0]
     bad = evaluate(design, TECH_SQ, COND, dataclasses.replace(TARGETS, iq_max=1e-6))
     assert bad.margins["iq_high"][0] < 0 and not bad.feasible[0]
+
+
+def test_peak_output_current_summary_is_the_largest_either_way(fixed_bias_amp):
+    # iout_peak_a (the short-circuit figure) is the largest peak current at full drive over
+    # both directions and every supply: the wider N device's sink current at the highest supply.
+    res = fixed_bias_amp
+    hand = max(max(fixed_bias_hand(v, WN, WP)[k] for k in ("peak_src", "peak_snk")) for v in res.vdd)
+    assert hand > 1.2 * min(min(fixed_bias_hand(v, WN, WP)[k] for k in ("peak_src", "peak_snk")) for v in res.vdd)
+    assert res.summary["iout_peak_a"][0] == approx(hand, rel=1e-9)  # peak currents to 1e-9
+
+
+def test_a_metric_that_is_not_a_number_at_a_solved_point_is_a_violation(monkeypatch):
+    # Numerical failure is never silent: a peak current that comes out nan at a point whose
+    # solve reported success must make its margin fail (-1), not pass.
+    import models.evaluate as ev
+
+    real = ev.driven_point
+
+    def nan_peak(stage, devs, bias, vdd, nodes, direction, targets):
+        out = list(real(stage, devs, bias, vdd, nodes, direction, targets))
+        out[1] = np.where(vdd == COND.vdd_min, np.nan, out[1])
+        return tuple(out)
+
+    monkeypatch.setattr(ev, "driven_point", nan_peak)
+    design = make_design("fixed-bias", {"mn_out": (WN, FB_L), "mp_out": (WP, FB_L)}, dict(ib=IB, r_bias=R_BIAS))
+    res = evaluate(design, TECH_SQ, COND, TARGETS)
+    assert res.converged.all()
+    assert res.margins["load_current"][0] == -1.0 and not res.feasible[0]
