@@ -75,7 +75,7 @@ TESTS = {
     "models/devices/": [*MODEL_TESTS, "tests/test_amplifier.py"],
     "models/devices/table": ["tests/test_device_checks.py", "tests/test_table_kind.py", "tests/test_mos.py"],
     "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
-    "models/wording.py": ["tests/test_messages.py", "tests/test_metrics.py"],
+    "models/wording.py": ["tests/test_wording.py", "tests/test_messages.py", "tests/test_metrics.py"],
     "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py"],
     "optimise/review/evaluation.py": ["tests/test_metrics.py", "tests/test_cli.py", "tests/test_json_safe.py"],
     "optimise/search/export.py": ["tests/test_metrics.py", "tests/test_search.py", "tests/test_compare_pick.py"],
