@@ -31,6 +31,10 @@ records' ``__post_init__``), and numerical guards: constants below 1e-12 in magn
 keyword arguments that are solver tolerances or iteration limits (``xtol``, ``tol``,
 ``max_iter``, ``iterations``, ``step_max``).
 
+Survivors argued equivalent (`EQUIVALENT`: the change cannot alter any output, each with
+its reason) are marked in the survivor list, and each scope's kill rate is printed twice:
+over every mutant, and over the mutants less those argued equivalent.
+
 Sampling: when a module has more sites than --max-mutants (default 6: about 190 mutants,
 35-60 minutes with two jobs on two shared cores), a seeded random sample of that many is
 taken (the same seed and the same modules give the same mutants). --rerun reads an earlier
