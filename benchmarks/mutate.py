@@ -64,16 +64,17 @@ OPTIMISE_TARGETS = ["optimise/review/evaluation.py", "optimise/search/export.py"
 
 # A fast subset per module: the direct checks of the metrics first, then the device, solver
 # and stage tests; the slower suites (CLI, every Iq case in ngspice) are left out for models/.
-MODEL_TESTS = ["tests/test_metrics.py", "tests/test_metrics_budgets.py", "tests/test_device_checks.py", "tests/test_mos.py",
-               "tests/test_mismatch.py", "tests/test_solvers.py", "tests/test_stages.py", "tests/test_metrics_ngspice.py", "tests/test_mos_ngspice.py"]
+MODEL_TESTS = ["tests/test_metrics.py", "tests/test_metrics_budgets.py", "tests/test_device_checks.py",
+               "tests/test_mos.py", "tests/test_mismatch.py", "tests/test_solvers.py", "tests/test_stages.py",
+               "tests/test_metrics_ngspice.py", "tests/test_mos_ngspice.py"]
 # Module (path prefix; the longest match wins) -> tests run against its mutants, the module's
 # own tests first so that -x stops early on a kill.
 TESTS = {
     "models/": MODEL_TESTS,
     "models/amplifier/": ["tests/test_metrics_budgets.py", "tests/test_amplifier.py", "tests/test_amplifier_ngspice.py",
                           "tests/test_metrics.py"],
-    "models/circuit/mirrors.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py", "tests/test_mirrors_ngspice.py",
-                                  "tests/test_metrics.py"],
+    "models/circuit/mirrors.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py",
+                                  "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
     "models/sources.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py", "tests/test_mirrors_ngspice.py",
                           "tests/test_metrics.py"],
     "models/devices/": [*MODEL_TESTS, "tests/test_amplifier.py"],
@@ -114,8 +115,9 @@ GUARD_KEYWORDS = {"xtol", "tol", "rtol", "atol", "max_iter", "iterations", "step
 # Survivors argued equivalent: (path, text of the mutated line, change, why no output can
 # change[, which one]: the ordinal among the file's sites with that change on lines holding
 # that text, when only one of them is equivalent). Matched on the line's text, so they follow
-# the code when lines move; a changed line drops out of this list and its mutant counts again. Reported apart and left out of
-# the second kill rate (killed / (mutants - equivalent)); the first rate counts them.
+# the code when lines move; a changed line drops out of this list and its mutant counts
+# again. Reported apart and left out of the second kill rate (killed / (mutants -
+# equivalent)); the first rate counts them.
 EQUIVALENT = [
     ("models/amplifier/response.py", "slope = np.real(-1j * w[..., None] * mu / x)", "unary - removed",
      "the slope is only the Newton derivative of the bracketed unity-gain search: the crossing is the same to "
