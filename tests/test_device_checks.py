@@ -104,3 +104,26 @@ def test_table_gate_voltage_for_a_current_carries_that_current(vsb):
     vg = mos.gate_voltage_sat(m, w, l, i, vs, 0.0, vds)
     assert np.all(vg - vs > 0.0)
     assert mos.current(m, w, l, vg, vs + vds, vs, 0.0) == pytest.approx(i, rel=1e-9, abs=0.0)
+
+
+def test_table_narrow_width_weight_is_one_at_the_narrow_width_and_zero_at_the_reference():
+    # The narrow-width correction is linear in 1/W through the two tabulated widths: all of it
+    # at w_narrow, none at the reference width w_ref, half-way at the harmonic mean, and on
+    # past w_ref towards 1/W = 0 (negative) for wider devices. Closed form: rounding only.
+    from pathlib import Path
+
+    from models.devices import mos
+    from models.devices.table_data import TableSelect, constants
+    from optimise.files.techfile import load_tech
+
+    root = Path(__file__).resolve().parents[1]
+    tech = load_tech(root / "studies" / "tech" / "demo180-bsim3-tables.toml")
+    t = tech.tables[Polarity.N]
+    wn, wr = float(t.w_narrow), float(t.w_ref)
+    w = np.array([wn, wr, 2.0 / (1.0 / wn + 1.0 / wr), 1e3 * wr])
+    n = w.size
+    m = mos.at_conditions(tech.nmos, Polarity.N, ModelKind.TABLE, np.full(n, tech.tnom), tech.tnom,
+                          table=TableSelect(t, t.slots["tt"], np.full(n, tech.tnom)))
+    f = constants(m, w, np.full(n, 0.36e-6)).narrow
+    expect = [1.0, 0.0, 0.5, (1e-3 / wr - 1.0 / wr) / (1.0 / wn - 1.0 / wr)]
+    assert f == pytest.approx(expect, rel=1e-12, abs=1e-12)
