@@ -22,6 +22,7 @@ from models.wording import eng, percent
     (999.96, "V", "1 kV"),  # rounding carries the mantissa to the next prefix
     (1500.0, "", "1.5k"),  # a plain number keeps its prefix letter glued on
     (20e-15, "F", "20 fF"),
+    (2.2e-12, "F", "2.2 pF"),
     (4.7e-9, "s", "4.7 ns"),
     (1.0, "W", "1 W"),
 ])
