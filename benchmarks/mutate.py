@@ -162,7 +162,8 @@ EQUIVALENT = [
     ("models/stages/common_source.py", "return i_p, i_n, gpd - gnd", "- -> +",
      "d_net is only the Newton derivative of the bracketed headroom solve: the same root to its tolerance"),
     ("models/stages/fixed_bias.py", "gn, ok = solve_bracketed(fun, -vb - 0.5, vdd + 0.5, x0=0.5 * (vdd - vb))",
-     "0.5 -> 0.5 x 1.05", "the Newton start of a bracketed solve: the same root to its tolerance"),
+     "0.5 -> 0.5 x 1.05", "the bracket ends (0.5 V beyond either rail) and the Newton start of a bracketed solve "
+     "whose root lies well inside: the same root to its tolerance"),
     ("models/stages/floating_loop.py", "other, ok = solve_bracketed(fun, -0.5 * np.ones_like(vdd), vdd + 0.5, x0=x0)",
      "* -> /", "-0.5 / ones is -0.5 * ones exactly"),
 ]
