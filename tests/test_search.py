@@ -202,5 +202,8 @@ def test_a_run_with_nothing_feasible_keeps_the_full_header_and_names_the_blockin
         assert info["front_size"] == 0, arch
         assert info["blocked"]["blocking_constraint"] == "area", arch
         assert info["blocked"]["closest_margin"] < -0.9, arch  # area far above 1 um^2: margin near -(A - 1)/1
+        # The same worst margin in percent (a hundredth part, rounding only).
+        assert info["blocked"]["closest_margin_pct"] == pytest.approx(100.0 * info["blocked"]["closest_margin"],
+                                                                      rel=1e-12, abs=0.0), arch
         assert any("area" in v for v in info["blocked"]["closest_violations"]), arch
     capsys.readouterr()

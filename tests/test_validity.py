@@ -140,3 +140,14 @@ def test_optimise_and_report_warn_once_per_run(tmp_path):
     assert md.count("designs use lengths outside") == 2  # at a glance and in the assumptions
     assert "What the ekv model leaves out" in md and "DIBL" in md and "calibrate --tables" in md
     assert "Bias sources are ideal" in md
+
+
+def test_warnings_count_the_designs_over_every_population():
+    # Counted, not flagged: two populations, two of the three designs outside the fitted set
+    # (one in each), one of the three with an unequal replica.
+    tech = load_tech(CALIBRATED)
+    lines = length_warnings(tech, [floating(), floating(l_out=0.72, l_d1=0.72), floating(l_loop=1.08)])
+    assert len(lines) == 1 and lines[0].startswith("2 of 3 designs use lengths outside")
+    lines = length_warnings(tech, [floating(), floating(l_d1=0.40)])
+    assert len(lines) == 1 and lines[0].startswith("1 of 2 designs give a replica a different length")
+    assert "mn_d1 vs mn_out in 1 (e.g." in lines[0]
