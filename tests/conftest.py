@@ -20,7 +20,6 @@ import os
 import shutil
 
 import pytest
-from _pytest.python_api import ApproxScalar
 
 from optimise.spice import ngspice
 
@@ -28,6 +27,10 @@ from optimise.spice import ngspice
 # currents (nA), capacitances (fF) and sensitivities compared here sit at or below it, so a
 # comparison such as approx(1e-9 A, rel=1e-9) would accept anything under a picoampere. No
 # absolute floor, then: a test that needs one says abs= itself, with its reason.
+# The class of a scalar approx (its module moved between pytest releases: python_api, approx).
+ApproxScalar = type(pytest.approx(1.0))
+if not hasattr(ApproxScalar, "DEFAULT_ABSOLUTE_TOLERANCE"):
+    raise RuntimeError(f"pytest {pytest.__version__}: approx has no DEFAULT_ABSOLUTE_TOLERANCE to set to 0")
 ApproxScalar.DEFAULT_ABSOLUTE_TOLERANCE = 0.0
 
 REQUIRE_ENV = "STAGEFRONT_REQUIRE_NGSPICE"
