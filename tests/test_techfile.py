@@ -121,6 +121,24 @@ def test_suffixed_strings_become_si(tmp_path):
     assert (tech.nmos.kp, tech.nmos.a_vt, tech.nmos.a_beta, tech.grid) == (2.8e-4, 4.5e-9, 1e-8, 5e-9)
 
 
+def test_junctions_are_optional_and_read_with_units(tmp_path):
+    # Without junction keys: no junction capacitance (cj = cjsw = 0), the other constants as
+    # given; with them, suffixed strings in their units (1 fF/um^2 = 1e-3 F/m^2).
+    plain = load_tech(write(tmp_path, VALID))
+    assert (plain.nmos.cj, plain.nmos.cjsw) == (0.0, 0.0)
+    data = copy.deepcopy(VALID)
+    data["nmos"].update(cj="1m", mj=0.4, pb=0.75, cjsw="240p", mjsw=0.3, pbsw=0.8)
+    tech = load_tech(write(tmp_path, data))
+    assert (tech.nmos.cj, tech.nmos.mj, tech.nmos.pb, tech.nmos.cjsw, tech.nmos.mjsw, tech.nmos.pbsw) == \
+        pytest.approx((1e-3, 0.4, 0.75, 2.4e-10, 0.3, 0.8), rel=1e-12)
+    assert tech.pmos.cj == 0.0
+
+
+def test_junction_potential_out_of_range(tmp_path):
+    with pytest.raises(InputError, match=r"\[pmos\] pb = 5.0 V is outside the allowed range \[0.1, 2\] V"):
+        load_tech(write(tmp_path, changed("pmos", "pb", 5)))
+
+
 def test_tnom_defaults_to_nominal(tmp_path):
     assert load_tech(write(tmp_path, VALID)).tnom == T_NOMINAL
 

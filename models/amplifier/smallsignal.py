@@ -57,7 +57,7 @@ def device_capacitances(stage, devs, tech, nodes, vdd) -> dict:
         dev = devs[spec.role]
         vb = v[spec.s] if dev.tied else v[spec.rail]
         out[spec.role] = capacitances(dev.mos, tech.mos(spec.polarity), dev.w, dev.l, v[spec.g], v[spec.d],
-                                      v[spec.s], vb)
+                                      v[spec.s], vb, tech.diffusion(spec.polarity, dev.w))
     return out
 
 

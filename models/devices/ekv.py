@@ -126,7 +126,8 @@ def capacitances(m: Mos, mt: MosTech, w, l, vgb, vdb, vsb):
     exchanged, cgb = Cox W L (n - 1)/n (1 - cgs/(Cox W L) - cgd/(Cox W L)).
     Limits: strong-inversion saturation cgs = 2/3 Cox W L, cgd = 0; triode at VDS = 0
     cgs = cgd = 1/2 Cox W L; weak inversion cgb = Cox W L (n - 1)/n. Overlap W Cov on both
-    the source and the drain side. No junction data in the technology file: cdb = csb = 0.
+    the source and the drain side. cdb = csb = 0 here: the technology's junctions (CJ, CJSW)
+    are added by `mos.capacitances`.
 
     Returns (cgs, cgd, cgb, cdb, csb), broadcast shape of the inputs.
 

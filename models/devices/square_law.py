@@ -103,8 +103,8 @@ def capacitances(m: Mos, mt: MosTech, w, l, vgb, vdb, vsb):
     cgd = 0; triode cgs = 2/3 C0 (1 - (VDSAT - VDS)^2 / (2 VDSAT - VDS)^2),
     cgd = 2/3 C0 (1 - VDSAT^2 / (2 VDSAT - VDS)^2). Overlap W Cov on the source and
     drain sides (CGSO = CGDO = Cov), none to the bulk. A reversed device (VDS < 0) is the
-    same device with drain and source exchanged. No junction data in the technology file:
-    cdb = csb = 0 (level 1 with CJ = 0).
+    same device with drain and source exchanged. cdb = csb = 0 here: the junctions of the
+    technology (CJ, CJSW) are added by `mos.capacitances`.
 
     Returns (cgs, cgd, cgb, cdb, csb), broadcast shape of the inputs.
 

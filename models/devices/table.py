@@ -210,7 +210,9 @@ def capacitances(m: Mos, mt, w, l, vgb, vdb, vsb):
     gate-source part is -cgs, gate-drain -cgd, gate-bulk cgg + cgs + cgd (the rest of the
     gate charge), each clipped at zero, and the overlap W Cov of the technology's summary
     constants is added on the source and drain sides. The tables hold no junction data
-    (the tabulation draws no source or drain area): cdb = csb = 0, as for the analytic kinds.
+    (the tabulation draws no source or drain area): cdb = csb = 0 here, and the junctions of
+    the technology's summary constants (CJ, CJSW, measured from the card by calibrate) are
+    added by `mos.capacitances`, as for the analytic kinds.
 
     Returns (cgs, cgd, cgb, cdb, csb), broadcast shape of the inputs.
 

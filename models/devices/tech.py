@@ -71,6 +71,15 @@ class MosTech:
     cov: float  # F/m      gate overlap capacitance per width, each side
     w_min: float  # m      minimum drawn width
     l_min: float  # m      minimum drawn length
+    # Source/drain junctions (SPICE's CJ, MJ, PB, CJSW, MJSW, PBSW): zero-bias capacitance
+    # per diffusion area and per diffusion perimeter, with their grading exponents and
+    # built-in potentials. cj = cjsw = 0: no junction capacitance (`mos.junction_capacitance`).
+    cj: float = 0.0  # F/m^2
+    mj: float = 0.5  # 1
+    pb: float = 0.8  # V
+    cjsw: float = 0.0  # F/m
+    mjsw: float = 0.33  # 1
+    pbsw: float = 0.8  # V
 
     def __post_init__(self) -> None:
         check_range("vt0", self.vt0, 0.05, 3.0, "V")
@@ -87,6 +96,12 @@ class MosTech:
         check_range("cov", self.cov, 0.0, 1e-8, "F/m")
         check_range("w_min", self.w_min, 1e-8, 1e-4, "m")
         check_range("l_min", self.l_min, 1e-8, 1e-4, "m")
+        check_range("cj", self.cj, 0.0, 0.1, "F/m^2")
+        check_range("cjsw", self.cjsw, 0.0, 1e-8, "F/m")
+        check_range("mj", self.mj, 0.01, 0.9, "")
+        check_range("mjsw", self.mjsw, 0.01, 0.9, "")
+        check_range("pb", self.pb, 0.1, 2.0, "V")
+        check_range("pbsw", self.pbsw, 0.1, 2.0, "V")
 
 
 @dataclass(frozen=True, slots=True)
@@ -154,6 +169,15 @@ class Tech:
         """Source/drain diffusion extension [m] of one polarity: the file's value, or
         DIFFUSION_PER_LMIN x its minimum length."""
         return self.diffusion_extension or DIFFUSION_PER_LMIN * self.mos(polarity).l_min
+
+    def diffusion(self, polarity: Polarity, w):
+        """Area [m^2] and perimeter [m] of each source or drain diffusion of a device of
+        width w: a rectangle W wide reaching the extension E beyond the gate, area W E,
+        perimeter 2 (W + E), the gate-side edge included as SPICE's PD and PS count it by
+        default. The netlists write these as AD/AS/PD/PS, the junction capacitances use them."""
+        e = self.extension(polarity)
+        w = np.asarray(w, dtype=float)
+        return w * e, 2.0 * (w + e)
 
     def snap(self, x):
         """Round lengths [m] to the drawing grid (never below one grid step)."""

@@ -9,7 +9,8 @@ Format (every number SI, or a string with an engineering suffix such as "280u"):
     diffusion_extension = "0.5u"  # m, optional: source/drain length beyond the gate, for the
                              #   netlists' AD/AS/PD/PS (default 2.5 x l_min of each polarity)
     [nmos]                   # every MosTech field: vt0 kp n gamma phi va_per_l tc_vt
-    ...                      #   mu_exp a_vt a_beta cox cov w_min l_min
+    ...                      #   mu_exp a_vt a_beta cox cov w_min l_min; optional junctions
+                             #   cj (F/m^2) mj pb (V) cjsw (F/m) mjsw pbsw (V): none without
     [pmos]
     ...
     [corners.ff]             # optional; any of tt ff ss fs sf; tt defaults to no shift
@@ -54,7 +55,7 @@ from .tables import (
 MOS_UNITS = {
     "vt0": "V", "kp": "A/V^2", "n": "", "gamma": "V^0.5", "phi": "V", "va_per_l": "V/m",
     "tc_vt": "V/K", "mu_exp": "", "a_vt": "V*m", "a_beta": "m", "cox": "F/m^2", "cov": "F/m",
-    "w_min": "m", "l_min": "m",
+    "w_min": "m", "l_min": "m", "cj": "F/m^2", "mj": "", "pb": "V", "cjsw": "F/m", "mjsw": "", "pbsw": "V",
 }  # fmt: skip
 CORNER_UNITS = {"dvt_n": "V", "kp_n": "", "dvt_p": "V", "kp_p": ""}
 TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table", "calibration",
@@ -62,16 +63,19 @@ TOP_KEYS = ("name", "model", "tnom", "grid", "nmos", "pmos", "corners", "table",
 TABLE_KEYS = ("file", "card", "nmos", "pmos")
 TOP_REQUIRED = ("name", "model", "grid", "nmos", "pmos")
 MOS_KEYS = tuple(f.name for f in dataclasses.fields(MosTech))
+# The junction keys are optional (no junction capacitance without cj and cjsw).
+JUNCTION_KEYS = ("cj", "mj", "pb", "cjsw", "mjsw", "pbsw")
+MOS_REQUIRED = tuple(k for k in MOS_KEYS if k not in JUNCTION_KEYS)
 MODELS = tuple(k.value for k in ModelKind)
 CORNERS = tuple(c.value for c in Corner)
 
 
 def _mos(where: str, table: str, data) -> MosTech:
     data = sub_table(where, "", table, data)
-    check_keys(where, table, data, MOS_KEYS, MOS_KEYS)
+    check_keys(where, table, data, MOS_KEYS, MOS_REQUIRED)
     # va_per_l = inf is the documented way to switch length modulation off.
     values = {k: number(where, table, k, data[k], MOS_UNITS.get(k, ""), allow_inf=k == "va_per_l")
-              for k in MOS_KEYS}
+              for k in MOS_KEYS if k in data}
     return build(where, table, MosTech, values)
 
 

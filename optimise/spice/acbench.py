@@ -51,11 +51,17 @@ F_START, F_STOP = 1.0, 1e10  # Hz
 
 
 def cap_cards(mod, cards: str, tech) -> str:
-    """Level-1 cards (one line per device, topology order) with TOX, CGSO and CGDO added."""
+    """Level-1 cards (one line per device, topology order) with TOX, CGSO and CGDO added, and
+    the junctions CJ, MJ, CJSW, MJSW, PB (with the netlists' AD/AS/PD/PS they give the
+    drain and source junction capacitances; level 1 has one built-in potential PB for the
+    bottom and the sidewall, so a technology whose pbsw differs from pb is written with pb
+    for both)."""
     out = []
     for spec, line in zip(mod.TOPOLOGY.devices, cards.splitlines()):
         mt = tech.mos(spec.polarity)
         extra = f" tox={number(EPS_OX / mt.cox)} cgso={number(mt.cov)} cgdo={number(mt.cov)}"
+        extra += (f" cj={number(mt.cj)} mj={number(mt.mj)} cjsw={number(mt.cjsw)} mjsw={number(mt.mjsw)}"
+                  f" pb={number(mt.pb)}")
         out.append(line[:line.rindex(")")] + extra + ")")
     return "\n".join(out)
 

@@ -3,9 +3,10 @@ technology's diffusion extension (`models.devices.tech.Tech.extension`).
 
 Each diffusion is a rectangle W wide reaching the extension E beyond the gate:
 area W x E, perimeter 2 (W + E) (the gate-side edge included, as SPICE's PD/PS count
-it by default). Without them ngspice warns per device and leaves the junction
-capacitances at zero; stagefront's own figures do not use them. Numbers are written
-with 12 significant digits, so no binary noise of the products reaches the deck.
+it by default; `models.devices.tech.Tech.diffusion`, which the junction capacitances of
+the small-signal model use too). Without them ngspice warns per device and leaves the
+junction capacitances at zero. Numbers are written with 12 significant digits, so no
+binary noise of the products reaches the deck.
 """
 from __future__ import annotations
 
@@ -21,7 +22,8 @@ def _num(x: float) -> str:
 
 
 def geometry(w: float, extension: float) -> str:
-    """` ad=.. as=.. pd=.. ps=..` for one device of width w [m] and extension [m]."""
+    """` ad=.. as=.. pd=.. ps=..` for one device of width w [m] and extension [m] (the
+    rectangle of `Tech.diffusion`)."""
     area, perimeter = _num(w * extension), _num(2.0 * (w + extension))
     return f" ad={area} as={area} pd={perimeter} ps={perimeter}"
 
