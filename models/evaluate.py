@@ -16,7 +16,7 @@ import numpy as np
 
 from .circuit.mirrors import checked, mirror_area, mirror_deviations, source_keys, source_states
 from .amplifier.inside import analyse as _amplifier
-from .amplifier.smallsignal import common_source
+from .amplifier.smallsignal import common_source, output_junctions
 from .devices import mismatch as _mm
 from .devices.mos import gate_capacitance, inversion_coefficient
 from .devices.table import gate_capacitance_from, outside_table
@@ -102,9 +102,11 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     if amp is None:
         # No amplifier described: the output pole of a common-source pair with the
         # pole-splitting limit Cc >> C1, C2, gm2 / (C1 + C2) (Gray, Hurst, Lewis, Meyer,
-        # 5th ed., sec. 9.4), C1 the output gates, C2 the load; the followers' output pole
-        # stays gm / C_load (their gate capacitance is bootstrapped by the output).
-        c_out = targets.c_load + (c_drive if common_source(stage) else 0.0)
+        # 5th ed., sec. 9.4), C1 the output gates, C2 the load and the output devices'
+        # junctions; the followers' output pole stays gm / C2 (their gate capacitance is
+        # bootstrapped by the output).
+        c_out = targets.c_load + output_junctions(stage, devs, tech, nodes, vdd) + \
+            (c_drive if common_source(stage) else 0.0)
         fp2 = gm / (2.0 * np.pi * c_out)
     else:
         topo = stage.TOPOLOGY

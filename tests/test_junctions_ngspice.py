@@ -15,6 +15,7 @@ import pytest
 from models.devices.mos import junction_capacitance, junctions
 from models.devices.tech import Corner, Polarity
 from models.evaluate import evaluate
+from models.stages import get_stage
 from optimise.spice import acbench, ngspice
 from optimise.spice import testbench as tb
 from test_amplifier_ngspice import COND, STUDY, TARGETS, T, VDD
@@ -102,3 +103,26 @@ def test_ac_bench_with_junctions_against_ngspice(junction_study, name):
     moved = abs(float(bare.pvt["phase_margin_deg"][0, 0]) - pm)
     assert moved > 1.0, moved
 
+
+
+def test_output_pole_without_amplifier_counts_the_output_junctions(junction_study):
+    # No amplifier: fp2 = gm / (2 pi (C_load + C_gates + C_junctions)) (the pole-splitting
+    # limit, Gray, Hurst, Lewis, Meyer, 5th ed., sec. 9.4). Hand sum: the two output drains'
+    # junctions at VDD/2 of reverse bias, from `junctions` on the diffusion geometry.
+    d = design("fb-demo")
+    study = junction_study
+    targets = dataclasses.replace(study.targets, amplifier=None)
+    bare_tech = dataclasses.replace(study.tech, nmos=dataclasses.replace(study.tech.nmos, cj=0.0, cjsw=0.0),
+                                    pmos=dataclasses.replace(study.tech.pmos, cj=0.0, cjsw=0.0))
+    r_j, r_bare = evaluate(d, study.tech, COND, targets), evaluate(d, bare_tech, COND, targets)
+    mod = get_stage(d.architecture)
+    c_j = 0.0
+    for role in (mod.PULL_UP, mod.PULL_DOWN):
+        spec = mod.TOPOLOGY.spec(role)
+        area, perimeter = study.tech.diffusion(spec.polarity, float(d.w[role][0]))
+        c_j += float(junctions(study.tech.mos(spec.polarity), area, perimeter, 0.5 * VDD))
+    assert c_j > 0.02 * targets.c_load  # the junctions are worth checking here
+    # gm and the gates are the same on both sides: the poles' ratio is that of the totals.
+    c_bare = targets.c_load + float(r_bare.pvt["c_drive_f"][0, 0])
+    ratio = float(r_bare.pvt["fp2_hz"][0, 0]) / float(r_j.pvt["fp2_hz"][0, 0])
+    assert ratio == pytest.approx((c_bare + c_j) / c_bare, rel=1e-12)

@@ -17,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..circuit.topology import RAILS
-from ..devices.mos import capacitances
+from ..devices.mos import capacitances, junctions
 
 GMIN = 1e-12  # S from every node to ground, as SPICE's GMIN: keeps G regular when length modulation is off
 
@@ -59,6 +59,26 @@ def device_capacitances(stage, devs, tech, nodes, vdd) -> dict:
         out[spec.role] = capacitances(dev.mos, tech.mos(spec.polarity), dev.w, dev.l, v[spec.g], v[spec.d],
                                       v[spec.s], vb, tech.diffusion(spec.polarity, dev.w))
     return out
+
+
+def output_junctions(stage, devs, tech, nodes, vdd):
+    """Junction capacitance [F] (m,) the devices put on the output node at rest (output at
+    VDD/2): each drain or source on the output, against its bulk (a rail, or the device's own
+    source for a device in its own well; a source on its own well carries none, and the
+    well's own junction to the substrate is not modelled)."""
+    v = rest_voltages(nodes, vdd)
+    total = np.zeros(np.shape(vdd))
+    for spec in stage.TOPOLOGY.devices:
+        dev = devs[spec.role]
+        mt = tech.mos(spec.polarity)
+        if mt.cj == 0.0 and mt.cjsw == 0.0:
+            continue
+        area, perimeter = tech.diffusion(spec.polarity, dev.w)
+        bulk = spec.s if dev.tied else spec.rail
+        for node in (spec.d, spec.s):
+            if node == "out" and node != bulk:
+                total = total + junctions(mt, area, perimeter, spec.polarity * (v["out"] - v[bulk]))
+    return total
 
 
 class _Stamp:
