@@ -14,7 +14,8 @@ around the demo designs (log-uniform factors), so the solver sees varied operati
 
 --table runs the 1.8 V demo study instead: its table technology (the BSIM3v3 card
 tabulated) beside the card's single-length EKV calibration, on the same designs in the same
-run (lengths 0.36-1.8 um, inside the tables and from the EKV fit's length; widths from 1 um),
+run; the table kind twice, with the compiled loop the stagefront command installs
+(optimise.search.compiled) and with the numpy reference alone (lengths 0.36-1.8 um, inside the tables and from the EKV fit's length; widths from 1 um),
 with the 3.3 V demo's [amplifier] table off and on (the 1.8 V study describes none).
 --mirrors makes every bias source a mirror (sized: W = 4 um, L = 2 um; sigma: 1 % and
 10 Mohm), to measure what the voltage-dependent sources cost the rest point.
@@ -35,12 +36,15 @@ from pathlib import Path
 import numpy as np
 
 from models.circuit.mirrors import Mirror, source_keys
+from models.devices import table_data
 from models.devices.constants import ZERO_CELSIUS
 from models.devices.tech import Corner
 from models.evaluate import Conditions, Design, evaluate
 from models.stages import get_stage
 from optimise.files.study import load_design, load_study
 from optimise.files.techfile import load_tech
+from optimise.search.compiled import forward as compiled_forward
+from optimise.search.compiled import install as install_compiled
 from optimise.search.runtime import keep_freed_memory
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -70,7 +74,8 @@ def main() -> None:
         keep_freed_memory()
     if args.table:
         study = load_study(ROOT / "studies" / "sensor-buffer-180.toml")
-        techs = [("ekv", load_tech(ROOT / "studies" / "tech" / "demo180-bsim3-calibrated.toml")), ("table", study.tech)]
+        techs = [("ekv", load_tech(ROOT / "studies" / "tech" / "demo180-bsim3-calibrated.toml")),
+                 ("table", study.tech), ("table numpy", study.tech)]
         cond = Conditions(tuple(Corner), (27 + ZERO_CELSIUS,), 1.8, 1.62, 1.98)
         # From 0.36 um, the shortest length of the single-length EKV calibration.
         limits = {"lmin": 0.36e-6, "lmax": 1.8e-6, "wmin": 1e-6}
@@ -101,6 +106,7 @@ def main() -> None:
         off = dataclasses.replace(on, amplifier=None, phase_margin_min=0.0, slew_min=0.0, gate_time_max=np.inf)
         cases = [("amplifier off", off), ("amplifier on", on)]
     for arch, (label, tech) in ((a, t) for a in archs for t in techs):
+        table_data.set_kernel(None if label == "table numpy" or not install_compiled() else compiled_forward)
         # The demo designs are drawn for the 3.3 V process (0.35 um lengths); with --table the
         # population's lengths are clipped into the tables' range below.
         base = load_design(ROOT / "studies" / f"sensor-buffer-{arch}.toml", design_tech)

@@ -20,6 +20,7 @@ from .files.tables import MAX_MONTECARLO, count
 from .files.units import format_eng
 from .review.evaluation import amplifier_dict, json_safe, result_to_dict
 from .review.montecarlo import confirm_sigma
+from .search.compiled import install as install_compiled
 from .search.runtime import keep_freed_memory
 
 
@@ -405,6 +406,7 @@ def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     keep_freed_memory()
+    install_compiled()
     try:
         for key in ("out", "models", "base", "design", "scheduler"):  # "" would mean the current folder
             if isinstance(getattr(args, key, None), str) and not getattr(args, key).strip():

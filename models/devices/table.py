@@ -60,26 +60,51 @@ def _start_vgs(m: Mos, w, l, i):
     return m.vt0 + m.n * m.ut * ekv_f_inverse(np.maximum(i, _FLOOR) / specific_current(m, w, l))
 
 
+# Consecutive full (clipped) steps after which an element is left where it is: 12 x 0.3 V
+# is beyond every tabulated VGS and VSB span, so its root, if any, lies outside the tables
+# (the bracket ends of an outer solve put a diode's source volts beyond the rails, say,
+# where only the sign of the answer is used).
+GIVE_UP = 12
+
+
 def _newton(fun, x, iterations=40, clip=0.3):
-    """Element-wise Newton on fun(x) -> (residual in ln I, its derivative)."""
-    done = np.zeros(np.shape(x), dtype=bool)
+    """Element-wise Newton on fun(x, idx) -> (residual in ln I, its derivative) of the
+    elements idx at their values x. Only the elements not yet converged are evaluated;
+    each element's iterates depend on it alone, so the answer is what iterating every
+    element to the last step would give, and a few slow elements cost only their own work.
+    An element that takes `GIVE_UP` full steps in a row is not followed further."""
+    shape = np.shape(x)
+    x = np.array(x, dtype=float).ravel()
+    idx = np.arange(x.size)
+    full = np.zeros(x.size, dtype=int)
     for _ in range(iterations):
-        r, d = fun(x)
+        r, d = fun(x[idx], idx)
         step = np.clip(r / np.where(np.abs(d) > 1e-30, d, 1e-30), -clip, clip)
-        x = np.where(done, x, x - step)
-        done = done | (np.abs(step) < 1e-10)
-        if done.all():
+        x[idx] = x[idx] - step
+        full[idx] = np.where(np.abs(step) >= clip, full[idx] + 1, 0)
+        idx = idx[(np.abs(step) >= 1e-10) & (full[idx] < GIVE_UP)]
+        if idx.size == 0:
             break
-    return x
+    return x.reshape(shape)
+
+
+def _part(c: TableConstants, idx, *arrays):
+    """The constants and the arrays of elements idx (all of them: as they are)."""
+    m = c.scale.shape[0]
+    arrays = tuple(np.broadcast_to(np.asarray(a, dtype=float), (m,)) for a in arrays)
+    if idx.size == m:
+        return (c, *arrays)
+    return (c.take(idx), *(a[idx] for a in arrays))
 
 
 def gate_from(c: TableConstants, m: Mos, w, l, i, vsb, vds):
     """Frame VGB carrying frame current i with the given frame VSB and VDS (element-wise)."""
     target = np.log(np.maximum(i, _FLOOR))
 
-    def fun(vgs):
-        cur, gg, _, _ = _forward(c, vgs - c.dvt, vds, vsb)
-        return np.log(np.maximum(cur, _FLOOR)) - target, gg / np.maximum(cur, _FLOOR)
+    def fun(vgs, idx):
+        cc, vds_, vsb_, target_ = _part(c, idx, vds, vsb, target)
+        cur, gg, _, _ = _forward(cc, vgs - cc.dvt, vds_, vsb_)
+        return np.log(np.maximum(cur, _FLOOR)) - target_, gg / np.maximum(cur, _FLOOR)
 
     return vsb + _newton(fun, _start_vgs(m, w, l, i) + c.dvt)
 
@@ -102,11 +127,12 @@ def source_from(c: TableConstants, m: Mos, w, l, i, vg, vb, vds, tied):
     target = np.log(np.maximum(i, _FLOOR))
     start = vgb - _start_vgs(m, w, l, i) - c.dvt  # frame source voltage, bulk-referenced
 
-    def fun(vsb):
+    def fun(vsb, idx):
+        cc, vgb_, vds_, target_ = _part(c, idx, vgb, vds, target)
         sb = np.zeros_like(vsb) if tied else vsb
-        cur, i_gs, _, i_sb = _forward(c, vgb - vsb - c.dvt, vds, np.maximum(sb, 0.0))
+        cur, i_gs, _, i_sb = _forward(cc, vgb_ - vsb - cc.dvt, vds_, np.maximum(sb, 0.0))
         d = -i_gs + (0.0 if tied else i_sb)
-        return np.log(np.maximum(cur, _FLOOR)) - target, d / np.maximum(cur, _FLOOR)
+        return np.log(np.maximum(cur, _FLOOR)) - target_, d / np.maximum(cur, _FLOOR)
 
     return vb + p * _newton(fun, start)
 
@@ -126,9 +152,10 @@ def diode_from(c: TableConstants, m: Mos, w, l, i, vs, vb, tied):
     vsb = np.zeros_like(vs) if tied else p * (vs - vb)
     target = np.log(np.maximum(i, _FLOOR))
 
-    def fun(vgs):
-        cur, i_gs, i_ds, _ = _forward(c, vgs - c.dvt, vgs, vsb)
-        return np.log(np.maximum(cur, _FLOOR)) - target, (i_gs + i_ds) / np.maximum(cur, _FLOOR)
+    def fun(vgs, idx):
+        cc, vsb_, target_ = _part(c, idx, vsb, target)
+        cur, i_gs, i_ds, _ = _forward(cc, vgs - cc.dvt, vgs, vsb_)
+        return np.log(np.maximum(cur, _FLOOR)) - target_, (i_gs + i_ds) / np.maximum(cur, _FLOOR)
 
     return vs + p * _newton(fun, _start_vgs(m, w, l, i) + c.dvt)
 

@@ -282,6 +282,11 @@ class TableConstants:
     width_scale: np.ndarray  # (m,) W / w_ref, for quantities that scale with W alone
     narrow: np.ndarray  # (m,) (1/W - 1/w_ref) / (1/w_narrow - 1/w_ref): weight of the narrow-width correction
 
+    def take(self, idx) -> "TableConstants":
+        """The constants of elements idx (an index array) alone."""
+        return TableConstants(self.table, self.base[idx], self.weight[idx], self.scale[idx], self.dvt[idx],
+                              self.ut[idx], self.width_scale[idx], self.narrow[idx])
+
 
 def constants(m: Mos, w, l, dvt=0.0, dbeta=0.0) -> TableConstants:
     """Work out the blending of the table slices for each element, once per device."""
@@ -320,7 +325,25 @@ def _powers(x):
         np.stack([np.zeros_like(x), np.ones_like(x), 2.0 * x, 3.0 * x * x], -1)
 
 
+# An optional drop-in for `_forward_numpy` with the same arguments and results (a compiled
+# loop, installed by the search layer: `set_kernel`); None: the numpy function runs.
+_KERNEL = None
+
+
+def set_kernel(fn) -> None:
+    """Evaluate the tables with fn(c, vgs, vds, vsb) instead of the numpy reference
+    `_forward_numpy` (None restores it). fn must return what the reference returns."""
+    global _KERNEL
+    _KERNEL = fn
+
+
 def _forward(c: TableConstants, vgs, vds, vsb):
+    """Frame current (VDS >= 0) and its derivatives with respect to VGS, VDS, VSB: the
+    installed kernel, or `_forward_numpy`."""
+    return _forward_numpy(c, vgs, vds, vsb) if _KERNEL is None else _KERNEL(c, vgs, vds, vsb)
+
+
+def _forward_numpy(c: TableConstants, vgs, vds, vsb):
     """Frame current (VDS >= 0) and its derivatives with respect to VGS, VDS, VSB.
 
     Between two VSB nodes the two node surfaces are blended linearly after aligning their

@@ -14,6 +14,7 @@ from models.evaluate import Result, evaluate
 
 from ..files.space import Space
 from ..files.study import Study
+from .compiled import install as install_compiled
 
 
 def constraint_names(study: Study) -> tuple[str, ...]:
@@ -81,6 +82,7 @@ class StageProblem(Problem):
                          xl=space.xl, xu=space.xu)
 
     def _evaluate(self, X, out, *args, **kwargs):
+        install_compiled()  # in whichever process evaluates (workers too); idempotent
         res = evaluate(self.space.decode(X), self.study.tech, self.study.conditions, self.study.targets,
                        explain=False)
         out["F"] = objective_values(res, self.objectives)
