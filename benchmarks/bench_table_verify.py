@@ -29,6 +29,7 @@ from models.stages import get_stage
 from optimise.files.study import load_study, study_from_dict
 from optimise.files.tables import read_toml
 from optimise.files.techfile import load_tech
+from optimise.search.compiled import install as install_compiled
 from optimise.spice import testbench as tb
 from optimise.spice.verify import Population, simulate_all
 
@@ -123,6 +124,7 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=5)
     args = ap.parse_args()
     tb.require_ngspice()
+    install_compiled()  # as the stagefront command does
     study = load_study(STUDY)
     lmin = study.tech.nmos.l_min
     design = random_designs(args.designs, np.random.default_rng(args.seed), lmin)
