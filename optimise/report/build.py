@@ -323,6 +323,20 @@ def _supply(data: ReportData) -> list:
                                    ("sens", "sensitivity [%/V]")], rows)]
 
 
+def _pole_line(study) -> str:
+    """How the output pole and the frequency response are computed, for the assumptions."""
+    mos = (study.tech.nmos, study.tech.pmos)
+    has = any(m.cj > 0 or m.cjsw > 0 for m in mos)
+    junctions = ("the source and drain junctions of the technology (cj, cjsw) over the netlists' diffusion "
+                 "areas and perimeters" if has else "no junction capacitance (the technology gives no cj or cjsw)")
+    if study.targets.amplifier is None:
+        return ("Output pole: gm of the output devices over 2 pi times the load, the output devices' gates"
+                + (" and their drain junctions" if has else "") + " (the pole-splitting limit of a large "
+                "compensation capacitor).")
+    return (f"Poles, zeros and phase margin: the nodal model of the stage at rest inside the study's amplifier, "
+            f"with every device's gm, gmb, gds, gate capacitances and {junctions}.")
+
+
 def _assumptions(data: ReportData) -> list:
     s, t = data.study, data.study.targets
     kind = ("the EKV charge-based model, valid from weak to strong inversion" if s.tech.model.value == "ekv"
@@ -349,10 +363,11 @@ def _assumptions(data: ReportData) -> list:
         "Iq sigma: 1-sigma Iq spread from device mismatch (Pelgrom), propagated linearly through the solved "
         "operating point; the Monte Carlo section checks it. Supply sensitivity: Iq change from the lowest to "
         "the highest supply per volt, relative to Iq at the nominal supply.",
-        f"vdd_min: lowest supply at which every device keeps its region at rest. Output pole: gm of the output "
-        f"devices over 2 pi times the load capacitance. Area: sum of W L times the layout factor {t.layout_factor:g}.",
+        f"vdd_min: lowest supply at which every device keeps its region at rest. {_pole_line(s)} Area: sum of "
+        f"W L times the layout factor {t.layout_factor:g}.",
         "A design is feasible only if it meets every target at every corner, temperature and supply. Not "
-        "modelled: layout parasitics, noise, frequency response beyond the output pole, leakage, self-heating.",
+        "modelled: layout parasitics beyond the source and drain junctions, noise, leakage, self-heating"
+        + ("." if t.amplifier is not None else ", the frequency response beyond the output pole."),
     ])]
 
 
