@@ -168,9 +168,14 @@ def test_effective_fit_on_a_card_with_a_gate_edge_sidewall(tmp_path):
 @pytest.mark.ngspice
 def test_calibrate_writes_the_junctions_into_the_technology(tmp_path, capsys):
     models = _level1_card(tmp_path / "j.lib", N_JUNCTIONS, {"cj": 0.0, "cjsw": 0.0})
+    # A base technology with its own diffusion extension: the file written keeps it, and the
+    # junctions are measured over the diffusions it gives.
+    base = tmp_path / "base.toml"
+    base.write_text((ROOT / "studies" / "tech" / "demo180-invented.toml").read_text()
+                    .replace("\n[nmos]", '\ndiffusion_extension = "1.5u"\n\n[nmos]', 1))
     out = tmp_path / "fitted.toml"
     code = main(["calibrate", "--models", str(models.path), "--kind", "square-law", "--lmin", "1u", "--lengths", "1u",
-                 "--vdd", "3.3", "--out", str(out)])
+                 "--vdd", "3.3", "--base", str(base), "--out", str(out)])
     assert code == 0
     log = capsys.readouterr().err
     text = out.read_text()
@@ -180,8 +185,10 @@ def test_calibrate_writes_the_junctions_into_the_technology(tmp_path, capsys):
         line = next(x for x in text.splitlines() if x.startswith(f"{key} = "))
         assert "measured: ngspice AC" in line and "reverse bias 0..3.3 V" in line and "worst fit error" in line
     assert "cj = cjsw = 0 (none)" in text  # the PMOS without junctions, said so
+    assert data["diffusion_extension"] == pytest.approx(1.5e-6, rel=1e-12) and "AD = W x 1.5 um" in text
     assert "NMOS junctions: cj 1.2 mF/m^2" in log and "PMOS junctions: no junction capacitance" in log
     tech = load_tech(out)
+    assert tech.extension(Polarity.N) == pytest.approx(1.5e-6, rel=1e-12)
     # Written with 6 significant digits (level 1: one PB, so pbsw = pb).
     want = {**N_JUNCTIONS, "pbsw": N_JUNCTIONS["pb"]}
     assert {k: getattr(tech.nmos, k) for k in KEYS} == pytest.approx(want, rel=1e-6)
