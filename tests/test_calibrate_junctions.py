@@ -20,9 +20,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from models.devices.mos import junctions
+from models.devices.mos import junction_capacitance, junctions
 from models.devices.tech import Corner, Polarity
-from optimise.calibrate.junctions import N_BIAS, WIDTHS, junction_capacitances
+from optimise.calibrate.junctions import (
+    N_BIAS,
+    WIDTHS,
+    fit_junctions,
+    junction_capacitances,
+)
 from optimise.cli import main
 from optimise.files.techfile import load_tech
 from optimise.spice import ngspice
@@ -83,6 +88,21 @@ def test_level1_parts_too_small_to_separate_and_no_junction(tmp_path):
     none = junction_capacitances(_level1_card(tmp_path / "b.mod", {}, {"cj": 0.0, "cjsw": 0.0}), Corner.TT, 27.0,
                                  3.3, 1e-6, 1e-6)
     assert none[1].how == none[-1].how == "none" and none[1].cj == none[1].cjsw == 0.0
+
+
+def test_a_negative_perimeter_part_is_fitted_as_bottom_only():
+    # Points made with the depletion formula itself (SPICE level 1, as cited above) with a
+    # perimeter part of -0.5 % of the narrow device's (which no junction has; a card whose
+    # geometry rules are not the netlists' can give one): not separated, an effective
+    # bottom junction over the area, its worst error of the order of that part.
+    v = np.linspace(0.0, 1.8, N_BIAS)
+    e = 0.9e-6
+    w = np.array(WIDTHS)[:, None]
+    bottom = junction_capacitance(1e-3 * w * e, 0.4, 0.8, v)
+    c = bottom - 0.005 * bottom[0]
+    j = fit_junctions(v, c, e)
+    assert j.how == "bottom only" and j.cjsw == 0.0
+    assert j.cj == pytest.approx(1e-3, rel=0.01) and 1e-4 < j.worst < 0.01
 
 
 def _ngspice_junctions(models: tb.ModelSource, pol: int, widths, v, extension: float, length: float = 0.36e-6):
@@ -193,3 +213,18 @@ def test_calibrate_writes_the_junctions_into_the_technology(tmp_path, capsys):
     want = {**N_JUNCTIONS, "pbsw": N_JUNCTIONS["pb"]}
     assert {k: getattr(tech.nmos, k) for k in KEYS} == pytest.approx(want, rel=1e-6)
     assert tech.pmos.cj == tech.pmos.cjsw == 0.0
+
+
+@pytest.mark.parametrize("name, vdd", [("demo180-bsim3-calibrated", "1.8"), ("demo180-bsim3-tables", "2.0")])
+@pytest.mark.ngspice
+def test_shipped_technologies_hold_the_junctions_calibrate_measures(name, vdd):
+    # Both shipped technologies made by calibrate (EKV fit and --tables, their --vdd as in
+    # their "Made with" lines) hold what the measurement gives on the card today, to the
+    # file's 6 significant digits.
+    path = ROOT / "studies" / "tech" / f"{name}.toml"
+    assert f" --vdd {vdd} " in path.read_text()
+    tech = load_tech(path)
+    e = tech.extension(Polarity.N)
+    got = junction_capacitances(tb.load_models(CARD, "nch", "pch"), Corner.TT, 27.0, float(vdd), e, tech.nmos.l_min)
+    for pol in (1, -1):
+        assert {k: getattr(tech.mos(Polarity(pol)), k) for k in KEYS} == pytest.approx(got[pol].values(), rel=1e-5)

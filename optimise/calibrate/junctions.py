@@ -145,7 +145,8 @@ def fit_depletion(v, c) -> tuple[float, float, float]:
 
 def fit_junctions(v, c, extension: float) -> Junctions:
     """Fit the junction constants to measured drain junctions c (len(WIDTHS), len(v)) [F]
-    of devices of WIDTHS with the netlists' diffusions of extension E [m] (module notes)."""
+    of devices of WIDTHS with the netlists' diffusions of extension E [m] (module notes);
+    c > 0 everywhere."""
     v, c = np.asarray(v, dtype=float), np.asarray(c, dtype=float)
     widths = np.asarray(WIDTHS)
     area, perimeter = widths * extension, 2.0 * (widths + extension)
@@ -153,14 +154,16 @@ def fit_junctions(v, c, extension: float) -> Junctions:
     b = c[0] - a * widths[0]
     cjsw = b / (2.0 * extension)
     cj = (a - 2.0 * cjsw) / extension
-    side_share = cjsw * perimeter[0] / c[0]
-    area_share = cj * area[0] / c[0]
+    # Each part's share of the narrower device's junction at every bias (the sidewall's is
+    # b (W + E) / (E C): it holds the 2 cjsw W inside a W too).
+    side = np.all(cjsw * perimeter[0] / c[0] >= SEPARABLE)
+    bottom = np.all(cj * area[0] / c[0] >= SEPARABLE)
     j = Junctions(v=v, c=c)
-    if np.all(side_share >= SEPARABLE) and np.all(area_share >= SEPARABLE):
+    if side and bottom:
         j.how = "separated"
         j.cj, j.mj, j.pb = fit_depletion(v, cj)
         j.cjsw, j.mjsw, j.pbsw = fit_depletion(v, cjsw)
-    elif np.all(c > 0) and not np.all(area_share >= SEPARABLE) and np.all(side_share >= SEPARABLE):
+    elif side:
         j.how = "sidewall only"
         j.cjsw, j.mjsw, j.pbsw = fit_depletion(np.tile(v, len(widths)), (c / perimeter[:, None]).ravel())
     else:
@@ -230,8 +233,8 @@ def toml_lines(j: Junctions, extension: float, vdd: float, fmt) -> list[str]:
     if j.how == "none":
         return [head, f"# cj = cjsw = 0 (none): {where} shows no junction capacitance"]
     if j.how == "not measured":
-        return [head, f"# cj = cjsw = 0 (not measured): {where} shows less capacitance with the diffusions than "
-                      "without them at some bias"]
+        return [head, (f"# cj = cjsw = 0 (not measured): {where} shows less capacitance with the diffusions "
+                       "than without them at some bias")]
     err = f"worst fit error {100 * j.worst:.2f} %"
     note = {"separated": "bottom and sidewall separated by the two widths",
             "bottom only": "the perimeter part too small to separate: the whole junction as an effective bottom "
