@@ -14,7 +14,9 @@ nominal temperature (27 degC) on the typical section, at two more temperatures (
 `--kind` selects which fit the file's vt0 and kp (and its model line) come from; the other
 fit's parameters are written too (gamma and phi, n) because every technology carries them.
 The gate capacitances (cox, cov) come from an ngspice AC analysis of the card
-(`devicefit.gate_capacitances`). Mismatch (a_vt, a_beta), minimum width, grid and, without
+(`devicefit.gate_capacitances`), and so do the source and drain junctions (cj, mj, pb,
+cjsw, mjsw, pbsw: `junctions.junction_capacitances`, over the diffusions the netlists of
+the written technology draw). Mismatch (a_vt, a_beta), minimum width, grid and, without
 corner sections, the corners come from --base or are defaults marked as such in the file.
 """
 from __future__ import annotations
@@ -28,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from models.devices.constants import T_NOMINAL, ZERO_CELSIUS
-from models.devices.tech import Corner, CornerShift, ModelKind
+from models.devices.tech import DIFFUSION_PER_LMIN, Corner, CornerShift, ModelKind
 
 from ..files.atomic import write_text
 from ..files.errors import InputError
@@ -49,6 +51,7 @@ from .devicefit import (
     sweep,
     va_per_length,
 )
+from .junctions import describe, junction_capacitances, toml_lines
 
 LENGTH_FACTORS = (1, 2, 4, 8)  # default lengths, multiples of lmin
 MAX_LENGTHS = 16  # --lengths: each is a device per curve in every sweep deck ("common practice, no source")
@@ -89,10 +92,12 @@ class Calibration:
     vdd: float
     log: list = field(default_factory=list)
     caps: dict = field(default_factory=dict)  # +1/-1 -> (cox, cov) measured by ngspice AC; empty: not measured
+    junctions: dict = field(default_factory=dict)  # +1/-1 -> junctions.Junctions measured by ngspice AC
+    extension: float = 0.0  # m, the diffusion extension the junctions were measured with
 
 
 def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typical: Corner = Corner.TT,
-              log=lambda s: None) -> Calibration:
+              log=lambda s: None, extension: float | None = None) -> Calibration:
     """Sweep the card in ngspice and fit every parameter (see the module notes).
 
     Parameters
@@ -109,6 +114,9 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
         The section fitted as the typical process.
     log : callable
         Receives progress lines.
+    extension : float, optional
+        Diffusion extension [m] of the technology written (`Tech.extension`), the geometry
+        the junctions are measured with; default DIFFUSION_PER_LMIN x the shortest length.
 
     Returns
     -------
@@ -119,7 +127,7 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
     log(f"sweeping {models.describe()} at {typical.value}, {tnom_c:g} degC: lengths "
         f"{', '.join(format_eng(x, 'm') for x in lengths)}, VSB {', '.join(f'{v:g}' for v in vsbs)} V, up to {vdd:g} V")
     others = [c for c in models.corners(None) if c != typical] if models.sections else []
-    total, done = 3 + len(TEMPS_C) + len(others), []
+    total, done = 4 + len(TEMPS_C) + len(others), []
 
     def step(line):  # the progress line of the k-th of the command's ngspice runs
         if line.startswith("    ..."):  # still running: as it is
@@ -172,7 +180,13 @@ def calibrate(models: tb.ModelSource, lengths, vdd: float, kind: ModelKind, typi
     for pol in (1, -1):
         if pol not in caps:
             log(f"{'NMOS' if pol == 1 else 'PMOS'}: the card models no gate capacitance; cox and cov are not measured")
-    return Calibration(kind, fits, corners, tuple(lengths), vdd, caps=caps)
+    extension = DIFFUSION_PER_LMIN * lengths[0] if extension is None else extension
+    step(f"  junction capacitances: ngspice AC at {typical.value}, {tnom_c:g} degC, reverse bias 0 to {vdd:g} V, "
+         f"diffusions reaching {format_eng(extension, 'm')} beyond the gate")
+    junctions = junction_capacitances(models, typical, tnom_c, vdd, extension, lengths[-1], log=step)
+    for pol, j in junctions.items():
+        log(f"{'NMOS' if pol == 1 else 'PMOS'} junctions: {describe(j)}")
+    return Calibration(kind, fits, corners, tuple(lengths), vdd, caps=caps, junctions=junctions, extension=extension)
 
 
 # ---------------------------------------------------------------------------------------
@@ -190,6 +204,8 @@ def report(cal: Calibration, stream) -> None:
         p(f"  {cal.kind.value} fit error |Id model / Id ngspice - 1|:  {'points':>7s} {'rms':>8s} {'max':>8s}")
         for region, (n, rms, mx) in f.regions.items():
             p(f"    {region:28s} {n:7d} {rms:7.1f}% {mx:7.1f}%")
+        if pol in cal.junctions:
+            p(f"  junctions: {describe(cal.junctions[pol])}")
     for corner, s in cal.corners.items():
         p(f"corner {corner.value}: NMOS vt0 {s.dvt_n * 1e3:+.1f} mV, kp x {s.kp_n:.3f}; "
           f"PMOS vt0 {s.dvt_p * 1e3:+.1f} mV, kp x {s.kp_p:.3f}")
@@ -237,6 +253,8 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
         f"tnom = {_g(T_NOMINAL)}            # K, temperature of the fit",
         f'grid = {_g(base.grid) if base else _g(5e-9)}              # m, drawing grid: '
         f"{'from base' if base else 'default, not calibrated'}",
+        *([f"diffusion_extension = {_g(base.diffusion_extension)}  # m, from base: source/drain length beyond the "
+           "gate (netlists' AD/AS/PD/PS, junctions)"] if base and base.diffusion_extension else []),
     ]
     for pol, table in ((1, "nmos"), (-1, "pmos")):
         f = cal.fits[pol]
@@ -260,6 +278,7 @@ def tech_toml(cal: Calibration, name: str, models: tb.ModelSource, lmin: float, 
                 f"cov = {_g(mt.cov if mt else DEFAULTS['cov'])}          # F/m, {kept}"]),
             f"w_min = {_g(mt.w_min if mt else lmin)}        # m, {kept if mt else 'default (= l_min), not calibrated'}",
             f"l_min = {_g(lmin)}        # m, shortest length fitted",
+            *(toml_lines(cal.junctions[pol], cal.extension, cal.vdd, _g) if pol in cal.junctions else []),
         ]
     if cal.corners:
         corners, origin = cal.corners, "fitted from the card's section"
@@ -340,7 +359,9 @@ def _calibrate_command(args, stream=None, err_stream=None) -> int:
         options = table_options(args, lmin, vdd)
     tb.require_ngspice()
     kind = ModelKind(args.kind)
-    cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True))
+    extension = (base.diffusion_extension if base else 0.0) or DIFFUSION_PER_LMIN * lmin  # as the file will read
+    cal = calibrate(models, lengths, vdd, kind, Corner(corner), lambda s: print(s, file=err_stream, flush=True),
+                    extension)
     report(cal, stream)
     command = ("stagefront calibrate --models " + str(args.models) + f" --nmos {args.nmos} --pmos {args.pmos}"
                f" --kind {args.kind} --corner {corner} --lmin {args.lmin or format_eng(lmin, 'm').replace(' ', '')}"
