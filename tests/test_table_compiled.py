@@ -106,3 +106,12 @@ def test_evaluations_agree_with_and_without_the_compiled_loop(tech):
         ok = ref.converged & np.isfinite(b)
         # Solves to 1e-10 and below on both sides: the answers agree to that, not to 1e-12.
         assert np.allclose(a[ok], b[ok], rtol=1e-8, atol=1e-15), key
+
+
+def test_the_environment_switch_keeps_the_numpy_reference(monkeypatch):
+    monkeypatch.setenv("STAGEFRONT_NO_COMPILED", "1")
+    monkeypatch.setattr(compiled, "_installed", False)
+    monkeypatch.setattr(table_data, "_KERNEL", None)
+    assert compiled.install() is False and table_data._KERNEL is None
+    monkeypatch.delenv("STAGEFRONT_NO_COMPILED")
+    assert compiled.install() is True and table_data._KERNEL is compiled.forward
