@@ -377,15 +377,16 @@ def test_loop_gain_slope_is_the_derivative_of_its_magnitude():
     assert float(mid[0, 0]) == pytest.approx(-1.0, abs=1e-2)
 
 
-GMIN_SPICE = 1e-12  # S: ngspice's default GMIN (ngspice manual, .options GMIN, "default 1.0e-12"; from memory)
+GMIN_SPICE = 1e-12  # S: the SPICE default GMIN (ngspice manual, .options GMIN, default 1.0e-12; from memory)
 
 
 def test_without_length_modulation_gmin_alone_sets_the_output_resistance():
     # Output devices without length modulation (va_per_l = inf: gds = 0 in saturation) and
-    # no load resistor leave the output node only the small-signal model's GMIN, SPICE's
-    # minimum conductance (module notes of models.amplifier.smallsignal). The DC gain and
-    # the dominant pole are then the textbook's with R2 = 1 / GMIN: the figures a designer
-    # reads for ideal devices are those of a 1 Tohm output, finite and fixed.
+    # no load resistor leave the output node only the small-signal model's GMIN, which it
+    # puts from every node to ground at SPICE's default value (ngspice puts its GMIN across
+    # each pn junction instead). The DC gain and the dominant pole are then the textbook's
+    # with R2 = 1 / GMIN: the figures a designer reads for ideal devices are those of a
+    # 1 Tohm output, finite and fixed.
     no_clm = dataclasses.replace(TECH, nmos=dataclasses.replace(TECH.nmos, va_per_l=math.inf),
                                  pmos=dataclasses.replace(TECH.pmos, va_per_l=math.inf))
     design, vdd = _fixed_bias()
