@@ -72,7 +72,8 @@ MODEL_TESTS = ["tests/test_metrics.py", "tests/test_metrics_budgets.py", "tests/
 TESTS = {
     "models/": MODEL_TESTS,
     "models/amplifier/": ["tests/test_metrics_budgets.py", "tests/test_amplifier.py", "tests/test_amplifier_ngspice.py",
-                          "tests/test_metrics.py"],
+                          "tests/test_metrics.py", "tests/test_topology.py"],
+    "models/circuit/topology.py": ["tests/test_topology.py", *MODEL_TESTS],
     "models/circuit/mirrors.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py",
                                   "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
     "models/sources.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py", "tests/test_mirrors_ngspice.py",
@@ -82,6 +83,7 @@ TESTS = {
     "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
     "models/wording.py": ["tests/test_wording.py", "tests/test_messages.py", "tests/test_metrics.py"],
     "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py"],
+    "models/records.py": ["tests/test_records.py", *MODEL_TESTS],
     "optimise/review/evaluation.py": ["tests/test_metrics.py", "tests/test_cli.py", "tests/test_json_safe.py"],
     "optimise/search/export.py": ["tests/test_metrics.py", "tests/test_search.py", "tests/test_compare_pick.py"],
 }
@@ -119,20 +121,11 @@ GUARD_KEYWORDS = {"xtol", "tol", "rtol", "atol", "max_iter", "iterations", "step
 # again. Reported apart and left out of the second kill rate (killed / (mutants -
 # equivalent)); the first rate counts them.
 EQUIVALENT = [
-    ("models/amplifier/response.py", "slope = np.real(-1j * w[..., None] * mu / x)", "unary - removed",
-     "the slope is only the Newton derivative of the bracketed unity-gain search: the crossing is the same to "
-     "its 1e-9-decade tolerance"),
-    ("models/amplifier/smallsignal.py", "GMIN = 1e-12", "1e-12 -> 1e-12 x 0.95",
-     "a 1 pS regulariser beside conductances of microsiemens: outputs move by < 1e-7 relative"),
     ("models/amplifier/smallsignal.py", "(bulk, -p * (gg + gd + gs))", "unary - removed",
-     "the bulk is a rail (skipped: AC ground) or, for a tied device, its source, where gg + gd + gs = 0"),
-    ("models/circuit/topology.py", 'if node not in RAILS and node != "out" and node not in seen:', "!= -> ==",
-     "every source and resistor node of the three topologies is a device terminal already, and none touches out",
-     1),  # the second loop (sources and resistors), not the devices' own
+     "the bulk is a rail (skipped: AC ground) or, for a tied device, its source (bulk = spec.s if dev.tied else "
+     "spec.rail), where Device.eval's gs = -(gg + gd) makes the sum exactly 0"),
     ("models/devices/device.py", "frame_vsb = self.p * (vs_b - vb_eff)", "* -> /",
      "p is +1 or -1: x / p == x * p exactly"),
-    ("models/devices/device.py", "if isinstance(idx, slice) and idx == slice(None):", "== -> !=",
-     "the solvers pass slice(None) or index arrays, never a partial slice: only whether a copy is made changes"),
     ("models/devices/device.py", "if isinstance(idx, np.ndarray) and idx.size == np.size(dev.w)", "- -> +",
      "the whole-batch shortcut is skipped: the restricted copy has the same values"),
     ("models/devices/device.py", "and idx[0] == 0:", "== -> !=",
@@ -155,12 +148,8 @@ EQUIVALENT = [
      "direction is +1 or -1: x / d == x * d exactly"),
     ("models/operating.py", "idle_mid = i_dn if direction > 0 else i_up", "> -> <=",
      "the Newton start of the bracketed headroom solve only: the same root to its 0.1 uV tolerance"),
-    ("models/records.py", "vcomp: float = 0.2", "0.2 -> 0.2 x 0.95",
-     "the study reader always passes the compliance (its own default 0.2 V): the dataclass default reaches no output"),
     ("models/sources.py", "per[name] = np.where(converged, np.nan_to_num(rel, nan=-1.0), np.inf)", "unary - removed",
      "at a converged point the voltage across and the limit are finite, so rel is never nan there"),
-    ("models/stages/common_source.py", "return i_p, i_n, gpd - gnd", "- -> +",
-     "d_net is only the Newton derivative of the bracketed headroom solve: the same root to its tolerance"),
     ("models/stages/fixed_bias.py", "gn, ok = solve_bracketed(fun, -vb - 0.5, vdd + 0.5, x0=0.5 * (vdd - vb))",
      "0.5 -> 0.5 x 1.05", "the bracket ends (0.5 V beyond either rail) and the Newton start of a bracketed solve "
      "whose root lies well inside: the same root to its tolerance"),

@@ -8,6 +8,7 @@ amp, Miller compensation and pole splitting; section number from memory), cited 
 from __future__ import annotations
 
 import dataclasses
+import math
 from pathlib import Path
 
 import numpy as np
@@ -351,3 +352,59 @@ def test_the_search_can_size_the_compensation_capacitor(tmp_path):
     dfile.write_text(text)
     d = load_design(dfile, study.tech)
     assert d.cc[0] == 4e-12
+
+
+def test_loop_gain_slope_is_the_derivative_of_its_magnitude():
+    # response.loop_gain returns d log10|T| / d log10 f beside log10 |T|. Checked against a
+    # central finite difference of the returned magnitude (common practice, no source) and,
+    # between the dominant and the output pole, against the Bode asymptote: -20 dB a decade,
+    # a slope of -1 ([GHLM] sec. 9.4, a single dominant pole below the crossing).
+    design, vdd = _fixed_bias()
+    amp = Amplifier(ugf=1e6, cc=3e-12, r1=10e6, c1=0.2e-12, i1=5e-6)
+    g, c, i_d, i_o, _, _ = _model(design, amp, vdd)
+    mu_p, mu_z, h0, _, _ = response.poles_zeros(g, c, i_d, i_o)
+    t0 = amp.beta * amp.transconductance * np.abs(h0)
+    f = 10.0 ** np.linspace(0.0, 11.0, 45)[None, :]  # 1 Hz to 100 GHz: every pole and the zero
+    h = 1e-4  # decades: truncation error ~ h^2 |d3 log|T|| < 1e-7, rounding ~ 1e-16 / h
+    logt, _, slope = response.loop_gain(t0, mu_p, mu_z, f)
+    up = response.loop_gain(t0, mu_p, mu_z, f * 10.0 ** h)[0]
+    down = response.loop_gain(t0, mu_p, mu_z, f * 10.0 ** -h)[0]
+    assert slope == pytest.approx((up - down) / (2.0 * h), abs=1e-6)
+    p = np.sort(np.abs(response.to_rad(mu_p[0]))) / (2.0 * np.pi)
+    f_mid = np.sqrt(p[0] * p[1])  # p2 / p1 > 1e4: both poles and the zero over 100x away
+    mid = response.loop_gain(t0, mu_p, mu_z, np.array([[f_mid]]))[2]
+    # 1e-2: each pole or zero 100x away adds at most (1/100)^2 / ln(10) to the slope.
+    assert float(mid[0, 0]) == pytest.approx(-1.0, abs=1e-2)
+
+
+GMIN_SPICE = 1e-12  # S: the SPICE default GMIN (ngspice manual, .options GMIN, default 1.0e-12; from memory)
+
+
+def test_without_length_modulation_gmin_alone_sets_the_output_resistance():
+    # Output devices without length modulation (va_per_l = inf: gds = 0 in saturation) and
+    # no load resistor leave the output node only the small-signal model's GMIN, which it
+    # puts from every node to ground at SPICE's default value (ngspice puts its GMIN across
+    # each pn junction instead). The DC gain and the dominant pole are then the textbook's
+    # with R2 = 1 / GMIN: the figures a designer reads for ideal devices are those of a
+    # 1 Tohm output, finite and fixed.
+    no_clm = dataclasses.replace(TECH, nmos=dataclasses.replace(TECH.nmos, va_per_l=math.inf),
+                                 pmos=dataclasses.replace(TECH.pmos, va_per_l=math.inf))
+    design, vdd = _fixed_bias()
+    amp = Amplifier(ugf=1e6, cc=3e-12, r1=10e6, c1=0.2e-12, i1=5e-6)
+    g, c, i_d, i_o, caps, op = _model(design, amp, vdd, tech=no_clm)
+    gds = op["mn_out"][2] - op["mp_out"][2]
+    assert float(gds[0]) == 0.0  # both output devices saturated, no length modulation
+    mu_p, _, h0, _, _ = response.poles_zeros(g, c, i_d, i_o)
+    gm2 = float((op["mn_out"][1] - op["mp_out"][1])[0])
+    c1 = float(np.ravel(amp.c1 + sum(caps[r][0] + caps[r][2] for r in ("mn_out", "mp_out")))[0])
+    cc = float(np.ravel(amp.cc + sum(caps[r][1] for r in ("mn_out", "mp_out")))[0])
+    c2 = float(np.ravel(10e-12 + sum(caps[r][3] for r in ("mn_out", "mp_out")))[0])
+    r1, r2 = amp.r1, 1.0 / GMIN_SPICE
+    # [GHLM] sec. 9.4: the second stage's DC gain -gm2 R2 after R1 at the driven gate, and
+    # p1 = 1 / b1 with b1 = (C1 + Cc) R1 + (C2 + Cc) R2 + gm2 R1 R2 Cc (p2 / p1 > 1e10 here).
+    b1 = (c1 + cc) * r1 + (c2 + cc) * r2 + gm2 * r1 * r2 * cc
+    p = np.sort(np.abs(response.to_rad(mu_p[0])))
+    # 1e-3: GMIN at the two gate nodes beside 1 / R1 (2e-5), the 100-ohm gate link (1e-9)
+    # and the dropped terms of order p1 / p2 are all far below it.
+    assert abs(float(h0[0])) == pytest.approx(gm2 * r1 * r2, rel=1e-3)
+    assert p[0] == pytest.approx(1.0 / b1, rel=1e-3)

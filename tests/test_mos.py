@@ -439,3 +439,24 @@ def test_population_by_conditions_broadcasts(kind):
     out = mos.current_partials(m, w, L, 1.2, 1.0, 0.0)
     assert [np.shape(x) for x in out] == [(10, 7)] * 4
     assert np.shape(mos.diode_voltage(m, w, L, 1e-6, 0.0)) == (10, 7)
+
+
+@pytest.mark.parametrize("kind", [EKV, SQ])
+@pytest.mark.parametrize("idx", [slice(None), slice(2, 5), np.array([0, 3, 6]), np.arange(7)])
+def test_restricted_device_has_the_batch_values_at_those_elements(kind, idx):
+    # models.devices.device.restricted cuts a device down to some batch elements, a slice or
+    # an index array; the cut-out device must give the whole batch's currents and partials
+    # at those elements (the whole batch itself is the reference; common practice, no source).
+    from models.devices.device import Device, restricted
+    temps = np.linspace(250.0, 400.0, 7)  # per element: temperature, width and mismatch differ
+    m = mos.at_conditions(ah02_tech(Polarity.N), Polarity.N, kind, temps, T300)
+    w = np.geomspace(1e-6, 1e-4, 7)
+    dev = Device(m, w, np.full(7, L), dvt=np.linspace(-0.01, 0.01, 7), dbeta=np.linspace(0.02, -0.02, 7))
+    vg, vd = np.linspace(0.8, 2.0, 7), np.linspace(0.2, 2.0, 7)
+    whole = dev.eval(vg, vd, 0.0, 0.0)
+    sub = restricted(dev, idx)
+    part = sub.eval(vg[idx], vd[idx], 0.0, 0.0)
+    for a, b in zip(part, whole):
+        # 1e-14: the same arithmetic per element (the same bits on this machine), with room
+        # for a vector library that rounds the last bit by position in the array.
+        np.testing.assert_allclose(a, b[idx], rtol=1e-14, atol=0.0)

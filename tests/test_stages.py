@@ -464,6 +464,35 @@ def test_headroom_grows_with_load_current(demo, side):
     assert np.all(np.diff(headroom) > 0)
 
 
+@pytest.mark.parametrize("architecture", ["floating-loop", "fixed-bias", "follower"])
+def test_output_current_slope_is_its_derivative(architecture):
+    # Every stage's output(devs, gates, vdd, v) returns d(i_push - i_pull)/dv beside the two
+    # currents (the headroom solve's Newton derivative, the output conductance with the
+    # gates held). Checked against a central finite difference of the returned currents
+    # (common practice, no source) over the output range, triode and saturation of both
+    # devices, at the rest gates and with both gates moved 0.3 V either way.
+    study = load_study(STUDIES / "sensor-buffer.toml")
+    design = load_design(STUDIES / f"sensor-buffer-{architecture}.toml", study.tech)
+    stage = get_stage(architecture)
+    n = 21
+    idx = np.zeros(n, dtype=int)
+    devs = devices_at(stage, design, study.tech, corner_shifts(study.tech, [Corner.TT] * n),
+                      np.full(n, study.conditions.temps[0]), idx)
+    bias = {k: np.asarray(v, dtype=float)[idx] for k, v in design.bias.items()}
+    vdd = np.full(n, 3.3)
+    nodes, ok, _, _ = rest_point(stage, devs, bias, vdd, sensitivity=False)
+    assert ok.all()
+    gate_n, gate_p = stage.gates(nodes)
+    v = np.linspace(0.02, 0.98, n) * vdd
+    h = 1e-5  # V: truncation (h^2 times the third derivative) and rounding (1e-16 |i| / h) far below 1e-6
+    for shift in (0.0, 0.3, -0.3):
+        gn, gp = gate_n + shift, gate_p + shift
+        _, _, slope = stage.output(devs, gn, gp, vdd, v)
+        up_push, up_pull, _ = stage.output(devs, gn, gp, vdd, v + h)
+        dn_push, dn_pull, _ = stage.output(devs, gn, gp, vdd, v - h)
+        fd = ((up_push - up_pull) - (dn_push - dn_pull)) / (2.0 * h)
+        assert slope == pytest.approx(fd, rel=1e-6, abs=1e-6 * np.max(np.abs(fd)))
+
 def test_floating_loop_ab_ratio_lies_between_zero_and_one(demo):
     study, design = demo
     res = evaluate(design, study.tech, study.conditions, study.targets)
