@@ -71,15 +71,17 @@ MODEL_TESTS = ["tests/test_metrics.py", "tests/test_metrics_budgets.py", "tests/
 # own tests first so that -x stops early on a kill.
 TESTS = {
     "models/": MODEL_TESTS,
-    "models/amplifier/": ["tests/test_metrics_budgets.py", "tests/test_amplifier.py", "tests/test_amplifier_ngspice.py",
-                          "tests/test_metrics.py", "tests/test_topology.py"],
+    "models/amplifier/": ["tests/test_metrics_budgets.py", "tests/test_amplifier.py", "tests/test_amplifier_fast.py",
+                          "tests/test_amplifier_ngspice.py", "tests/test_metrics.py", "tests/test_topology.py",
+                          "tests/test_junctions_ngspice.py"],
     "models/circuit/topology.py": ["tests/test_topology.py", *MODEL_TESTS],
     "models/circuit/mirrors.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py",
                                   "tests/test_mirrors_ngspice.py", "tests/test_metrics.py"],
     "models/sources.py": ["tests/test_metrics_budgets.py", "tests/test_mirrors.py", "tests/test_mirrors_ngspice.py",
                           "tests/test_metrics.py"],
-    "models/devices/": [*MODEL_TESTS, "tests/test_amplifier.py"],
-    "models/devices/table": ["tests/test_device_checks.py", "tests/test_table_kind.py", "tests/test_mos.py"],
+    "models/devices/": [*MODEL_TESTS, "tests/test_amplifier.py", "tests/test_junctions_ngspice.py"],
+    "models/devices/table": ["tests/test_device_checks.py", "tests/test_table_kind.py", "tests/test_table_compiled.py",
+                             "tests/test_mos.py", "tests/test_metrics_budgets.py"],
     "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
     "models/wording.py": ["tests/test_wording.py", "tests/test_messages.py", "tests/test_metrics.py"],
     "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py"],
@@ -155,6 +157,39 @@ EQUIVALENT = [
      "whose root lies well inside: the same root to its tolerance"),
     ("models/stages/floating_loop.py", "other, ok = solve_bracketed(fun, -0.5 * np.ones_like(vdd), vdd + 0.5, x0=x0)",
      "* -> /", "-0.5 / ones is -0.5 * ones exactly"),
+    ("models/devices/table.py", "return vb + p * _newton(fun, start)", "* -> /", "p is +1 or -1: x / p == x * p exactly"),
+    ("models/devices/table_data.py", "if len(t.lengths) < 2:", "2 -> 2 x 0.95",
+     "a length count is an integer: < 1.9 and < 2 refuse the same tables"),
+    ("models/devices/device.py", "if isinstance(idx, np.ndarray) and idx.size == np.size(dev.w)", "== -> !=",
+     "the whole-batch shortcut is skipped (or taken for a smaller index set, which then fails its next check): "
+     "the restricted copy has the same values"),
+    ("models/numerics/roots.py", "if 0 < n < 0.5 * self.live.size:", "* -> /",
+     "when the working set shrinks: each element's iterates do not depend on its batch neighbours"),
+    ("models/circuit/mirrors.py", "return np.asarray(v[src.a]) - np.asarray(v[src.b])", "- -> +",
+     "the stage's fast solve takes the mirror currents as a start only; the nodal system then balances each "
+     "source by its Norton stamp, which does not use it: the same rest point to the solver's tolerance"),
+    ("models/amplifier/response.py", "SPREAD = 1e-6", "1e-06 -> 1e-06 x 0.95",
+     "which elements the two-node closed form leaves to LAPACK: both agree to about 1e-10 there"),
+    ("models/amplifier/response.py", "trust &= np.abs(disc) >= CANCEL * (quarter + np.abs(b01 * b10))", "+ -> -",
+     "which elements the two-node closed form leaves to LAPACK: both agree to about 1e-10 there"),
+    ("models/amplifier/response.py", "est = np.clip(np.log10(t0 / (TWO_PI * np.maximum(dom, 1e-300))), "
+     "np.log10(F_LOW) + 1e-6,", "+ -> -", "the Newton start of the bracketed unity-gain search only: the same "
+     "crossing to its 1e-9-decade tolerance"),
+    ("models/operating.py", "x0 = rail - direction * np.clip((i_load + idle_mid) / np.maximum(np.abs(d_rail), 1e-30), "
+     "0.0, 0.5 * vdd)", "0.5 -> 0.5 x 1.05", "the Newton start of the bracketed headroom solve only: the same "
+     "root to its 0.1 uV tolerance"),
+    ("models/stages/floating_loop.py", "gn, ok = solve_bracketed(fun, -0.5 * np.ones(m), vdd.copy())",
+     "0.5 -> 0.5 x 1.05", "a bracket end 0.5 V below ground for a gate whose root lies between the rails: the same "
+     "root to its tolerance"),
+    ("models/stages/floating_loop.py", 'slope = 1.0 if driven_node == "gp" else -1.0', "== -> !=",
+     "the slope is a rough Newton derivative of a bracketed solve: the same root to its tolerance"),
+    ("models/stages/floating_loop.py", 'slope = 1.0 if driven_node == "gp" else -1.0', "unary - removed",
+     "the slope is a rough Newton derivative of a bracketed solve: the same root to its tolerance"),
+    ("models/stages/follower.py", "nm, ok = solve_bracketed(fun, -1.0 - vdd, 2.0 * vdd + 1.0, x0=nodes[\"nm\"])",
+     "unary - removed", "the lower bracket end 1 V - VDD instead of -1 V - VDD: the input of a follower at its "
+     "drive limit lies well above both"),
+    ("models/validity.py", "EQUAL_RTOL = 1e-6", "1e-06 -> 1e-06 x 1.05",
+     "replica and device lengths equal up to rounding differ by far less than either threshold"),
 ]
 
 

@@ -84,8 +84,8 @@ def _chunk(stage, design, tech, cond_arrays, targets, idx_design, idx_pvt):
     for role in (stage.PULL_DOWN, stage.PULL_UP):
         dev = devs[role]
         mt = tech.mos(stage.TOPOLOGY.spec(role).polarity)
-        if dev.tab is not None:  # the card's own cgg from the tables
-            c_drive += gate_capacitance_from(dev.tab, dev.mos, dev.w, dev.l, iq)
+        if dev.tab is not None:  # the card's intrinsic cgg from the tables, and both overlaps
+            c_drive += gate_capacitance_from(dev.tab, dev.mos, dev.w, dev.l, iq) + 2.0 * mt.cov * dev.w
         else:
             c_drive += gate_capacitance(mt, dev.w, dev.l, inversion_coefficient(dev.mos, dev.w, dev.l, iq))
     if tech.tables is not None:

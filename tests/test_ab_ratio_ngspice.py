@@ -93,9 +93,9 @@ def test_ab_ratio_is_the_smallest_idle_current_over_the_output_range():
     idle_snk = idle_sweep(gn, gp, 0.5 * VDD, v_snk, "p")  # sinking: MP_OUT is idle
     iq_sim = spice.rest_iq("floating-loop", DESIGN, 0, TECH, VDD)
     ab_sim = min(idle_src.min(), idle_snk.min()) / iq_sim
-    # Same equations on both sides: 1 % as for Iq in tests/test_stages_ngspice.py (the residual is
-    # ngspice's reltol and pA junction leakage; seen about 1e-5).
-    assert res.pvt["ab_ratio"][0, 0] == pytest.approx(ab_sim, rel=0.01)
+    # Same equations on both sides: the residual is ngspice's reltol, pA junction leakage and
+    # the sweep's 200 steps (seen about 1e-5); 1e-3 leaves a hundredfold margin.
+    assert res.pvt["ab_ratio"][0, 0] == pytest.approx(ab_sim, rel=1e-3)
     # The smallest current sits at mid-supply, not at the peak-load point where length
     # modulation adds to it (lambda 0.04-0.05 /V here: hand estimate 4-8 % over 2 V).
     for sweep in (idle_src, idle_snk):

@@ -318,6 +318,30 @@ def test_square_law_capacitances_follow_meyer():
     assert a[0] == pytest.approx(b[1]) and a[1] == pytest.approx(b[0])
 
 
+def test_square_law_capacitances_in_depletion_and_triode_by_hand():
+    from models.devices import square_law
+    from models.devices.conditions import at_conditions
+    from models.devices.tech import ModelKind, Polarity
+
+    mt = TECH.nmos
+    m = at_conditions(mt, Polarity.N, ModelKind.SQUARE_LAW, TECH.tnom, TECH.tnom)
+    w, l = 10e-6, 1e-6
+    cwl, cov = mt.cox * w * l, mt.cov * w
+    # Meyer (RCA Review 32, 1971) as SPICE level 1 evaluates it. Depletion, VGST = -phi/4:
+    # cgs = 2/3 C0 + 4/3 C0 VGST / phi = C0 / 3, cgb = -VGST C0 / phi = C0 / 4, cgd = 0.
+    vt = float(np.ravel(square_law.threshold(m, 0.0, 0.0)[0])[0])
+    cgs, cgd, cgb, _, _ = square_law.capacitances(m, mt, w, l, vt - m.phi / 4, 2.0, 0.0)
+    assert cgs - cov == pytest.approx(cwl / 3, rel=1e-12) and cgb == pytest.approx(cwl / 4, rel=1e-12)
+    assert cgd == pytest.approx(cov, rel=1e-12)
+    # Triode with the source lifted 0.5 V off the bulk, VGST = 1 V, VDS = 0.5 V (VDSAT = VGST):
+    # cgs = 2/3 C0 (1 - (VDSAT - VDS)^2 / (2 VDSAT - VDS)^2) = 2/3 C0 8/9, cgd = 2/3 C0 5/9.
+    vs = 0.5
+    vt_s = float(np.ravel(square_law.threshold(m, vs, 0.0)[0])[0])
+    cgs, cgd, _, _, _ = square_law.capacitances(m, mt, w, l, vs + vt_s + 1.0, vs + 0.5, vs)
+    assert cgs - cov == pytest.approx(2 / 3 * cwl * 8 / 9, rel=1e-12)
+    assert cgd - cov == pytest.approx(2 / 3 * cwl * 5 / 9, rel=1e-12)
+
+
 def test_the_search_can_size_the_compensation_capacitor(tmp_path):
     from optimise.cli import main
     from optimise.search.export import design_from_row, read_front

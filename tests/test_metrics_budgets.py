@@ -320,3 +320,56 @@ def test_a_metric_that_is_not_a_number_at_a_solved_point_is_a_violation(monkeypa
     res = evaluate(design, TECH_SQ, COND, TARGETS)
     assert res.converged.all()
     assert res.margins["load_current"][0] == -1.0 and not res.feasible[0]
+
+
+def test_gate_capacitance_on_a_table_technology_lies_within_the_oxide_bounds():
+    # The output gates' capacitance c_drive_f from the card's own cgg: every MOS gate sees
+    # at least its two overlaps (2 Cov W) and at most the whole oxide over the channel plus
+    # them ((Cox L + 2 Cov) W), whatever the bias (the charge-sheet bounds; Tsividis,
+    # Operation and Modeling of the MOS Transistor, 2nd ed., ch. 8, from memory).
+    from pathlib import Path
+
+    from models.stages import get_stage
+    from optimise.files.study import load_design, load_study
+
+    root = Path(__file__).resolve().parents[1]
+    study = load_study(root / "studies" / "sensor-buffer-180.toml")
+    # The 3.3 V demo design, its lengths brought inside the tables.
+    demo = load_design(root / "studies" / "sensor-buffer-floating-loop.toml",
+                       load_study(root / "studies" / "sensor-buffer.toml").tech)
+    design = dataclasses.replace(demo, l={k: np.clip(v, 0.36e-6, 1.8e-6) for k, v in demo.l.items()})
+    cond = Conditions((Corner.TT,), (300.15,), 1.8, 1.8, 1.8)
+    res = evaluate(design, study.tech, cond, dataclasses.replace(study.targets, amplifier=None))
+    assert res.converged.all()
+    mod = get_stage(design.architecture)
+    lo = hi = 0.0
+    for role in (mod.PULL_UP, mod.PULL_DOWN):
+        mt = study.tech.mos(mod.TOPOLOGY.spec(role).polarity)
+        w, l = float(design.w[role][0]), float(design.l[role][0])
+        lo += 2 * mt.cov * w
+        hi += (mt.cox * l + 2 * mt.cov) * w
+    c = float(res.pvt["c_drive_f"][0, 0])
+    assert lo < c < hi, (lo, c, hi)
+
+
+def test_a_stage_that_sinks_too_little_does_not_deliver_the_load():
+    # delivers_load needs both directions at every PVT point: a pull-down four times
+    # narrower than the demo's sinks about a quarter of its peak, so a load between the
+    # two peaks is sourced but not sunk.
+    from pathlib import Path
+
+    from models.stages import get_stage
+    from optimise.files.study import load_design, load_study
+
+    root = Path(__file__).resolve().parents[1]
+    study = load_study(root / "studies" / "sensor-buffer.toml")
+    demo = load_design(root / "studies" / "sensor-buffer-floating-loop.toml", study.tech)
+    down = get_stage(demo.architecture).PULL_DOWN
+    design = dataclasses.replace(demo, w={**demo.w, down: demo.w[down] / 4})
+    cond = Conditions((Corner.TT,), (300.15,), 3.3, 3.3, 3.3)
+    probe = evaluate(design, study.tech, cond, study.targets)
+    src, snk = float(probe.pvt["iout_source_a"][0, 0]), float(probe.pvt["iout_sink_a"][0, 0])
+    assert snk < 0.7 * src
+    res = evaluate(design, study.tech, cond, dataclasses.replace(study.targets, i_load=np.sqrt(src * snk)))
+    assert bool(res.pvt["delivers_source"][0, 0]) and not bool(res.pvt["delivers_sink"][0, 0])
+    assert not bool(res.summary["delivers_load"][0])

@@ -278,3 +278,19 @@ def test_mirror_output_resistance_loads_the_amplifiers_nodes():
     real = evaluate(design, study.tech, study.conditions, dataclasses.replace(study.targets, mirrors=lossy))
     assert real.pvt["iq_a"][0, 0] / ideal.pvt["iq_a"][0, 0] == pytest.approx(1.0, abs=0.03)
     assert real.pvt["p1_hz"][0, 0] / ideal.pvt["p1_hz"][0, 0] > 1.1
+
+
+def test_monte_carlo_draws_of_a_percent_mirror_have_its_sigma():
+    # An unsized mirror is a normal deviation of its current with the study's percent
+    # sigma: the draws' standard deviation is sigma_pct / 100. 200000 draws: the sample
+    # standard deviation's relative error is 1 / sqrt(2 N) = 0.16 % (normal theory), so
+    # 0.6 % is nearly four of them, and a 5 % wrong scale cannot pass.
+    from models.circuit.mirrors import mirror_deviations
+
+    topo = get_stage("follower").TOPOLOGY
+    mirrors = {key: Mirror(sigma_pct=1.5, r_out=1e7) for key in source_keys(topo).values()}
+    draws = mirror_deviations(topo, mirrors, None, 200_000, np.random.default_rng(4))
+    assert set(draws) == {src.name for src in topo.sources}
+    for name, d in draws.items():
+        assert np.std(d) == pytest.approx(0.015, rel=6e-3), name
+        assert abs(np.mean(d)) < 4 * 0.015 / math.sqrt(len(d))  # unbiased, within four standard errors

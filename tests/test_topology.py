@@ -69,3 +69,29 @@ def test_small_signal_conductances_of_the_divider_are_the_hand_stamps():
     ])
     # 1e-15 relative: the same sums in another order, a few roundings.
     assert g[0] == pytest.approx(hand, rel=1e-15, abs=1e-30)
+
+
+def test_amplifier_stamps_its_first_stage_and_resistive_load_by_hand():
+    # The same divider inside an amplifier: the first stage's output resistance r1 from the
+    # driven node (g) to ground, the resistive load from the output to ground, and no other
+    # conductance (Cc and C1 are capacitances): G with the amplifier less G without is
+    # exactly those two hand stamps.
+    from models.records import Amplifier
+
+    stage = SimpleNamespace(TOPOLOGY=DIVIDER)
+    w, l = TECH.snap(np.array([20e-6])), TECH.snap(np.array([1e-6]))
+    devs = devices_at(stage, SimpleNamespace(w={"mn": w}, l={"mn": l}, tied=()), TECH,
+                      corner_shifts(TECH, [Corner.TT]), np.array([T]), np.zeros(1, dtype=int))
+    op = {"mn": devs["mn"].eval(1.0, 1.5, 0.0, 0.0)}
+    nodes = {"g": np.array([1.0]), "x": np.array([1.2])}
+    bias = {"ib": np.array([1e-4]), "r_a": np.array([20e3]), "r_b": np.array([50e3]), "r_d": np.array([10e3])}
+    amp = Amplifier(ugf=1e6, cc=2e-12, r1=5e6, c1=0.2e-12, i1=5e-6, r_load=2e3)
+    vdd = np.array([3.0])
+    bare, _ = smallsignal.assemble(stage, devs, bias, TECH, op, nodes, vdd, 1e-12, None)
+    # One output device: it is both ends of the "pair", so the topology's drive node is used.
+    stage = SimpleNamespace(TOPOLOGY=DIVIDER, PULL_UP="mn", PULL_DOWN="mn")
+    inside, _ = smallsignal.assemble(stage, devs, bias, TECH, op, nodes, vdd, 1e-12, amp, drive="both")
+    hand = np.zeros((3, 3))
+    hand[0, 0] = 1.0 / amp.r1  # node g, the driven node
+    hand[2, 2] = 1.0 / amp.r_load  # the output
+    assert inside[0] - bare[0] == pytest.approx(hand, rel=1e-12, abs=1e-18)

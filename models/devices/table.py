@@ -258,8 +258,8 @@ def capacitances(m: Mos, mt, w, l, vgb, vdb, vsb):
 
 
 def gate_capacitance_from(c: TableConstants, m: Mos, w, l, i_abs):
-    """Gate capacitance cgg [F] as ngspice reports it, at the VGS that carries i_abs in
-    saturation (VSB = 0, half-span VDS), scaled to the instance's width."""
+    """Gate capacitance cgg [F] as ngspice reports it (BSIM's intrinsic part, no overlap: the
+    caller adds 2 W cov), at the VGS that carries i_abs in saturation, VSB = 0, half-span VDS."""
     i_abs = np.maximum(np.asarray(i_abs, dtype=float), 1e-18)
     zero = np.zeros_like(i_abs)
     vds = np.full_like(i_abs, 0.5 * c.table.span)

@@ -71,14 +71,14 @@ class MosTech:
     cov: float  # F/m      gate overlap capacitance per width, each side
     w_min: float  # m      minimum drawn width
     l_min: float  # m      minimum drawn length
-    # Source/drain junctions (SPICE's CJ, MJ, PB, CJSW, MJSW, PBSW): zero-bias capacitance
-    # per diffusion area and per diffusion perimeter, with their grading exponents and
-    # built-in potentials. cj = cjsw = 0: no junction capacitance (`mos.junction_capacitance`).
+    # Source/drain junctions (SPICE's CJ, MJ, PB, CJSW, MJSW, PBSW): zero-bias capacitance per
+    # diffusion area and perimeter, grading exponents, built-in potentials; cj = cjsw = 0: none
+    # (`mos.junction_capacitance`). Defaults: ngspice level 1's (its PB serves the sidewall too).
     cj: float = 0.0  # F/m^2
     mj: float = 0.5  # 1
     pb: float = 0.8  # V
     cjsw: float = 0.0  # F/m
-    mjsw: float = 0.33  # 1
+    mjsw: float = 0.5  # 1
     pbsw: float = 0.8  # V
 
     def __post_init__(self) -> None:
