@@ -84,7 +84,7 @@ TESTS = {
                              "tests/test_mos.py", "tests/test_metrics_budgets.py"],
     "models/validity.py": ["tests/test_validity.py", *MODEL_TESTS],
     "models/wording.py": ["tests/test_wording.py", "tests/test_messages.py", "tests/test_metrics.py"],
-    "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py"],
+    "models/operating.py": [*MODEL_TESTS, "tests/test_ab_ratio_ngspice.py", "tests/test_mirrors.py"],
     "models/records.py": ["tests/test_records.py", *MODEL_TESTS],
     "optimise/review/evaluation.py": ["tests/test_metrics.py", "tests/test_cli.py", "tests/test_json_safe.py"],
     "optimise/search/export.py": ["tests/test_metrics.py", "tests/test_search.py", "tests/test_compare_pick.py"],

@@ -294,3 +294,24 @@ def test_monte_carlo_draws_of_a_percent_mirror_have_its_sigma():
     for name, d in draws.items():
         assert np.std(d) == pytest.approx(0.015, rel=6e-3), name
         assert abs(np.mean(d)) < 4 * 0.015 / math.sqrt(len(d))  # unbiased, within four standard errors
+
+
+def test_rest_point_with_mirrors_is_the_same_with_and_without_sensitivities():
+    # Mirrors with an output resistance: the stage's fast solve takes their currents at a
+    # guess, the nodal Newton finishes the rest point. Asking for the Iq sensitivities must
+    # not change that point or the devices' currents there (the two paths share the
+    # Newton; rounding aside, 1e-12).
+    tech = make_tech(ModelKind.EKV)
+    mirrors = {k: Mirror(sigma_pct=1.0, r_out=2e6) for k in FLOAT_KEYS}
+    stage = get_stage("floating-loop")
+    d = weak_inversion_design()
+    devs = devices_at(stage, d, tech, corner_shifts(tech, [Corner.TT]), np.array([T_TEST]), np.array([0]))
+    vdd = np.array([3.3])
+    src = source_states(stage.TOPOLOGY, mirrors, tech, devs, d.bias, vdd)
+    n1, ok1, _, op1 = rest_point(stage, devs, d.bias, vdd, sources=src)
+    n2, ok2, sens, op2 = rest_point(stage, devs, d.bias, vdd, sensitivity=False, sources=src)
+    assert ok1.all() and ok2.all() and sens is None
+    for name in n1:
+        assert n2[name] == pytest.approx(n1[name], rel=1e-12)
+    for role in stage.ROLES:
+        assert op2[role][0] == pytest.approx(op1[role][0], rel=1e-12)

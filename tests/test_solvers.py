@@ -151,3 +151,23 @@ def test_newton_keeps_solving_a_batch_with_a_singular_jacobian():
     assert ok.tolist() == [True, True, False, True, True, True]
     for i in np.flatnonzero(ok):
         np.testing.assert_allclose(x[:, i], np.linalg.solve(a[i], b[:, i]), rtol=1e-12)
+
+
+def test_structured_solve_flags_an_element_its_shared_pivot_order_spoils():
+    # The pivot order is chosen on a sample of the batch (every other element of 512): an
+    # element outside the sample whose chosen pivot is 1e-20 of its row loses every digit
+    # to elimination without pivoting. Its residual, far above 1e-9 of its row's scale, must
+    # be reported (ok False) so a dense solve with pivoting takes over; the others are
+    # exact. Entries in microsiemens and currents in microamperes, as in the stages (a
+    # check relative to the rows' scale, not an absolute one, is what catches it).
+    m = 512
+    a00 = np.full(m, 2e-6)
+    a00[1] = 2e-26  # element 1 is not in the sample (step 2)
+    entries = {(0, 0): a00, (0, 1): np.full(m, 1e-6), (1, 0): np.full(m, 1e-6), (1, 1): np.full(m, 1e-6)}
+    rhs = {0: np.full(m, 3e-6), 1: np.full(m, 2e-6)}
+    x, ok = solve_structured(entries, rhs, 2, m)
+    assert not ok[1]
+    good = np.arange(m) != 1
+    assert ok[good].all()
+    # By hand, a00 = 2: 2 x + y = 3, x + y = 2 -> x = 1, y = 1.
+    assert np.allclose(x[:, good], 1.0, rtol=1e-12)
